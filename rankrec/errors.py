@@ -1,0 +1,90 @@
+"""The few exception types rankrec raises; messages are built from their fields.
+
+The CLI maps them to exit codes in one place (``rankrec.cli``).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+
+class RankrecError(Exception):
+    """Base of every error rankrec raises on purpose."""
+
+
+class InputError(RankrecError):
+    """A bad record or file: where it is and why it was refused.
+
+    >>> str(InputError("views.csv", 12, "timestamp 'soon' is neither ISO 8601 nor Unix seconds"))
+    "views.csv:12: timestamp 'soon' is neither ISO 8601 nor Unix seconds"
+    """
+
+    def __init__(self, file: str, line: int | None, reason: str) -> None:
+        self.file = str(file)
+        self.line = line
+        self.reason = reason
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        where = self.file if self.line is None else f"{self.file}:{self.line}"
+        return f"{where}: {self.reason}"
+
+    def __reduce__(self):  # keep pickling (multiprocessing) working with the custom __init__
+        return (type(self), (self.file, self.line, self.reason))
+
+
+class UnknownName(RankrecError):
+    """A page, user or team id that the store does not hold, with the closest existing ids."""
+
+    kind = "name"
+
+    def __init__(self, name: str, suggestions: Sequence[str] = ()) -> None:
+        self.name = name
+        self.suggestions = tuple(suggestions)
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        text = f"unknown {self.kind} {self.name!r}"
+        if self.suggestions:
+            text += "; closest: " + ", ".join(self.suggestions)
+        return text
+
+    def __reduce__(self):
+        return (type(self), (self.name, self.suggestions))
+
+
+class UnknownPage(UnknownName):
+    kind = "page"
+
+
+class UnknownUser(UnknownName):
+    kind = "user"
+
+
+class UnknownTeam(UnknownName):
+    kind = "team"
+
+
+class StaleData(RankrecError):
+    """A cached artefact (basis, index) built from other data than the one in hand."""
+
+    what = "cached data"
+
+    def __init__(self, expected: str, found: str) -> None:
+        self.expected = expected
+        self.found = found
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        return f"{self.what} is stale: built for {self.found!r}, the graph in hand is {self.expected!r}"
+
+    def __reduce__(self):
+        return (type(self), (self.expected, self.found))
+
+
+class StaleBasis(StaleData):
+    what = "basis"
+
+
+class StaleIndex(StaleData):
+    what = "index"
