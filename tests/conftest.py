@@ -1,0 +1,24 @@
+"""Shared test helpers. Outside data under ../shared/data is optional: tests skip without it."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+PROJECT = Path(__file__).resolve().parent.parent
+SHARED_DATA = PROJECT.parent / "shared" / "data"
+
+
+def require_shared(*parts: str) -> Path:
+    """Path of a file or folder under ../shared/data, or skip the test saying what is missing."""
+    path = SHARED_DATA.joinpath(*parts)
+    if not path.exists():
+        pytest.skip(f"outside data not available: {path.relative_to(PROJECT.parent)} is absent")
+    return path
+
+
+@pytest.fixture
+def shared_data():
+    """The ``require_shared`` function, as a fixture."""
+    return require_shared
