@@ -1,0 +1,127 @@
+"""Readers, one per input format, and the choice of reader for a path.
+
+Each reader yields :mod:`records <rankrec.sources.records>` with their provenance, or
+:class:`~rankrec.errors.InputError` values for the records it skips; none of them touches the
+store or the graph.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+from ..errors import InputError
+from ._text import iter_lines
+from .records import Record
+
+FORMATS = ("markdown", "html", "edges", "pages", "views", "access-log", "teams", "groups")
+
+_LOG_LINE = re.compile(r'^\S+ \S+ \S+ \[[^\]]+\] "')
+_MARKDOWN = {".md", ".markdown"}
+_HTML = {".html", ".htm"}
+
+
+def detect_format(path: str | Path) -> str:
+    """Guess the format of ``path`` from what it is, its name and its first line.
+
+    Folders are Markdown or HTML by the files they hold; files are recognised by a log line,
+    a JSON object's keys, or a CSV header; anything else with two or three columns is an
+    edge list. Raises InputError when nothing fits.
+    """
+    path = Path(path)
+    if path.is_dir():
+        return _detect_folder(path)
+    if not path.exists():
+        raise InputError(str(path), None, "no such file or folder")
+    name = path.name.lower().removesuffix(".gz")
+    if name.endswith(".log") or "access" in name:
+        return "access-log"
+    first = _first_line(path)
+    if _LOG_LINE.match(first):
+        return "access-log"
+    if first.startswith("{"):
+        keys = set(re.findall(r'"([A-Za-z_]+)"\s*:', first))
+        if {"user", "page"} <= keys:
+            return "views"
+        if "id" in keys:
+            return "pages"
+        raise InputError(str(path), 1, "JSON Lines file is neither view events nor a page export")
+    fields = [field.strip().strip('"').lower() for field in re.split(r"[,\t]", first)]
+    if {"user", "page", "timestamp"} <= set(fields):
+        return "views"
+    if fields == ["user", "team"] or (len(fields) == 2 and "team" in name):
+        return "teams"
+    if fields == ["user", "group"] or (len(fields) == 2 and "group" in name):
+        return "groups"
+    if "id" in fields:
+        return "pages"
+    return "edges"
+
+
+def _detect_folder(path: Path) -> str:
+    markdown = html = 0
+    for index, file in enumerate(path.rglob("*")):
+        suffix = file.suffix.lower()
+        markdown += suffix in _MARKDOWN
+        html += suffix in _HTML
+        if index > 5000 and (markdown or html):
+            break
+    if not (markdown or html):
+        raise InputError(str(path), None, "folder holds no Markdown (.md) or HTML (.html) pages")
+    return "markdown" if markdown >= html else "html"
+
+
+def _first_line(path: Path) -> str:
+    for item in iter_lines(path):
+        if isinstance(item, InputError):
+            raise item
+        text = item[1].strip()
+        if text and not text.startswith("#"):
+            return text
+    raise InputError(str(path), None, "file holds no records")
+
+
+def read_source(path: str | Path, format: str, **options: Any) -> Iterator[Record | InputError]:
+    """Records of ``path`` read as ``format``; ``options`` that the reader does not take are ignored.
+
+    Options: ``encoding`` (all), ``base_url`` and ``exclude`` (html), ``page_pattern`` and
+    ``anonymous`` (access-log), ``now`` (views, access-log; Unix seconds, for tests).
+    """
+    if format not in FORMATS:
+        raise ValueError(f"format must be one of {', '.join(FORMATS)}; got {format!r}")
+    given = {key: value for key, value in options.items() if value is not None}
+    if format == "markdown":
+        from .markdown import read_markdown_folder
+
+        return read_markdown_folder(path, **_pick(given, "encoding"))
+    if format == "html":
+        from .html import read_html_folder
+
+        return read_html_folder(path, **_pick(given, "encoding", "base_url", "exclude"))
+    if format == "edges":
+        from .edges import read_edge_list
+
+        return read_edge_list(path, **_pick(given, "encoding"))
+    if format == "pages":
+        from .pages import read_page_export
+
+        return read_page_export(path, **_pick(given, "encoding"))
+    if format == "views":
+        from .views import read_view_events
+
+        return read_view_events(path, **_pick(given, "encoding", "now"))
+    if format == "access-log":
+        from .access_log import read_access_log
+
+        return read_access_log(
+            path, **_pick(given, "encoding", "now", "page_pattern", "anonymous", "tally")
+        )
+    from .membership import read_memberships
+
+    return read_memberships(path, "team" if format == "teams" else "group", **_pick(given, "encoding"))
+
+
+def _pick(options: dict[str, Any], *names: str) -> dict[str, Any]:
+    return {name: options[name] for name in names if name in options}

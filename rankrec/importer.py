@@ -1,0 +1,207 @@
+"""Import sources into the store: one transaction for the whole call, strict or forgiving.
+
+Forgiving (default): bad records are skipped and reported; the call fails only when no good
+record was read at all. Strict: the first bad record raises its InputError and the store is
+left exactly as it was.
+"""
+
+from __future__ import annotations
+
+import time
+from collections import Counter
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import InputError
+from .sources import detect_format, read_source
+from .sources.records import LinkRecord, MembershipRecord, PageRecord, ViewRecord
+from .store import Store
+
+_BATCH = 50_000
+#: formats whose page records only say "this page exists" (their title is the id)
+_IMPLICIT_PAGES = {"edges"}
+#: formats whose page records come with the page's whole set of out-links
+_SNAPSHOT_PAGES = {"markdown", "html"}
+
+
+@dataclass(frozen=True)
+class ImportReport:
+    """What one source brought: records by kind, the bad records skipped, the lines dropped."""
+
+    source: str
+    format: str
+    records: dict[str, int]
+    errors: tuple[InputError, ...]
+    error_count: int
+    dropped: dict[str, int]
+    seconds: float
+
+    @property
+    def good(self) -> int:
+        return sum(self.records.values())
+
+
+@dataclass
+class _Batch:
+    """Rows waiting to be written; a page's old out-links are forgotten before its first new one."""
+
+    links: list = field(default_factory=list)
+    views: list = field(default_factory=list)
+    memberships: list = field(default_factory=list)
+    cleared: set = field(default_factory=set)
+
+    def flush(self, store: Store, force: bool = False) -> None:
+        if self.links and (force or len(self.links) >= _BATCH):
+            fresh = {source for source, _, _ in self.links} - self.cleared
+            store.clear_links_from(fresh)
+            self.cleared |= fresh
+            store.put_links(self.links)
+            self.links.clear()
+        if self.views and (force or len(self.views) >= _BATCH):
+            store.put_views(self.views)
+            self.views.clear()
+        if self.memberships and (force or len(self.memberships) >= _BATCH):
+            store.put_memberships(self.memberships)
+            self.memberships.clear()
+
+
+class _PageLedger:
+    """Page ids seen in this call, to refuse a second description with another title."""
+
+    def __init__(self) -> None:
+        self.seen: dict[str, tuple[str, str]] = {}
+
+    def check(self, record: PageRecord) -> InputError | None:
+        first = self.seen.get(record.page)
+        if first is None:
+            self.seen[record.page] = (record.title, str(record.origin))
+            return None
+        if first[0] != record.title:
+            return InputError(
+                record.origin.file,
+                record.origin.line,
+                f"duplicate page id {record.page!r} with title {record.title!r}; "
+                f"{first[1]} gave it the title {first[0]!r} (kept that one)",
+            )
+        return None
+
+
+def import_sources(
+    store: Store,
+    sources: Sequence[str | Path | tuple[str | Path, str]],
+    *,
+    strict: bool = False,
+    error_cap: int = 1000,
+    progress: Callable[[int], None] | None = None,
+    **options: Any,
+) -> list[ImportReport]:
+    """Import every source into ``store`` in one transaction and report on each.
+
+    Parameters
+    ----------
+    sources
+        Paths (format detected) or ``(path, format)`` pairs; format ``"auto"`` also detects.
+    strict
+        Raise the first InputError (store unchanged) instead of skipping bad records.
+    error_cap
+        How many InputErrors each report keeps (``error_count`` counts them all).
+    progress
+        Called with the number of records handled since the previous call.
+    options
+        Reader options (see :func:`rankrec.sources.read_source`).
+
+    Raises
+    ------
+    InputError
+        In strict mode, the first bad record; otherwise when no source yielded a good record
+        (the store is then left unchanged).
+    """
+    jobs = []
+    for item in sources:
+        path, format = (item, "auto") if isinstance(item, str | Path) else item
+        jobs.append((str(path), detect_format(path) if format == "auto" else format))
+    reports: list[ImportReport] = []
+    ledger = _PageLedger()
+    cleared: set[str] = set()
+    with store.transaction():
+        for path, format in jobs:
+            reports.append(
+                _import_one(store, path, format, ledger, cleared, strict, error_cap, progress, options)
+            )
+        if not any(report.good for report in reports):
+            first = next((error for report in reports for error in report.errors), None)
+            reason = "no good record was read" + (f"; first problem: {first}" if first else "")
+            raise InputError(", ".join(path for path, _ in jobs), None, reason)
+    return reports
+
+
+def _import_one(store, path, format, ledger, cleared, strict, error_cap, progress, options) -> ImportReport:
+    started = time.perf_counter()
+    records: Counter[str] = Counter()
+    dropped: Counter[str] = Counter()
+    errors: list[InputError] = []
+    error_count = 0
+    batch = _Batch(cleared=cleared)
+    pending = 0
+    for item in read_source(path, format, tally=dropped, **options):
+        if isinstance(item, InputError):
+            error = item
+        else:
+            error = _put(store, item, batch, ledger, format)
+            if error is None:
+                records[_KIND[type(item)]] += 1
+        if error is not None:
+            if strict:
+                raise error
+            error_count += 1
+            if len(errors) < error_cap:
+                errors.append(error)
+        pending += 1
+        if pending >= 10_000:
+            batch.flush(store)
+            if progress:
+                progress(pending)
+            pending = 0
+    batch.flush(store, force=True)
+    if progress and pending:
+        progress(pending)
+    store.log_import(path, format, sum(records.values()), error_count)
+    return ImportReport(
+        source=path,
+        format=format,
+        records=dict(records),
+        errors=tuple(errors),
+        error_count=error_count,
+        dropped=dict(dropped),
+        seconds=time.perf_counter() - started,
+    )
+
+
+_KIND = {PageRecord: "pages", LinkRecord: "links", ViewRecord: "views", MembershipRecord: "memberships"}
+
+
+def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
+    if isinstance(item, ViewRecord):
+        batch.views.append((item.user, item.page, item.timestamp, item.dwell))
+    elif isinstance(item, LinkRecord):
+        if item.source == item.target:
+            return InputError(item.origin.file, item.origin.line, f"self-link of {item.source!r} dropped")
+        batch.links.append((item.source, item.target, item.weight))
+    elif isinstance(item, PageRecord):
+        if format in _IMPLICIT_PAGES:
+            store.put_page(item, describe=False)
+            return None
+        error = ledger.check(item)
+        if error is not None:
+            return error
+        store.put_page(item)
+        if format in _SNAPSHOT_PAGES and item.page not in batch.cleared:
+            store.clear_links_from([item.page])
+            batch.cleared.add(item.page)
+    elif isinstance(item, MembershipRecord):
+        batch.memberships.append((item.kind, item.name, item.user))
+    else:  # pragma: no cover - a reader bug, not bad input
+        raise TypeError(f"reader yielded {type(item).__name__}, not a record")
+    return None

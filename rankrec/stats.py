@@ -1,0 +1,86 @@
+"""Summary of a wiki store: sizes, graph shape, reading history, and the worst unresolved links."""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse.csgraph import connected_components
+
+from .store import Store
+
+
+def _spread(counts: np.ndarray) -> dict[str, float]:
+    if counts.size == 0:
+        return {"mean": 0.0, "median": 0.0, "max": 0}
+    return {
+        "mean": round(float(counts.mean()), 2),
+        "median": float(np.median(counts)),
+        "max": int(counts.max()),
+    }
+
+
+def _iso(timestamp: float | None) -> str | None:
+    if timestamp is None:
+        return None
+    return datetime.fromtimestamp(timestamp, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def wiki_stats(store: Store, *, worst: int = 10) -> dict:
+    """Everything `rankrec stats` shows, as one JSON-ready mapping.
+
+    >>> with Store(":memory:") as store:
+    ...     summary = wiki_stats(store)
+    >>> summary["pages"], summary["dangling"], summary["largest_scc"]
+    (0, 0, 0)
+    """
+    summary: dict = store.counts()
+    ids, _ = store.present_pages()
+    sources, targets, _ = store.link_arrays()
+    n = ids.size
+    rows = np.searchsorted(ids, sources)
+    columns = np.searchsorted(ids, targets)
+    out_degree = np.bincount(rows, minlength=n)
+    summary["dangling"] = int(np.count_nonzero(out_degree == 0))
+    if n:
+        matrix = sp.csr_matrix((np.ones(rows.size), (rows, columns)), shape=(n, n))
+        _, labels = connected_components(matrix, directed=True, connection="strong")
+        summary["largest_scc"] = int(np.bincount(labels).max())
+    else:
+        summary["largest_scc"] = 0
+    summary["archived"] = store.scalar("SELECT count(*) FROM pages WHERE present = 1 AND archived = 1")
+    summary["restricted"] = store.scalar(
+        "SELECT count(DISTINCT page_id) FROM page_groups JOIN pages ON pages.id = page_id WHERE present = 1"
+    )
+    users, pages, times = store.view_arrays()
+    summary["views_per_user"] = _spread(np.unique(users, return_counts=True)[1])
+    summary["views_per_page"] = _spread(np.unique(pages, return_counts=True)[1])
+    summary["views_of_missing_pages"] = store.scalar(
+        "SELECT count(*) FROM views JOIN pages ON pages.id = page_id WHERE present = 0"
+    )
+    first = float(times.min()) if times.size else None
+    last = float(times.max()) if times.size else None
+    summary["time_span"] = {
+        "first": _iso(first),
+        "last": _iso(last),
+        "days": round((last - first) / 86400, 1) if times.size else 0.0,
+    }
+    summary["worst_unresolved_targets"] = [
+        {"target": target, "links": count}
+        for target, count in store.connection.execute(
+            "SELECT t.page, count(*) AS n FROM links JOIN pages AS t ON t.id = links.target_id "
+            "WHERE t.present = 0 GROUP BY t.id ORDER BY n DESC, t.page LIMIT ?",
+            (worst,),
+        )
+    ]
+    summary["pages_with_most_unresolved"] = [
+        {"page": page, "links": count}
+        for page, count in store.connection.execute(
+            "SELECT s.page, count(*) AS n FROM links JOIN pages AS t ON t.id = links.target_id "
+            "JOIN pages AS s ON s.id = links.source_id WHERE t.present = 0 "
+            "GROUP BY s.id ORDER BY n DESC, s.page LIMIT ?",
+            (worst,),
+        )
+    ]
+    return summary

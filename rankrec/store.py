@@ -1,0 +1,286 @@
+"""The wiki store: one SQLite file (WAL mode) holding the wiki snapshot and its reading history.
+
+Pages are numbered by SQLite row ids. A page that is only *referred to* (a link target or a
+viewed page that no source has described) is kept as a row with ``present = 0``, so links to
+pages that do not exist are counted and reported instead of being dropped, and a later import
+that brings the page makes them resolve. Imports run inside :meth:`Store.transaction`: all of
+it or nothing.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+
+SCHEMA_VERSION = 1
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS pages (
+    id INTEGER PRIMARY KEY,
+    page TEXT NOT NULL UNIQUE,
+    title TEXT,
+    space TEXT,
+    url TEXT,
+    archived INTEGER NOT NULL DEFAULT 0,
+    present INTEGER NOT NULL DEFAULT 0,
+    external_links INTEGER NOT NULL DEFAULT 0,
+    origin TEXT
+);
+CREATE TABLE IF NOT EXISTS page_tags (
+    page_id INTEGER NOT NULL REFERENCES pages(id), tag TEXT NOT NULL, PRIMARY KEY (page_id, tag)
+) WITHOUT ROWID;
+CREATE TABLE IF NOT EXISTS page_groups (
+    page_id INTEGER NOT NULL REFERENCES pages(id), name TEXT NOT NULL, PRIMARY KEY (page_id, name)
+) WITHOUT ROWID;
+CREATE TABLE IF NOT EXISTS links (
+    source_id INTEGER NOT NULL REFERENCES pages(id),
+    target_id INTEGER NOT NULL REFERENCES pages(id),
+    weight REAL NOT NULL DEFAULT 1.0,
+    PRIMARY KEY (source_id, target_id)
+) WITHOUT ROWID;
+CREATE INDEX IF NOT EXISTS links_by_target ON links (target_id);
+CREATE TABLE IF NOT EXISTS users (id INTEGER PRIMARY KEY, user TEXT NOT NULL UNIQUE);
+CREATE TABLE IF NOT EXISTS views (
+    user_id INTEGER NOT NULL REFERENCES users(id),
+    page_id INTEGER NOT NULL REFERENCES pages(id),
+    timestamp REAL NOT NULL,
+    dwell REAL,
+    PRIMARY KEY (user_id, page_id, timestamp)
+) WITHOUT ROWID;
+CREATE INDEX IF NOT EXISTS views_by_time ON views (timestamp);
+CREATE TABLE IF NOT EXISTS memberships (
+    kind TEXT NOT NULL CHECK (kind IN ('team', 'group')),
+    name TEXT NOT NULL,
+    user_id INTEGER NOT NULL REFERENCES users(id),
+    PRIMARY KEY (kind, name, user_id)
+) WITHOUT ROWID;
+CREATE TABLE IF NOT EXISTS imports (
+    id INTEGER PRIMARY KEY,
+    source TEXT NOT NULL,
+    format TEXT NOT NULL,
+    records INTEGER NOT NULL,
+    errors INTEGER NOT NULL,
+    imported_at TEXT NOT NULL DEFAULT (strftime('%Y-%m-%dT%H:%M:%SZ', 'now'))
+);
+"""
+
+
+class Store:
+    """An open wiki store. Use as a context manager, or call :meth:`close`.
+
+    >>> with Store(":memory:") as store:
+    ...     store.counts()["pages"]
+    0
+    """
+
+    def __init__(self, path: str | Path, *, create: bool = True) -> None:
+        self.path = str(path)
+        if self.path != ":memory:" and not create and not Path(self.path).is_file():
+            raise InputError(self.path, None, "no wiki store here; create one with `rankrec import`")
+        try:
+            self.connection = sqlite3.connect(self.path, isolation_level=None, check_same_thread=False)
+            self.connection.execute("PRAGMA journal_mode=WAL")
+            self.connection.execute("PRAGMA synchronous=NORMAL")
+            self.connection.execute("PRAGMA foreign_keys=ON")
+            self._check_schema()
+        except sqlite3.DatabaseError as error:
+            raise InputError(self.path, None, f"not a usable wiki store: {error}") from None
+        self._page_ids: dict[str, int] = {}
+        self._user_ids: dict[str, int] = {}
+
+    def _check_schema(self) -> None:
+        existing = self.connection.execute(
+            "SELECT name FROM sqlite_master WHERE type='table' AND name='meta'"
+        ).fetchone()
+        if existing:
+            row = self.connection.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
+            if row is None or int(row[0]) != SCHEMA_VERSION:
+                found = None if row is None else row[0]
+                raise sqlite3.DatabaseError(f"schema version {found}, this rankrec reads {SCHEMA_VERSION}")
+            return
+        self.connection.executescript("BEGIN;" + _SCHEMA + "COMMIT;")
+        self.connection.execute(
+            "INSERT INTO meta (key, value) VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),)
+        )
+
+    # -- lifecycle -------------------------------------------------------------------------------
+    def close(self) -> None:
+        self.connection.close()
+
+    def __enter__(self) -> Store:
+        return self
+
+    def __exit__(self, *exc_info) -> None:
+        self.close()
+
+    @contextmanager
+    def transaction(self) -> Iterator[Store]:
+        """Everything inside goes in together or not at all (also on KeyboardInterrupt)."""
+        self.connection.execute("BEGIN IMMEDIATE")
+        try:
+            yield self
+        except BaseException:
+            self.connection.execute("ROLLBACK")
+            self._page_ids.clear()
+            self._user_ids.clear()
+            raise
+        self.connection.execute("COMMIT")
+
+    # -- ids -------------------------------------------------------------------------------------
+    def page_id(self, page: str) -> int:
+        """Row id of ``page``, adding a not-present row for a page only referred to."""
+        found = self._page_ids.get(page)
+        if found is None:
+            cursor = self.connection.execute(
+                "INSERT INTO pages (page) VALUES (?) ON CONFLICT (page) DO UPDATE SET page = page "
+                "RETURNING id",
+                (page,),
+            )
+            found = cursor.fetchone()[0]
+            self._page_ids[page] = found
+        return found
+
+    def user_id(self, user: str) -> int:
+        found = self._user_ids.get(user)
+        if found is None:
+            cursor = self.connection.execute(
+                "INSERT INTO users (user) VALUES (?) ON CONFLICT (user) DO UPDATE SET user = user "
+                "RETURNING id",
+                (user,),
+            )
+            found = cursor.fetchone()[0]
+            self._user_ids[user] = found
+        return found
+
+    # -- writes (call inside a transaction) ---------------------------------------------------------
+    def put_page(self, record, *, describe: bool = True) -> int:
+        """Mark the page present; with ``describe`` also replace its title, space, tags and groups."""
+        page_id = self.page_id(record.page)
+        if not describe:
+            self.connection.execute(
+                "UPDATE pages SET present = 1, title = coalesce(title, ?), origin = coalesce(origin, ?) "
+                "WHERE id = ?",
+                (record.title, str(record.origin), page_id),
+            )
+            return page_id
+        self.connection.execute(
+            "UPDATE pages SET present = 1, title = ?, space = ?, url = ?, archived = ?, external_links = ?, "
+            "origin = ? WHERE id = ?",
+            (
+                record.title,
+                record.space,
+                record.url,
+                int(record.archived),
+                record.external_links,
+                str(record.origin),
+                page_id,
+            ),
+        )
+        self.connection.execute("DELETE FROM page_tags WHERE page_id = ?", (page_id,))
+        self.connection.execute("DELETE FROM page_groups WHERE page_id = ?", (page_id,))
+        self.connection.executemany(
+            "INSERT OR IGNORE INTO page_tags (page_id, tag) VALUES (?, ?)",
+            [(page_id, tag) for tag in record.tags],
+        )
+        self.connection.executemany(
+            "INSERT OR IGNORE INTO page_groups (page_id, name) VALUES (?, ?)",
+            [(page_id, name) for name in record.groups],
+        )
+        return page_id
+
+    def clear_links_from(self, pages: Iterable[str]) -> None:
+        """Forget the outgoing links of ``pages`` (before their new snapshot's links go in)."""
+        self.connection.executemany(
+            "DELETE FROM links WHERE source_id = ?", [(self.page_id(page),) for page in pages]
+        )
+
+    def put_links(self, rows: Iterable[tuple[str, str, float]]) -> None:
+        self.connection.executemany(
+            "INSERT INTO links (source_id, target_id, weight) VALUES (?, ?, ?) "
+            "ON CONFLICT (source_id, target_id) DO UPDATE SET weight = excluded.weight",
+            [(self.page_id(source), self.page_id(target), weight) for source, target, weight in rows],
+        )
+
+    def put_views(self, rows: Iterable[tuple[str, str, float, float | None]]) -> None:
+        self.connection.executemany(
+            "INSERT OR IGNORE INTO views (user_id, page_id, timestamp, dwell) VALUES (?, ?, ?, ?)",
+            [(self.user_id(user), self.page_id(page), ts, dwell) for user, page, ts, dwell in rows],
+        )
+
+    def put_memberships(self, rows: Iterable[tuple[str, str, str]]) -> None:
+        self.connection.executemany(
+            "INSERT OR IGNORE INTO memberships (kind, name, user_id) VALUES (?, ?, ?)",
+            [(kind, name, self.user_id(user)) for kind, name, user in rows],
+        )
+
+    def log_import(self, source: str, format: str, records: int, errors: int) -> None:
+        self.connection.execute(
+            "INSERT INTO imports (source, format, records, errors) VALUES (?, ?, ?, ?)",
+            (source, format, records, errors),
+        )
+
+    # -- reads -----------------------------------------------------------------------------------
+    def scalar(self, sql: str, parameters: tuple = ()):
+        return self.connection.execute(sql, parameters).fetchone()[0]
+
+    def counts(self) -> dict[str, int]:
+        """Sizes of the snapshot: pages, links, unresolved links, views, users, teams, groups."""
+        return {
+            "pages": self.scalar("SELECT count(*) FROM pages WHERE present = 1"),
+            "links": self.scalar(
+                "SELECT count(*) FROM links JOIN pages AS t ON t.id = links.target_id "
+                "JOIN pages AS s ON s.id = links.source_id WHERE t.present = 1 AND s.present = 1"
+            ),
+            "unresolved_links": self.scalar(
+                "SELECT count(*) FROM links JOIN pages AS t ON t.id = links.target_id WHERE t.present = 0"
+            ),
+            "views": self.scalar("SELECT count(*) FROM views"),
+            "users": self.scalar("SELECT count(*) FROM users"),
+            "teams": self.scalar("SELECT count(DISTINCT name) FROM memberships WHERE kind = 'team'"),
+            "groups": self.scalar(
+                "SELECT count(*) FROM (SELECT name FROM memberships WHERE kind = 'group' "
+                "UNION SELECT name FROM page_groups)"
+            ),
+        }
+
+    def present_pages(self) -> tuple[np.ndarray, list[str]]:
+        """Row ids (ascending) and page ids of the pages the wiki holds."""
+        rows = self.connection.execute("SELECT id, page FROM pages WHERE present = 1 ORDER BY id").fetchall()
+        ids = np.fromiter((row[0] for row in rows), dtype=np.int64, count=len(rows))
+        return ids, [row[1] for row in rows]
+
+    def link_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Row ids of source and target, and weight, of every link between present pages."""
+        cursor = self.connection.execute(
+            "SELECT links.source_id, links.target_id, links.weight FROM links "
+            "JOIN pages AS s ON s.id = links.source_id JOIN pages AS t ON t.id = links.target_id "
+            "WHERE s.present = 1 AND t.present = 1"
+        )
+        sources, targets, weights = [], [], []
+        while chunk := cursor.fetchmany(200_000):
+            block = np.array(chunk, dtype=np.float64).reshape(-1, 3)
+            sources.append(block[:, 0].astype(np.int64))
+            targets.append(block[:, 1].astype(np.int64))
+            weights.append(block[:, 2])
+        if not sources:
+            empty = np.zeros(0, dtype=np.int64)
+            return empty, empty.copy(), np.zeros(0)
+        return np.concatenate(sources), np.concatenate(targets), np.concatenate(weights)
+
+    def view_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """User row id, page row id and timestamp of every view, ordered by user then time."""
+        cursor = self.connection.execute(
+            "SELECT user_id, page_id, timestamp FROM views ORDER BY user_id, timestamp"
+        )
+        blocks = []
+        while chunk := cursor.fetchmany(500_000):
+            blocks.append(np.array(chunk, dtype=np.float64).reshape(-1, 3))
+        table = np.concatenate(blocks) if blocks else np.zeros((0, 3))
+        return table[:, 0].astype(np.int64), table[:, 1].astype(np.int64), table[:, 2]
