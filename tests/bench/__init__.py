@@ -1,0 +1,1 @@
+"""Benchmarks: run with `make bench` (not collected by pytest)."""
