@@ -1,0 +1,170 @@
+"""The link graph of a wiki store as arrays: dense page numbering, CSR weights, dangling mask.
+
+Optionally each page's row blends its links with observed navigation: consecutive views of
+one reader within a session (views at most ``gap`` seconds apart), counted over a time window
+the caller gives. Pure data: nothing here reads anything but the store.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass, field
+from functools import cached_property
+
+import numpy as np
+import scipy.sparse as sp
+
+from ._validation import check_fraction, check_positive
+from .errors import UnknownPage
+from .store import Store
+
+
+@dataclass(frozen=True)
+class Navigation:
+    """How to blend observed navigation into the link matrix.
+
+    ``weight`` is the share of a page's row given to its navigation row (when it has one);
+    ``gap`` the longest pause, in seconds, inside one session (30 minutes: common practice in
+    web analytics); ``since``/``until`` the time window of views to count (Unix seconds).
+    """
+
+    weight: float = 0.3
+    gap: float = 1800.0
+    since: float | None = None
+    until: float | None = None
+
+    def __post_init__(self) -> None:
+        check_fraction("weight", self.weight)
+        check_positive("gap", self.gap)
+
+
+@dataclass(frozen=True, eq=False)
+class WikiGraph:
+    """Pages ``0..n-1`` (``pages[i]`` is a page id) and ``adjacency[i, j]``: weight of i -> j."""
+
+    pages: np.ndarray
+    adjacency: sp.csr_matrix
+    navigation: Navigation | None = None
+    fingerprint: str = field(default="")
+
+    @property
+    def size(self) -> int:
+        return int(self.pages.size)
+
+    @cached_property
+    def dangling(self) -> np.ndarray:
+        """True for pages without out-links (their rows sum to zero)."""
+        return np.diff(self.adjacency.indptr) == 0
+
+    @cached_property
+    def _positions(self) -> dict[str, int]:
+        return {page: index for index, page in enumerate(self.pages.tolist())}
+
+    def index_of(self, page: str) -> int:
+        """Dense number of ``page``; UnknownPage (with close ids) when the wiki lacks it."""
+        try:
+            return self._positions[page]
+        except KeyError:
+            import difflib
+
+            close = difflib.get_close_matches(page, self._positions, n=3, cutoff=0.5)
+            raise UnknownPage(page, close) from None
+
+    def indices_of(self, pages) -> np.ndarray:
+        return np.fromiter((self.index_of(page) for page in pages), dtype=np.int64)
+
+
+def _fingerprint(pages: np.ndarray, adjacency: sp.csr_matrix, navigation: Navigation | None) -> str:
+    digest = hashlib.sha256()
+    digest.update("\0".join(pages.tolist()).encode())
+    for array in (adjacency.indptr, adjacency.indices, adjacency.data):
+        digest.update(np.ascontiguousarray(array).tobytes())
+    digest.update(json.dumps(None if navigation is None else vars(navigation), sort_keys=True).encode())
+    return digest.hexdigest()[:16]
+
+
+def navigation_counts(
+    users: np.ndarray, pages: np.ndarray, times: np.ndarray, size: int, *, gap: float
+) -> sp.csr_matrix:
+    """Counts of moves page i -> page j between consecutive views of one reader within ``gap`` s.
+
+    Views must be ordered by user, then time; ``pages`` are dense page numbers (-1 = unknown,
+    skipped). Repeated views of the same page (reloads) are not moves.
+
+    >>> m = navigation_counts(np.array([1, 1, 1, 2]), np.array([0, 1, 2, 0]), np.array([0., 60, 9999, 5]),
+    ...                       3, gap=1800)
+    >>> m.toarray().tolist()
+    [[0, 1, 0], [0, 0, 0], [0, 0, 0]]
+    """
+    same = (users[1:] == users[:-1]) & (times[1:] - times[:-1] <= gap)
+    source, target = pages[:-1], pages[1:]
+    keep = same & (source >= 0) & (target >= 0) & (source != target)
+    counts = sp.coo_matrix(
+        (np.ones(int(keep.sum()), dtype=np.int64), (source[keep], target[keep])), shape=(size, size)
+    )
+    return counts.tocsr()
+
+
+def _row_normalised(matrix: sp.csr_matrix) -> sp.csr_matrix:
+    sums = np.asarray(matrix.sum(axis=1)).ravel()
+    scale = np.divide(1.0, sums, out=np.zeros_like(sums, dtype=np.float64), where=sums > 0)
+    return sp.diags(scale) @ matrix
+
+
+def blend_navigation(adjacency: sp.csr_matrix, counts: sp.csr_matrix, weight: float) -> sp.csr_matrix:
+    """Rows mixing ``(1 - weight)`` of the link row with ``weight`` of the navigation row.
+
+    Both rows are normalised first; a page without navigation keeps its link row as it was,
+    and a page with navigation but no links takes its navigation row.
+    """
+    original = adjacency.astype(np.float64)
+    links = _row_normalised(original)
+    moves = _row_normalised(counts.astype(np.float64))
+    has_moves = (np.diff(moves.indptr) > 0).astype(np.float64)
+    has_links = (np.diff(links.indptr) > 0).astype(np.float64)
+    move_share = has_moves * np.where(has_links > 0, weight, 1.0)
+    link_share = has_moves - move_share
+    mixed = sp.diags(link_share) @ links + sp.diags(move_share) @ moves + sp.diags(1.0 - has_moves) @ original
+    mixed = sp.csr_matrix(mixed)
+    mixed.eliminate_zeros()
+    mixed.sort_indices()
+    return mixed
+
+
+def _dense_numbers(row_ids: np.ndarray, wanted: np.ndarray) -> np.ndarray:
+    """Positions of ``wanted`` in the sorted ``row_ids``; -1 where absent."""
+    if row_ids.size == 0:
+        return np.full(wanted.size, -1, dtype=np.int64)
+    position = np.minimum(np.searchsorted(row_ids, wanted), row_ids.size - 1)
+    return np.where(row_ids[position] == wanted, position, -1)
+
+
+def load_graph(store: Store, *, navigation: Navigation | None = None) -> WikiGraph:
+    """The graph of the pages the store holds (links between present pages only)."""
+    row_ids, pages = store.present_pages()
+    size = row_ids.size
+    sources, targets, weights = store.link_arrays()
+    rows = np.searchsorted(row_ids, sources)
+    columns = np.searchsorted(row_ids, targets)
+    adjacency = sp.csr_matrix((weights, (rows, columns)), shape=(size, size), dtype=np.float64)
+    adjacency.sum_duplicates()
+    adjacency.sort_indices()
+    if navigation is not None:
+        users, viewed, times = store.view_arrays()
+        window = np.ones(times.size, dtype=bool)
+        if navigation.since is not None:
+            window &= times >= navigation.since
+        if navigation.until is not None:
+            window &= times < navigation.until
+        users, viewed, times = users[window], viewed[window], times[window]
+        dense = _dense_numbers(row_ids, viewed)
+        counts = navigation_counts(users, dense, times, size, gap=navigation.gap)
+        adjacency = blend_navigation(adjacency, counts, navigation.weight)
+    page_array = np.array(pages, dtype=object)
+    return WikiGraph(
+        pages=page_array,
+        adjacency=adjacency,
+        navigation=navigation,
+        fingerprint=_fingerprint(page_array, adjacency, navigation),
+    )
