@@ -35,7 +35,9 @@ def print_mapping(mapping: Mapping, format: str, out: TextIO | None = None) -> N
         elif isinstance(value, list):
             out.write(f"{label}:\n" if value else f"{label:<{width}}  none\n")
             for item in value:
-                text = "  ".join(_cell(v) for v in item.values()) if isinstance(item, Mapping) else _cell(item)
+                text = (
+                    "  ".join(_cell(v) for v in item.values()) if isinstance(item, Mapping) else _cell(item)
+                )
                 out.write(f"  {text}\n")
         else:
             out.write(f"{label:<{width}}  {_cell(value)}\n")

@@ -160,7 +160,9 @@ def build_parser() -> argparse.ArgumentParser:
         choices=("host-agent", "host", "drop"),
         help="access logs: who made a request without an authenticated user (default host-agent: a hash)",
     )
-    imp.add_argument("--max-errors", type=int, default=20, metavar="N", help="bad records to list (default 20)")
+    imp.add_argument(
+        "--max-errors", type=int, default=20, metavar="N", help="bad records to list (default 20)"
+    )
     imp.set_defaults(run=_cmd_import)
 
     stats = commands.add_parser("stats", help="sizes, graph shape, reading history, unresolved links")
@@ -183,8 +185,12 @@ def build_parser() -> argparse.ArgumentParser:
         choices=("auto", "markdown", "tables"),
         help="Markdown folder or page/edge tables (default: Markdown up to 20,000 pages)",
     )
-    synth.add_argument("--readers", type=int, metavar="N", help="number of readers (default scales with pages)")
-    synth.add_argument("--days", type=int, default=90, metavar="D", help="days of reading history (default 90)")
+    synth.add_argument(
+        "--readers", type=int, metavar="N", help="number of readers (default scales with pages)"
+    )
+    synth.add_argument(
+        "--days", type=int, default=90, metavar="D", help="days of reading history (default 90)"
+    )
     synth.add_argument(
         "--access-log", action="store_true", help="also write the views as a Combined Log Format access log"
     )

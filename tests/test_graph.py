@@ -67,7 +67,12 @@ def test_blend_mixes_rows_and_keeps_rows_without_navigation():
 
 
 def test_navigation_window_and_fingerprint(tmp_path):
-    views = [("u", "a", 0.0, None), ("u", "c", 60.0, None), ("u", "a", 10_000.0, None), ("u", "b", 10_060, None)]
+    views = [
+        ("u", "a", 0.0, None),
+        ("u", "c", 60.0, None),
+        ("u", "a", 10_000.0, None),
+        ("u", "b", 10_060, None),
+    ]
     with _store(tmp_path, ["a", "b", "c"], [("a", "b", 1.0)], views) as store:
         plain = load_graph(store)
         early = load_graph(store, navigation=Navigation(weight=0.5, until=5_000))

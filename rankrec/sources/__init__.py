@@ -115,9 +115,7 @@ def read_source(path: str | Path, format: str, **options: Any) -> Iterator[Recor
     if format == "access-log":
         from .access_log import read_access_log
 
-        return read_access_log(
-            path, **_pick(given, "encoding", "now", "page_pattern", "anonymous", "tally")
-        )
+        return read_access_log(path, **_pick(given, "encoding", "now", "page_pattern", "anonymous", "tally"))
     from .membership import read_memberships
 
     return read_memberships(path, "team" if format == "teams" else "group", **_pick(given, "encoding"))
