@@ -1,0 +1,259 @@
+"""What the folder readers share: finding page files, page ids, and where a link points.
+
+A page id is the path of its file relative to the wiki folder, with POSIX separators and
+without the page extension (``ops/runbooks/db.md`` -> ``ops/runbooks/db``). A link is
+resolved to a page id, or found to be external, an in-page jump or outside the wiki.
+URL references are resolved per RFC 3986 section 5.2 (:func:`resolve_reference`).
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Collection, Iterable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from urllib.parse import unquote, urljoin, urlsplit
+
+from ..errors import InputError
+from .records import LinkRecord, Origin
+
+PAGE_SUFFIXES = (".md", ".markdown", ".html", ".htm")
+"""Extensions removed from a link path to give a page id (case-insensitive)."""
+
+# Where a link points (the first item of the pair the resolvers return).
+PAGE = "page"  # a wiki page: the second item is its id
+EXTERNAL = "external"  # outside the wiki: counted on the page, not kept
+JUMP = "jump"  # an in-page jump, an empty link or a script: neither a link nor counted
+OUTSIDE = "outside"  # a relative path that climbs above the wiki folder: an InputError
+NOT_A_PAGE = "not-a-page"  # another file of the folder (an image, a PDF): dropped
+
+# RFC 3986 section 3.1: scheme = ALPHA *( ALPHA / DIGIT / "+" / "-" / "." ) followed by ":".
+_SCHEME = re.compile(r"[A-Za-z][A-Za-z0-9+.\-]*:")
+# RFC 3986 appendix B: the regular expression that splits a URI reference into its five parts.
+_URI_PARTS = re.compile(r"^(([^:/?#]+):)?(//([^/?#]*))?([^?#]*)(\?([^#]*))?(#(.*))?")
+
+
+@dataclass(slots=True)
+class FolderFiles:
+    """Page files of a wiki folder (in sorted order) and the other files it holds."""
+
+    pages: list[tuple[str, str]] = field(default_factory=list)  # (relative POSIX path, file name)
+    others: set[str] = field(default_factory=set)  # relative POSIX paths of non-page files
+
+
+def walk_folder(folder: str | os.PathLike[str], suffixes: tuple[str, ...]) -> FolderFiles:
+    """Files below ``folder`` (recursively, hidden folders and files skipped), sorted by path.
+
+    A file is a page when its name ends with one of ``suffixes`` (case-insensitive).
+    The file name given for a page is ``folder`` as given joined with the relative path.
+    """
+    found = FolderFiles()
+    root = os.fspath(folder)
+    for directory, subfolders, files in os.walk(root):
+        subfolders[:] = sorted(name for name in subfolders if not name.startswith("."))
+        relative_dir = os.path.relpath(directory, root)
+        prefix = "" if relative_dir == "." else Path(relative_dir).as_posix() + "/"
+        for name in sorted(files):
+            if name.startswith("."):
+                continue
+            if name.lower().endswith(suffixes):
+                found.pages.append((prefix + name, os.path.join(directory, name)))
+            else:
+                found.others.add(prefix + name)
+    found.pages.sort()
+    return found
+
+
+def page_id_for_path(path: str) -> str:
+    """Page id of a decoded POSIX path relative to the wiki root.
+
+    >>> page_id_for_path("ops/runbooks/db.md"), page_id_for_path("ops/"), page_id_for_path("a.b")
+    ('ops/runbooks/db', 'ops/index', 'a.b')
+    """
+    if path == "" or path.endswith("/"):
+        return path + "index"
+    lowered = path.lower()
+    for suffix in PAGE_SUFFIXES:
+        if lowered.endswith(suffix) and len(path) > len(suffix) and path[-len(suffix) - 1] != "/":
+            return path[: -len(suffix)]
+    return path
+
+
+def default_space(page: str) -> str | None:
+    """The first folder of a page id, or None for a top-level page."""
+    head, slash, _ = page.partition("/")
+    return head if slash else None
+
+
+def has_scheme(url: str) -> bool:
+    """True if ``url`` starts with a URI scheme (``https:``, ``mailto:`` ...)."""
+    return _SCHEME.match(url) is not None
+
+
+def _is_script(url: str) -> bool:
+    return url[:11].lower() == "javascript:"
+
+
+def remove_dot_segments(path: str) -> str:
+    """Remove ``.`` and ``..`` segments as RFC 3986 section 5.2.4 does.
+
+    >>> remove_dot_segments("/a/b/c/./../../g"), remove_dot_segments("mid/content=5/../6")
+    ('/a/g', 'mid/6')
+    """
+    output: list[str] = []
+    while path:
+        if path.startswith("../"):
+            path = path[3:]
+        elif path.startswith(("./", "/./")):
+            path = path[2:]
+        elif path == "/.":
+            path = "/"
+        elif path.startswith("/../") or path == "/..":
+            path = "/" + path[4:]
+            if output:
+                output.pop()
+        elif path in (".", ".."):
+            path = ""
+        else:
+            start = 1 if path.startswith("/") else 0
+            end = path.find("/", start)
+            end = len(path) if end < 0 else end
+            output.append(path[:end])
+            path = path[end:]
+    return "".join(output)
+
+
+def resolve_reference(base: str, reference: str) -> str:
+    """Target URI of ``reference`` against the absolute URI ``base`` (RFC 3986 section 5.2).
+
+    :func:`urllib.parse.urljoin` follows RFC 3986 for every example of its section 5.4
+    except one: it reads ``http:g`` against an ``http`` base as the relative ``g`` (the
+    "backward compatibility" reading the RFC allows), where a strict parser keeps
+    ``http:g``. A reference with a scheme is therefore handled here (section 5.2.2: its
+    own path with dot segments removed) and urljoin does the rest.
+
+    >>> resolve_reference("http://a/b/c/d;p?q", "../g"), resolve_reference("http://a/b/c/d;p?q", "http:g")
+    ('http://a/b/g', 'http:g')
+    """
+    parts = _URI_PARTS.match(reference)
+    if parts is None or parts.group(2) is None or not has_scheme(reference):
+        return urljoin(base, reference)
+    scheme, authority, path, query, fragment = parts.group(2, 3, 5, 6, 8)
+    return scheme + ":" + (authority or "") + remove_dot_segments(path) + (query or "") + (fragment or "")
+
+
+def relative_link_target(page: str, href: str, others: Collection[str] = frozenset()) -> tuple[str, str]:
+    """Where a Markdown link ``href`` on page ``page`` points, as ``(kind, value)``.
+
+    A URL with a scheme or starting ``//`` is EXTERNAL; a bare ``#fragment`` (or an empty
+    link) is a JUMP; anything else is a path relative to the page's folder (``/x`` to the
+    wiki root), percent-decoded, with query and fragment dropped and a page extension
+    removed: a PAGE (value = page id), OUTSIDE if it climbs above the wiki root, or
+    NOT_A_PAGE if it names a file in ``others`` (relative paths of non-page files).
+
+    >>> relative_link_target("ops/runbooks/db", "../net/dns.md#top")
+    ('page', 'ops/net/dns')
+    """
+    href = href.strip()
+    if href == "" or href.startswith("#") or _is_script(href):
+        return JUMP, href
+    if has_scheme(href) or href.startswith("//"):
+        return EXTERNAL, href
+    path = href.split("#", 1)[0].split("?", 1)[0]
+    if path == "":  # only a query: the page itself
+        return PAGE, page
+    segments = [] if path.startswith("/") else page.split("/")[:-1]
+    pieces = path.split("/")
+    last = len(pieces) - 1
+    for number, piece in enumerate(pieces):
+        segment = unquote(piece)  # %2E%2E is a dot segment too (RFC 3986 section 6.2.2.2)
+        if segment == "..":
+            if not segments:
+                return OUTSIDE, href
+            segments.pop()
+        elif segment not in ("", "."):
+            segments.append(segment)
+            continue
+        if number == last:  # a path ending in "/", "." or ".." names a folder
+            segments.append("")
+    relative = "/".join(segments)
+    if relative in others:
+        return NOT_A_PAGE, relative
+    return PAGE, page_id_for_path(relative)
+
+
+def check_base_url(base_url: str) -> str:
+    """``base_url`` ending with ``/``, or ValueError unless it is an absolute http(s) URL."""
+    if not isinstance(base_url, str):
+        raise TypeError(f"base_url must be a string, got {base_url!r}")
+    parts = urlsplit(base_url)
+    if parts.scheme.lower() not in ("http", "https") or not parts.netloc or parts.query or parts.fragment:
+        raise ValueError(
+            f"base_url must be an absolute http(s) URL without query or fragment, got {base_url!r}"
+        )
+    return base_url if base_url.endswith("/") else base_url + "/"
+
+
+def _authority(scheme: str, netloc: str) -> str:
+    netloc = netloc.lower().rpartition("@")[2]
+    default = {"http": ":80", "https": ":443"}.get(scheme)
+    if default and netloc.endswith(default):
+        netloc = netloc[: -len(default)]
+    return netloc
+
+
+def url_link_target(url: str, base_url: str, others: Collection[str] = frozenset()) -> tuple[str, str]:
+    """Where an absolute ``url`` points: a PAGE if it lies under ``base_url``, else EXTERNAL.
+
+    Same host (scheme http or https, default port ignored) and a path under the base
+    URL's path map to a page id (percent-decoded, query and fragment dropped, extension
+    removed); a non-page file of the folder (``others``) is NOT_A_PAGE.
+
+    >>> url_link_target("http://wiki.invalid/ops/db.html?x=1", "http://wiki.invalid/")
+    ('page', 'ops/db')
+    """
+    parts = urlsplit(url)
+    base = urlsplit(base_url)
+    scheme = parts.scheme.lower()
+    path = parts.path or "/"
+    if (
+        scheme not in ("http", "https")
+        or _authority(scheme, parts.netloc) != _authority(base.scheme.lower(), base.netloc)
+        or not path.startswith(base.path)
+    ):
+        return EXTERNAL, url
+    relative = "/".join(unquote(piece) for piece in path[len(base.path) :].split("/"))
+    if relative in others:
+        return NOT_A_PAGE, relative
+    return PAGE, page_id_for_path(relative)
+
+
+def link_records(
+    source: str, file: str, targets: Iterable[tuple[int | None, str]]
+) -> Iterator[LinkRecord | InputError]:
+    """One LinkRecord per distinct target of page ``source`` (first line), self-links as InputErrors."""
+    seen: set[str] = set()
+    for line, target in targets:
+        if target in seen:
+            continue
+        seen.add(target)
+        if target == source:
+            yield InputError(file, line, f"self-link to {target!r} dropped")
+        else:
+            yield LinkRecord(source, target, Origin(file, line))
+
+
+def duplicate_error(file: str, page: str, first_file: str) -> InputError:
+    """The InputError for a second file that would give page id ``page``."""
+    return InputError(file, None, f"page id {page!r} is already taken by {first_file}; file skipped")
+
+
+def folder_error(folder: str | os.PathLike[str], what: str) -> InputError | None:
+    """An InputError if ``folder`` is missing or not a folder, else None."""
+    name = os.fspath(folder)
+    if not os.path.exists(name):
+        return InputError(name, None, f"{what} folder does not exist")
+    if not os.path.isdir(name):
+        return InputError(name, None, f"{what} folder is not a folder")
+    return None

@@ -1,0 +1,223 @@
+"""Reader for a folder of HTML pages (BeautifulSoup, CSS selectors by soupsieve).
+
+Each ``*.html`` / ``*.htm`` file is a page; its id is its path relative to the folder
+without the extension and its URL is the base URL plus that path. ``<a href>`` values are
+resolved per RFC 3986 section 5.2 against ``<base href>`` if present, else the page URL;
+URLs under the base URL map back to page ids, all others are external. Links inside
+elements matching the ``exclude`` selector (navigation, headers, footers) are ignored.
+"""
+
+from __future__ import annotations
+
+import codecs
+import gzip
+import os
+import warnings
+import zlib
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import PurePosixPath
+from urllib.parse import quote
+
+import soupsieve
+from bs4 import BeautifulSoup
+from bs4.dammit import EncodingDetector
+from bs4.exceptions import ParserRejectedMarkup
+
+from ..errors import InputError
+from ._links import (
+    EXTERNAL,
+    PAGE,
+    check_base_url,
+    default_space,
+    duplicate_error,
+    folder_error,
+    has_scheme,
+    link_records,
+    page_id_for_path,
+    resolve_reference,
+    url_link_target,
+    walk_folder,
+)
+from ._text import _open_binary, read_text
+from .records import LinkRecord, Origin, PageRecord
+
+__all__ = ["read_html_folder"]
+
+_SUFFIXES = (".html", ".htm")
+# The standard library's parser, because it is the one through which BeautifulSoup keeps
+# the source line of each tag (its lxml tree builder records none, and every link needs one).
+_PARSER = "html.parser"
+
+
+@dataclass(slots=True)
+class _Parsed:
+    record: PageRecord
+    links: list[tuple[int | None, str]]  # (line, page id)
+
+
+def _text_of(tag) -> str:
+    return " ".join(tag.get_text(" ").split()) if tag is not None else ""
+
+
+def _soup(file: str, encoding: str | None) -> BeautifulSoup | InputError:
+    if encoding is None:
+        try:
+            with _open_binary(file) as stream:  # type: ignore[arg-type]
+                markup: bytes | str = stream.read()
+        except OSError as error:
+            return InputError(file, None, f"cannot read: {error.strerror or error}")
+        except (EOFError, gzip.BadGzipFile, zlib.error) as error:
+            return InputError(file, None, f"compressed stream is damaged or truncated ({error})")
+        markup = _decode(markup)
+    else:
+        try:
+            markup = read_text(file, encoding)
+        except InputError as error:
+            return error
+    try:
+        with warnings.catch_warnings():
+            # e.g. "looks like a file name" or "looks like XML": messy input is normal here
+            warnings.simplefilter("ignore")
+            return BeautifulSoup(markup, _PARSER)
+    except (ParserRejectedMarkup, RecursionError) as error:
+        return InputError(file, None, f"HTML could not be parsed ({error}); page skipped")
+
+
+def _decode(data: bytes) -> str:
+    """Text of an HTML file: byte-order mark, else ``<meta charset>``, else UTF-8, else windows-1252.
+
+    The candidates are bs4's EncodingDetector's; decoding here (rather than in bs4) keeps
+    its log quiet and makes the last resort explicit: UTF-8 with replacement characters.
+    """
+    detector = EncodingDetector(data, is_html=True)
+    for encoding in detector.encodings:
+        try:
+            return detector.markup.decode(encoding)
+        except (UnicodeDecodeError, LookupError):
+            continue
+    return detector.markup.decode("utf-8", errors="replace")
+
+
+def _parse_page(
+    relative: str, file: str, soup: BeautifulSoup, base_url: str, exclude, others: set[str]
+) -> _Parsed:
+    page = page_id_for_path(relative)
+    page_url = base_url + quote(relative, safe="/")
+    title = _text_of(soup.find("title")) or _text_of(soup.find("h1")) or PurePosixPath(relative).stem
+    document_base = page_url
+    base = soup.find("base", href=True)
+    if base is not None:
+        document_base = resolve_reference(page_url, _clean(str(base["href"])))
+        if not has_scheme(document_base):
+            document_base = page_url
+    for element in exclude.select(soup):
+        if not element.decomposed:
+            element.decompose()
+    links: list[tuple[int | None, str]] = []
+    external: set[str] = set()
+    for anchor in soup.find_all("a", href=True):
+        href = _clean(str(anchor["href"]))
+        if href == "" or href.startswith("#") or href[:11].lower() == "javascript:":
+            continue  # an in-page jump or a script, neither a link nor counted
+        kind, value = url_link_target(resolve_reference(document_base, href), base_url, others)
+        if kind == PAGE:
+            links.append((anchor.sourceline, value))
+        elif kind == EXTERNAL:
+            external.add(value.partition("#")[0])
+        # NOT_A_PAGE (an image, a PDF of the folder) is dropped
+    record = PageRecord(
+        page=page,
+        title=title,
+        origin=Origin(file, None),
+        space=default_space(page),
+        url=page_url,
+        external_links=len(external),
+    )
+    return _Parsed(record, links)
+
+
+def _clean(href: str) -> str:
+    """An attribute value as a URL parser reads it: outer whitespace, tabs and newlines removed."""
+    return href.strip(" \t\n\r\f").replace("\t", "").replace("\n", "").replace("\r", "")
+
+
+def read_html_folder(
+    folder: str | os.PathLike[str],
+    *,
+    base_url: str = "http://wiki.invalid/",
+    exclude: str = "nav, header, footer, [role=navigation]",
+    encoding: str | None = None,
+) -> Iterator[PageRecord | LinkRecord | InputError]:
+    """Yield the pages and links of a folder of HTML files, and an InputError per bad record.
+
+    Every PageRecord comes before any LinkRecord. A link from a page to itself (other than
+    a bare ``#fragment``) becomes an InputError; several links from a page to one target
+    give one LinkRecord (weight 1, line of the first); links to other hosts or outside
+    ``base_url`` are counted in ``PageRecord.external_links``.
+
+    Parameters
+    ----------
+    folder : str or path
+        The wiki folder; ``*.html`` / ``*.htm`` files below it are read recursively,
+        hidden folders and files skipped.
+    base_url : str
+        Absolute http(s) URL of the folder; a page's URL is this plus its relative path.
+    exclude : str
+        CSS selector of elements whose links are ignored (empty: none).
+    encoding : str or None
+        Text encoding of the files; None detects it (byte-order mark, ``<meta charset>``).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> wiki = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (wiki / "a.html").write_text('<nav><a href="c.html">c</a></nav><a href="b.html">b</a>')
+    >>> [(type(r).__name__, getattr(r, "target", None)) for r in read_html_folder(wiki)]
+    [('PageRecord', None), ('LinkRecord', 'b')]
+    """
+    base_url = check_base_url(base_url)
+    if not isinstance(exclude, str):
+        raise TypeError(f"exclude must be a CSS selector string, got {exclude!r}")
+    try:
+        selector = soupsieve.compile(exclude.strip() or ":not(*)")
+    except soupsieve.SelectorSyntaxError as error:
+        raise ValueError(
+            f"exclude is not a valid CSS selector: {exclude!r} ({str(error).splitlines()[0]})"
+        ) from None
+    if encoding is not None:
+        try:
+            codecs.lookup(encoding)
+        except (LookupError, TypeError):
+            raise ValueError(f"encoding {encoding!r} is not a known text encoding") from None
+    return _read(folder, base_url, selector, encoding)
+
+
+def _read(
+    folder, base_url: str, selector, encoding: str | None
+) -> Iterator[PageRecord | LinkRecord | InputError]:
+    problem = folder_error(folder, "HTML")
+    if problem is not None:
+        yield problem
+        return
+    files = walk_folder(folder, _SUFFIXES)
+    parsed: list[_Parsed] = []
+    first_file: dict[str, str] = {}
+    for relative, file in files.pages:
+        page = page_id_for_path(relative)
+        if page in first_file:
+            yield duplicate_error(file, page, first_file[page])
+            continue
+        first_file[page] = file
+        soup = _soup(file, encoding)
+        if isinstance(soup, InputError):
+            yield soup
+            continue
+        item = _parse_page(relative, file, soup, base_url, selector, files.others)
+        parsed.append(item)
+        yield item.record
+    if not first_file:
+        yield InputError(os.fspath(folder), None, "folder holds no HTML pages (*.html, *.htm)")
+        return
+    for item in parsed:
+        yield from link_records(item.record.page, item.record.origin.file, item.links)

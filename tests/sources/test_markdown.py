@@ -1,0 +1,250 @@
+"""Reader for a Markdown folder: links per CommonMark, wiki links, front matter, provenance."""
+
+from __future__ import annotations
+
+import tempfile
+from pathlib import Path
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from rankrec.errors import InputError
+from rankrec.sources.markdown import _parse_page, read_markdown_folder
+from rankrec.sources.records import LinkRecord, PageRecord
+
+
+def write(folder: Path, files: dict[str, str | bytes]) -> Path:
+    for name, content in files.items():
+        path = folder / name
+        path.parent.mkdir(parents=True, exist_ok=True)
+        if isinstance(content, bytes):
+            path.write_bytes(content)
+        else:
+            path.write_text(content, encoding="utf-8")
+    return folder
+
+
+def read(folder: Path, files: dict[str, str | bytes]) -> list:
+    return list(read_markdown_folder(write(folder, files)))
+
+
+def link_targets(markdown: str, page: str = "p") -> list[str]:
+    """Page ids the links of one page point to, in document order (before de-duplication)."""
+    parsed = _parse_page(page + ".md", page + ".md", markdown, set())
+    assert not isinstance(parsed, InputError), parsed
+    return [value for _line, _kind, value in parsed.links]
+
+
+# ------------------------------------------------------- CommonMark specification cases
+# Cases from the CommonMark Spec 0.31.2 (spec.commonmark.org), sections 6.3 "Links",
+# 4.7 "Link reference definitions", 6.1 "Code spans", 4.4/4.5 code blocks, 2.4
+# "Backslash escapes", 6.4 "Images", 6.5 "Autolinks". A destination "/uri" is resolved
+# against the wiki root, so it is the page "uri".
+
+
+@pytest.mark.parametrize(
+    ("markdown", "expected"),
+    [
+        ('[link](/uri "title")', ["uri"]),  # 6.3: inline link with title
+        ("[link](</my uri>)", ["my uri"]),  # 6.3: destination in angle brackets may hold spaces
+        ("[link](/my uri)", []),  # 6.3: ...but not without them: not a link
+        ("[a](<b)c>)", ["b)c"]),  # 6.3: angle brackets let a ")" into the destination
+        ("[link](foo(and(bar)))", ["foo(and(bar))"]),  # 6.3: balanced parentheses
+        ("[link](foo\\)\\:)", ["foo):"]),  # 6.3: backslash escapes in the destination
+        ("[link [foo [bar]]](/uri)", ["uri"]),  # 6.3: nested balanced brackets in link text
+        ("[link \\[bar](/uri)", ["uri"]),  # 6.3: escaped bracket in link text
+        ("[foo [bar](/uri)](/uri2)", ["uri"]),  # 6.3: links may not contain links; inner wins
+        ("[![moon](moon.jpg)](/uri)", ["uri"]),  # 6.3: an image inside a link; only the link counts
+        ('[foo](/f&ouml;&ouml; "f&ouml;&ouml;")', ["föö"]),  # 6.3: entities in the destination
+        ("[foo`](/uri)`", []),  # 6.3: the code span binds more tightly than the link
+        ("`[foo](/uri)`", []),  # 6.1: no link inside a code span
+        ("```\n[foo](/uri)\n```", []),  # 4.5: fenced code block
+        ("    [foo](/uri)", []),  # 4.4: indented code block
+        ("\\[not a link](/foo)", []),  # 2.4: backslash escape of "["
+        ('![foo](/url "title")', []),  # 6.4: an image is not a link
+        ("<http://foo.bar.baz>", []),  # 6.5: an autolink is external (counted, not kept)
+        ('[foo][bar]\n\n[bar]: /url "title"', ["url"]),  # 6.3: full reference link
+        ("[foo][BaR]\n\n[bar]: /url", ["url"]),  # 6.3: labels match case-insensitively
+        ("[ẞ]\n\n[SS]: /url", ["url"]),  # 6.3: Unicode case fold, ẞ matches SS
+        ("[foo][]\n\n[foo]: /url", ["url"]),  # 6.3: collapsed reference link
+        ("[foo]\n\n[foo]: /url", ["url"]),  # 6.3: shortcut reference link
+        ("[foo]: /url1\n\n[foo]: /url2\n\n[foo][]", ["url1"]),  # 4.7: the first definition wins
+        ("[foo]\n\n    [foo]: /url", []),  # 4.7: an indented "definition" is code, not a definition
+        ("[foo]: /url\n\n> [foo]", ["url"]),  # 4.7: a definition serves the whole document
+        ("[foo][bar]", []),  # 6.3: undefined label: plain text
+    ],
+)
+def test_commonmark_link_cases(markdown, expected):
+    assert link_targets(markdown) == expected
+
+
+def test_external_links_are_counted_not_kept(tmp_path):
+    # CommonMark Spec 0.31.2, 6.5: autolinks; formats.md section 1: scheme or "//" is external
+    records = read(
+        tmp_path,
+        {
+            "a.md": "<https://halvard.example/x> [m](mailto:lab@halvard.example) [c](//cdn.example/y)\n"
+            "[again](https://halvard.example/x) [b](b.md)\n"
+        },
+    )
+    (page,) = [r for r in records if isinstance(r, PageRecord)]
+    assert page.external_links == 3  # three distinct external URLs
+    assert [r.target for r in records if isinstance(r, LinkRecord)] == ["b"]
+
+
+# ------------------------------------------------------------------------- wiki links
+
+
+def test_wiki_links_resolve_by_id_then_title_case_insensitively(tmp_path):
+    # formats.md section 1 (project contract): [[Target]], [[Target|shown]], [[Target#Section|shown]];
+    # matched to a page id, else a title, case-insensitively; else kept as written.
+    records = read(
+        tmp_path,
+        {
+            "ops/db.md": "# Database Runbook\n",
+            "plan.md": "---\ntitle: Alpha Plan\n---\n",
+            "start.md": (
+                "[[ops/db]]\n"  # id
+                "[[OPS/DB|the database]]\n"  # id, other case, alias
+                "[[alpha plan#Budget|budget]]\n"  # title, other case, section
+                "[[Database runbook]]\n"  # title of ops/db: same target, de-duplicated
+                "[[Nowhere Page]]\n"  # unmatched: as written
+                "`[[ops/hidden]]`\n\n"  # code span: not a link
+                "```\n[[ops/fenced]]\n```\n"  # fenced code: not a link
+                "\\[[ops/escaped]]\n"  # escaped bracket: not a link
+                "[[#Local section]]\n"  # in-page jump
+            ),
+        },
+    )
+    links = [(r.target, r.origin.line) for r in records if isinstance(r, LinkRecord)]
+    assert links == [("ops/db", 1), ("plan", 3), ("Nowhere Page", 5)]
+
+
+# ----------------------------------------------------------------------- front matter
+
+
+def test_front_matter_fields_and_defaults(tmp_path):
+    # formats.md section 1 (project contract): title/space/tags/groups/archived and their defaults
+    records = read(
+        tmp_path,
+        {
+            "ops/db.md": "---\ntitle: DB runbook\ntags: [db, oncall]\ngroups: [ops-team]\narchived: yes\n"
+            "owner: nobody\n---\n# Ignored heading\n",
+            "ops/net.md": "---\nspace: network\ntags: dns\n...\nSetext title\n============\n",
+            "top.md": "no heading here\n",
+        },
+    )
+    pages = {r.page: r for r in records if isinstance(r, PageRecord)}
+    db, net, top = pages["ops/db"], pages["ops/net"], pages["top"]
+    assert (db.title, db.space, db.tags, db.groups, db.archived) == (
+        "DB runbook",
+        "ops",
+        ("db", "oncall"),
+        ("ops-team",),
+        True,  # YAML 1.1 bool: "yes" is true
+    )
+    assert (net.title, net.space, net.tags, net.archived) == ("Setext title", "network", ("dns",), False)
+    assert (top.title, top.space, top.groups) == ("top", None, ())  # file stem; no folder; everyone
+    assert db.origin.line == 1 and top.origin.line is None
+
+
+@pytest.mark.parametrize(
+    ("front", "line", "words"),
+    [
+        ("title: ok\ntags: 5\n", 3, "tags must be a list of strings"),
+        ("title: ok\ngroups: [a, 7]\n", 3, "groups must be a list of strings"),
+        ("title: 2024\n", 2, "title must be a string"),  # YAML 1.1 int: unquoted 2024 is a number
+        ("archived: maybe\n", 2, "archived must be true or false"),
+        ("title: ok\nspace: x: y\n", 3, "not valid YAML"),  # YAML: mapping value in a plain scalar
+        ("- a\n- b\n", 2, "must be a mapping"),
+        ("when: 2026-13-45\n", 2, "not valid YAML"),  # YAML 1.1 timestamp with month 13
+    ],
+)
+def test_bad_front_matter_skips_page_with_line(tmp_path, front, line, words):
+    records = read(tmp_path, {"bad.md": "---\n" + front + "---\n[x](other.md)\n", "other.md": "x\n"})
+    errors = [r for r in records if isinstance(r, InputError)]
+    assert len(errors) == 1 and words in errors[0].reason, errors
+    assert errors[0].line == line and errors[0].file.endswith("bad.md")
+    assert [r.page for r in records if isinstance(r, PageRecord)] == ["other"]
+    assert not [r for r in records if isinstance(r, LinkRecord)]  # the bad page's links are skipped
+
+
+def test_unclosed_front_matter_is_an_error(tmp_path):
+    records = read(tmp_path, {"a.md": "---\ntitle: x\n[b](b.md)\n", "b.md": "b\n"})
+    assert [(type(r).__name__, getattr(r, "line", None)) for r in records] == [
+        ("InputError", 1),
+        ("PageRecord", None),
+    ]
+
+
+# --------------------------------------------------------------- provenance and order
+
+
+def test_links_carry_line_pages_come_first_and_duplicates_collapse(tmp_path):
+    records = read(
+        tmp_path,
+        {
+            "a.md": "---\ntitle: A\n---\nintro\nsee [b](b.md)\nand [b again](./b.md#x) and [c](c.md)\n\n"
+            "| col |\n| --- |\n| [d](d.md) |\n\n[me](a.md)\n",
+            "b.md": "[a](a.md)\n",
+        },
+    )
+    kinds = [type(r).__name__ for r in records]
+    assert kinds.index("LinkRecord") > max(i for i, k in enumerate(kinds) if k == "PageRecord")
+    links = [(r.source, r.target, r.origin.line, r.weight) for r in records if isinstance(r, LinkRecord)]
+    assert links == [("a", "b", 5, 1.0), ("a", "c", 6, 1.0), ("a", "d", 10, 1.0), ("b", "a", 1, 1.0)]
+    (self_link,) = [r for r in records if isinstance(r, InputError)]
+    assert self_link.line == 12 and "self-link to 'a' dropped" in self_link.reason
+
+
+def test_folder_rules(tmp_path):
+    # formats.md section 1: *.md and *.markdown recursively, hidden folders skipped
+    records = read(
+        tmp_path,
+        {
+            "a.markdown": "![pic](img/plot.png) [plot](img/plot.png) [spec](files/spec.pdf) [up](../up.md)\n",
+            "a.md": "duplicate id\n",
+            ".git/x.md": "hidden\n",
+            "img/plot.png": b"\x89PNG",
+            "deep/er/page.markdown": "x\n",
+            "latin.md": "caf\xe9\n".encode("latin-1"),
+        },
+    )
+    pages = sorted(r.page for r in records if isinstance(r, PageRecord))
+    assert pages == ["a", "deep/er/page"]
+    errors = sorted(str(e) for e in records if isinstance(e, InputError))
+    assert any("a.md" in e and "already taken" in e for e in errors)  # a.markdown sorts first
+    assert any("latin.md:1" in e and "not valid utf-8" in e for e in errors)
+    assert any("leaves the wiki folder" in e for e in errors)
+    # the image is not a link and the link to the existing file img/plot.png is dropped;
+    # files/spec.pdf is not in the folder, so it stays a link to a (missing) page
+    assert [r.target for r in records if isinstance(r, LinkRecord)] == ["files/spec.pdf"]
+
+
+def test_missing_or_empty_folder_gives_one_error(tmp_path):
+    assert [str(e) for e in read_markdown_folder(tmp_path / "nope")] == [
+        f"{tmp_path / 'nope'}: Markdown folder does not exist"
+    ]
+    (tmp_path / "notes.txt").write_text("x")
+    (only,) = list(read_markdown_folder(tmp_path))
+    assert isinstance(only, InputError) and "no Markdown pages" in only.reason
+
+
+def test_bad_arguments_are_refused_eagerly():
+    with pytest.raises(ValueError, match="'no-such-codec'"):
+        read_markdown_folder(".", encoding="no-such-codec")
+
+
+# --------------------------------------------------------------------- never raises
+
+_PIECES = list("[]()<>`#*-_:|\\/.!%\"' \n\tab1é") + ["---\n", "[[", "]]", "```\n", "    ", "](", "title: "]
+_MARKDOWNISH = st.lists(st.sampled_from(_PIECES), max_size=80).map("".join)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(content=st.one_of(_MARKDOWNISH, st.text(), st.binary()))
+def test_any_file_content_gives_records_or_input_errors(content):
+    with tempfile.TemporaryDirectory() as folder:
+        records = read(Path(folder), {"sub/page.md": content, "other.md": "[[page]] [x](sub/page.md)\n"})
+    assert records and all(isinstance(r, PageRecord | LinkRecord | InputError) for r in records)
