@@ -11,6 +11,7 @@ import argparse
 import os
 import sys
 from collections.abc import Sequence
+from dataclasses import asdict
 from pathlib import Path
 
 from . import __version__
@@ -92,6 +93,7 @@ def _cmd_synth(args: argparse.Namespace) -> int:
             layout=args.layout,
             readers=args.readers,
             days=args.days,
+            views_per_reader=args.views_per_reader,
             access_log=args.access_log,
             progress=progress,
         )
@@ -101,7 +103,8 @@ def _cmd_synth(args: argparse.Namespace) -> int:
     finally:
         for bar in bars.values():
             bar.close()
-    print_mapping({k: v for k, v in vars(summary).items() if k != "files"}, "table")
+    shown = {key: value for key, value in asdict(summary).items() if key not in ("files", "out_dir")}
+    print_mapping(shown, "table")
     print(f"written to {args.out}")
     return 0
 
@@ -190,6 +193,12 @@ def build_parser() -> argparse.ArgumentParser:
     )
     synth.add_argument(
         "--days", type=int, default=90, metavar="D", help="days of reading history (default 90)"
+    )
+    synth.add_argument(
+        "--views-per-reader",
+        type=float,
+        metavar="V",
+        help="typical views per reader (default scales with pages)",
     )
     synth.add_argument(
         "--access-log", action="store_true", help="also write the views as a Combined Log Format access log"

@@ -1,0 +1,104 @@
+"""Import throughput: views per second from an access log, pages per second from a Markdown folder.
+
+Run: `python -m tests.bench.bench_import [--log-views N] [--markdown-pages N] [--runs R]`
+(`make bench` runs it with the defaults: an access log of at least 1,000,000 lines made by
+`rankrec synth`, a Markdown folder of 5,000 pages). Each import runs in a child process so that
+its peak memory (ru_maxrss) is its own; the median of the runs is printed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+_CHILD = """
+import json, resource, sys, time
+from rankrec.importer import import_sources
+from rankrec.store import Store
+path, format, wiki = sys.argv[1:4]
+started = time.perf_counter()
+with Store(wiki) as store:
+    (report,) = import_sources(store, [(path, format)])
+seconds = time.perf_counter() - started
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+print(json.dumps({"seconds": seconds, "records": report.records, "errors": report.error_count,
+                  "dropped": report.dropped, "peak_bytes": peak}))
+"""
+
+
+def _import_once(path: Path, format: str, workdir: Path, run: int) -> dict:
+    wiki = workdir / f"bench-{format}-{run}.db"
+    done = subprocess.run(
+        [sys.executable, "-c", _CHILD, str(path), format, str(wiki)],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    for suffix in ("", "-wal", "-shm"):
+        Path(f"{wiki}{suffix}").unlink(missing_ok=True)
+    return json.loads(done.stdout)
+
+
+def _measure(path: Path, format: str, workdir: Path, runs: int, unit: str) -> dict:
+    results = [_import_once(path, format, workdir, run) for run in range(runs)]
+    seconds = statistics.median(result["seconds"] for result in results)
+    count = results[0]["records"].get(unit, 0)
+    return {
+        "format": format,
+        unit: count,
+        "median_seconds": round(seconds, 2),
+        f"{unit}_per_second": round(count / seconds),
+        "peak_mib": round(max(result["peak_bytes"] for result in results) / 2**20),
+        "bad_records": results[0]["errors"],
+        "dropped": results[0]["dropped"],
+    }
+
+
+def main(argv: list[str]) -> None:
+    parser = argparse.ArgumentParser(description=__doc__)
+    parser.add_argument("--log-views", type=int, default=1_000_000, help="views in the synthetic access log")
+    parser.add_argument("--markdown-pages", type=int, default=5_000, help="pages in the Markdown folder")
+    parser.add_argument("--runs", type=int, default=3, help="runs per measurement (median printed)")
+    args = parser.parse_args(argv)
+    from rankrec.synth import synthesize
+
+    with tempfile.TemporaryDirectory(prefix="rankrec-bench-") as scratch:
+        workdir = Path(scratch)
+        readers = 5_000
+        started = time.perf_counter()
+        log = synthesize(
+            workdir / "log-wiki",
+            pages=50_000,
+            seed=1,
+            layout="tables",
+            readers=readers,
+            views_per_reader=args.log_views / readers,
+            access_log=True,
+        )
+        print(
+            f"synth: {log.access_log_lines:,} access-log lines, {log.views:,} views "
+            f"in {time.perf_counter() - started:.1f} s"
+        )
+        started = time.perf_counter()
+        pages = synthesize(workdir / "md-wiki", pages=args.markdown_pages, seed=1, layout="markdown")
+        print(f"synth: {pages.pages:,} Markdown pages in {time.perf_counter() - started:.1f} s")
+        rows = [
+            _measure(workdir / "log-wiki" / "access.log", "access-log", workdir, args.runs, "views"),
+            _measure(workdir / "log-wiki" / "views.csv", "views", workdir, args.runs, "views"),
+            _measure(workdir / "md-wiki" / "pages", "markdown", workdir, args.runs, "pages"),
+        ]
+        lines = {"access-log": log.access_log_lines, "views": log.views}
+        for row in rows:
+            if row["format"] in lines:
+                row["lines_per_second"] = round(lines[row["format"]] / row["median_seconds"])
+            print(json.dumps(row))
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])
