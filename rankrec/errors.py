@@ -65,6 +65,10 @@ class UnknownTeam(UnknownName):
     kind = "team"
 
 
+class UnknownTopic(UnknownName):
+    kind = "topic"
+
+
 class StaleData(RankrecError):
     """A cached artefact (basis, index) built from other data than the one in hand."""
 
