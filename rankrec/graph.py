@@ -41,10 +41,14 @@ class Navigation:
 
 @dataclass(frozen=True, eq=False)
 class WikiGraph:
-    """Pages ``0..n-1`` (``pages[i]`` is a page id) and ``adjacency[i, j]``: weight of i -> j."""
+    """Pages ``0..n-1`` (``pages[i]`` is a page id) and ``adjacency[i, j]``: weight of i -> j.
+
+    ``row_ids[i]`` is page i's row id in the store (ascending), for joining store queries.
+    """
 
     pages: np.ndarray
     adjacency: sp.csr_matrix
+    row_ids: np.ndarray
     navigation: Navigation | None = None
     fingerprint: str = field(default="")
 
@@ -132,7 +136,7 @@ def blend_navigation(adjacency: sp.csr_matrix, counts: sp.csr_matrix, weight: fl
     return mixed
 
 
-def _dense_numbers(row_ids: np.ndarray, wanted: np.ndarray) -> np.ndarray:
+def dense_numbers(row_ids: np.ndarray, wanted: np.ndarray) -> np.ndarray:
     """Positions of ``wanted`` in the sorted ``row_ids``; -1 where absent."""
     if row_ids.size == 0:
         return np.full(wanted.size, -1, dtype=np.int64)
@@ -158,13 +162,14 @@ def load_graph(store: Store, *, navigation: Navigation | None = None) -> WikiGra
         if navigation.until is not None:
             window &= times < navigation.until
         users, viewed, times = users[window], viewed[window], times[window]
-        dense = _dense_numbers(row_ids, viewed)
+        dense = dense_numbers(row_ids, viewed)
         counts = navigation_counts(users, dense, times, size, gap=navigation.gap)
         adjacency = blend_navigation(adjacency, counts, navigation.weight)
     page_array = np.array(pages, dtype=object)
     return WikiGraph(
         pages=page_array,
         adjacency=adjacency,
+        row_ids=row_ids,
         navigation=navigation,
         fingerprint=_fingerprint(page_array, adjacency, navigation),
     )
