@@ -92,3 +92,26 @@ class StaleBasis(StaleData):
 
 class StaleIndex(StaleData):
     what = "index"
+
+
+class GroupTooSmall(RankrecError):
+    """Too few distinct active readers in a team to publish its reading profile.
+
+    The message gives the team and the counts only, never a member.
+
+    >>> str(GroupTooSmall("ops", 2, 5))
+    "team 'ops' has 2 distinct active readers; at least 5 are needed"
+    """
+
+    def __init__(self, team: str | None, readers: int, minimum: int) -> None:
+        self.team = team
+        self.readers = readers
+        self.minimum = minimum
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        who = "the group" if self.team is None else f"team {self.team!r}"
+        return f"{who} has {self.readers} distinct active readers; at least {self.minimum} are needed"
+
+    def __reduce__(self):
+        return (type(self), (self.team, self.readers, self.minimum))
