@@ -18,7 +18,7 @@ demo: $(STAMP)
 
 test: $(STAMP)
 	$(BIN)/python -m ruff check rankrec api tests
-	$(BIN)/python -m pytest --cov --cov-report=term:skip-covered --cov-fail-under=75 rankrec api tests
+	$(BIN)/python -m pytest --cov --cov-report=term:skip-covered --cov-fail-under=85 rankrec api tests
 
 bench: $(STAMP)
 	$(BIN)/python -m tests.bench
