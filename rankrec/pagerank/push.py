@@ -19,7 +19,7 @@ def push(
     seeds: object,
     *,
     damping: float = 0.85,
-    epsilon: float = 1e-7,
+    epsilon: float = 1e-6,
     max_pushes: int = 50_000_000,
 ) -> PushResult:
     """Approximate strongly-preferential personalised PageRank of a seed distribution.
