@@ -9,7 +9,6 @@ one for the line at hand.
 
 from __future__ import annotations
 
-import codecs
 import csv
 import json
 import math
@@ -38,17 +37,6 @@ Row = tuple[int, list[str]]
 
 class FieldError(ValueError):
     """A field that does not hold what its column needs; ``str(error)`` is the reason."""
-
-
-def check_encoding(encoding: str) -> str:
-    """Validate a reader's ``encoding`` argument eagerly (ValueError/TypeError naming it)."""
-    if not isinstance(encoding, str):
-        raise TypeError(f"encoding must be a string, got {encoding!r}")
-    try:
-        codecs.lookup(encoding)
-    except LookupError:
-        raise ValueError(f"encoding {encoding!r} is not a known text encoding") from None
-    return encoding
 
 
 def check_now(now: float | None) -> float | None:

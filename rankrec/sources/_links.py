@@ -249,6 +249,35 @@ def duplicate_error(file: str, page: str, first_file: str) -> InputError:
     return InputError(file, None, f"page id {page!r} is already taken by {first_file}; file skipped")
 
 
+def folder_pages(
+    folder: str | os.PathLike[str], suffixes: tuple[str, ...], what: str
+) -> tuple[FolderFiles | None, Iterator[tuple[str, str] | InputError]]:
+    """The files of a wiki folder and its pages as ``(relative path, file)``, one per page id.
+
+    Yields an InputError instead of a page for a missing folder, for a second file giving a
+    page id already taken, and (at the end) for a folder without pages.
+    """
+    problem = folder_error(folder, what)
+    if problem is not None:
+        return None, iter([problem])
+    files = walk_folder(folder, suffixes)
+
+    def pages() -> Iterator[tuple[str, str] | InputError]:
+        first_file: dict[str, str] = {}
+        for relative, file in files.pages:
+            page = page_id_for_path(relative)
+            if page in first_file:
+                yield duplicate_error(file, page, first_file[page])
+                continue
+            first_file[page] = file
+            yield relative, file
+        if not first_file:
+            patterns = ", ".join(f"*{suffix}" for suffix in suffixes)
+            yield InputError(os.fspath(folder), None, f"folder holds no {what} pages ({patterns})")
+
+    return files, pages()
+
+
 def folder_error(folder: str | os.PathLike[str], what: str) -> InputError | None:
     """An InputError if ``folder`` is missing or not a folder, else None."""
     name = os.fspath(folder)

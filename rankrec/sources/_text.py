@@ -25,6 +25,21 @@ _BOMS = (
 )
 
 
+def check_encoding(encoding: str) -> str:
+    """Validate a reader's ``encoding`` argument eagerly (ValueError/TypeError naming it).
+
+    >>> check_encoding("latin-1")
+    'latin-1'
+    """
+    if not isinstance(encoding, str):
+        raise TypeError(f"encoding must be a string, got {encoding!r}")
+    try:
+        codecs.lookup(encoding)
+    except LookupError:
+        raise ValueError(f"encoding {encoding!r} is not a known text encoding") from None
+    return encoding
+
+
 def _open_binary(path: Path) -> io.BufferedIOBase:
     with open(path, "rb") as probe:
         magic = probe.read(2)

@@ -17,8 +17,8 @@ from pathlib import Path
 from urllib.parse import unquote, urlsplit
 
 from ..errors import InputError
-from ._fields import CLOCK_SKEW, FieldError, check_encoding, check_now
-from ._text import iter_lines
+from ._fields import CLOCK_SKEW, FieldError, check_now
+from ._text import check_encoding, iter_lines
 from .records import Origin, ViewRecord
 
 DEFAULT_PAGE_PATTERN = r"^/wiki/(?P<page>[^?#]+?)(?:\.html?)?/?$"

@@ -9,7 +9,8 @@ from collections.abc import Iterator
 from pathlib import Path
 
 from ..errors import InputError
-from ._fields import FieldError, check_encoding, column_count_reason, iter_rows, parse_id, parse_weight
+from ._fields import FieldError, column_count_reason, iter_rows, parse_id, parse_weight
+from ._text import check_encoding
 from .records import LinkRecord, Origin, PageRecord
 
 HEADER_PAIRS = frozenset({("source", "target"), ("from", "to"), ("src", "dst")})

@@ -9,7 +9,6 @@ elements matching the ``exclude`` selector (navigation, headers, footers) are ig
 
 from __future__ import annotations
 
-import codecs
 import gzip
 import os
 import warnings
@@ -30,16 +29,14 @@ from ._links import (
     PAGE,
     check_base_url,
     default_space,
-    duplicate_error,
-    folder_error,
+    folder_pages,
     has_scheme,
     link_records,
     page_id_for_path,
     resolve_reference,
     url_link_target,
-    walk_folder,
 )
-from ._text import _open_binary, read_text
+from ._text import _open_binary, check_encoding, read_text
 from .records import LinkRecord, Origin, PageRecord
 
 __all__ = ["read_html_folder"]
@@ -186,29 +183,20 @@ def read_html_folder(
             f"exclude is not a valid CSS selector: {exclude!r} ({str(error).splitlines()[0]})"
         ) from None
     if encoding is not None:
-        try:
-            codecs.lookup(encoding)
-        except (LookupError, TypeError):
-            raise ValueError(f"encoding {encoding!r} is not a known text encoding") from None
+        check_encoding(encoding)
     return _read(folder, base_url, selector, encoding)
 
 
 def _read(
     folder, base_url: str, selector, encoding: str | None
 ) -> Iterator[PageRecord | LinkRecord | InputError]:
-    problem = folder_error(folder, "HTML")
-    if problem is not None:
-        yield problem
-        return
-    files = walk_folder(folder, _SUFFIXES)
+    files, pages = folder_pages(folder, _SUFFIXES, "HTML")
     parsed: list[_Parsed] = []
-    first_file: dict[str, str] = {}
-    for relative, file in files.pages:
-        page = page_id_for_path(relative)
-        if page in first_file:
-            yield duplicate_error(file, page, first_file[page])
+    for entry in pages:
+        if isinstance(entry, InputError):
+            yield entry
             continue
-        first_file[page] = file
+        relative, file = entry
         soup = _soup(file, encoding)
         if isinstance(soup, InputError):
             yield soup
@@ -216,8 +204,5 @@ def _read(
         item = _parse_page(relative, file, soup, base_url, selector, files.others)
         parsed.append(item)
         yield item.record
-    if not first_file:
-        yield InputError(os.fspath(folder), None, "folder holds no HTML pages (*.html, *.htm)")
-        return
     for item in parsed:
         yield from link_records(item.record.page, item.record.origin.file, item.links)

@@ -9,7 +9,6 @@ rule of the same parser. YAML front matter gives title, space, tags, groups, arc
 
 from __future__ import annotations
 
-import codecs
 import os
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -28,14 +27,12 @@ from ._links import (
     OUTSIDE,
     PAGE,
     default_space,
-    duplicate_error,
-    folder_error,
+    folder_pages,
     link_records,
     page_id_for_path,
     relative_link_target,
-    walk_folder,
 )
-from ._text import read_text
+from ._text import check_encoding, read_text
 from .records import LinkRecord, Origin, PageRecord
 
 __all__ = ["read_markdown_folder"]
@@ -306,29 +303,18 @@ def read_markdown_folder(
     >>> [type(r).__name__ for r in read_markdown_folder(wiki)]
     ['PageRecord', 'LinkRecord']
     """
-    if not isinstance(encoding, str):
-        raise TypeError(f"encoding must be a string, got {encoding!r}")
-    try:
-        codecs.lookup(encoding)
-    except LookupError:
-        raise ValueError(f"encoding {encoding!r} is not a known text encoding") from None
+    check_encoding(encoding)
     return _read(folder, encoding)
 
 
 def _read(folder: str | os.PathLike[str], encoding: str) -> Iterator[PageRecord | LinkRecord | InputError]:
-    problem = folder_error(folder, "Markdown")
-    if problem is not None:
-        yield problem
-        return
-    files = walk_folder(folder, _SUFFIXES)
+    files, pages = folder_pages(folder, _SUFFIXES, "Markdown")
     parsed: list[_Parsed] = []
-    first_file: dict[str, str] = {}
-    for relative, file in files.pages:
-        page = page_id_for_path(relative)
-        if page in first_file:
-            yield duplicate_error(file, page, first_file[page])
+    for entry in pages:
+        if isinstance(entry, InputError):
+            yield entry
             continue
-        first_file[page] = file
+        relative, file = entry
         try:
             text = read_text(file, encoding)
         except InputError as error:
@@ -341,8 +327,7 @@ def _read(folder: str | os.PathLike[str], encoding: str) -> Iterator[PageRecord 
         parsed.append(result)
         yield result.record
         yield from result.errors
-    if not first_file:
-        yield InputError(os.fspath(folder), None, "folder holds no Markdown pages (*.md, *.markdown)")
+    if not parsed:
         return
 
     resolve = _wiki_resolver([item.record for item in parsed])

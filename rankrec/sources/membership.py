@@ -6,7 +6,8 @@ from collections.abc import Iterator
 from pathlib import Path
 
 from ..errors import InputError
-from ._fields import FieldError, check_encoding, column_count_reason, iter_rows, parse_id
+from ._fields import FieldError, column_count_reason, iter_rows, parse_id
+from ._text import check_encoding
 from .records import MembershipRecord, Origin
 
 KINDS = ("team", "group")

@@ -8,13 +8,13 @@ from pathlib import Path
 from ..errors import InputError
 from ._fields import (
     FieldError,
-    check_encoding,
     iter_mappings,
     parse_bool,
     parse_id,
     parse_list,
     parse_optional_text,
 )
+from ._text import check_encoding
 from .records import Origin, PageRecord
 
 OPTIONAL_COLUMNS = ("title", "space", "tags", "groups", "archived", "url")

@@ -9,13 +9,13 @@ from pathlib import Path
 from ..errors import InputError
 from ._fields import (
     FieldError,
-    check_encoding,
     check_now,
     iter_mappings,
     parse_dwell,
     parse_id,
     parse_timestamp,
 )
+from ._text import check_encoding
 from .records import Origin, ViewRecord
 
 REQUIRED_COLUMNS = ("user", "page", "timestamp")

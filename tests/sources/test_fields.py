@@ -14,7 +14,6 @@ from rankrec.errors import InputError
 from rankrec.sources._fields import (
     CLOCK_SKEW,
     FieldError,
-    check_encoding,
     find_columns,
     iter_rows,
     parse_bool,
@@ -23,6 +22,7 @@ from rankrec.sources._fields import (
     parse_timestamp,
     parse_weight,
 )
+from rankrec.sources._text import check_encoding
 
 NOW = 1_800_000_000.0  # 2027-01-15: a fixed "now" so that no test depends on the clock
 
