@@ -1,0 +1,415 @@
+"""Lists worth showing: related pages, a reader's personal list, a team's landing ordering.
+
+Every list is filtered *before* it is cut to ``k``: the seed itself, archived pages, pages the
+audience may not see (a page with access groups is visible to a reader in any of them; a page
+without groups to everyone; with no reader, only pages visible to everyone; for a team, only
+pages every member may see) and, on request, pages the seed links to and pages the reader read
+recently. So a list is full whenever enough eligible pages exist: when the personalised
+scores run out, the remaining places go to eligible pages by global PageRank (and say so).
+
+Scores are personalised PageRank values, ranked after an optional lift ``score / global^β``
+(β from the index's manifest unless given) so that site-wide hubs do not top every list.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .._validation import check_count, check_fraction, check_real
+from ..errors import InputError
+from ..explain import FROM_RESTART, NO_LINK, VIA_PAGE, contributions, restart_scale
+from ..index import Index
+from ..pagerank import push
+from ..ranking import top_k
+from .audience import Reader, Team
+
+READ_BY_MINIMUM = 3  # "read by N of your team" only from 3 readers up (small counts are not shown)
+
+
+@dataclass(frozen=True)
+class Item:
+    """One recommended page: its id, title, space, ranking score, PageRank score and why it is here."""
+
+    page: str
+    title: str
+    space: str | None
+    score: float
+    pagerank: float
+    reason: str
+
+
+@dataclass(frozen=True)
+class Recommendations:
+    """A list, best first. ``error_bound`` bounds the L1 error of the PageRank scores (None: unknown);
+    ``eligible`` counts the pages that passed the filters."""
+
+    kind: str
+    subject: str
+    items: tuple[Item, ...]
+    error_bound: float | None
+    eligible: int
+    seconds: float
+
+    def rows(self) -> list[dict]:
+        """Items as plain dicts (rank, page, title, space, score, reason) for output."""
+        return [
+            {
+                "rank": rank,
+                "page": item.page,
+                "title": item.title,
+                "space": item.space,
+                "score": item.score,
+                "reason": item.reason,
+            }
+            for rank, item in enumerate(self.items, start=1)
+        ]
+
+
+# -- choosing ---------------------------------------------------------------------------------------
+def _lift(index: Index, lift: float | None) -> float:
+    if lift is None:
+        return float(index.manifest.lift)
+    if check_real("lift", lift) < 0:
+        raise ValueError(f"lift must not be negative; got {lift!r}")
+    return float(lift)
+
+
+def _ranked(index: Index, pages: np.ndarray, values: np.ndarray, lift: float) -> np.ndarray:
+    return values / np.power(np.asarray(index.global_vector)[pages], lift) if lift else values.astype(float)
+
+
+def _per_space(index: Index, ordered: np.ndarray, k: int, per_space: int | None, taken: dict) -> list[int]:
+    chosen = []
+    for page in ordered.tolist():
+        if len(chosen) == k:
+            break
+        if per_space is not None:
+            code = int(index.space[page])
+            if taken.get(code, 0) >= per_space:
+                continue
+            taken[code] = taken.get(code, 0) + 1
+        chosen.append(page)
+    return chosen
+
+
+def _select(
+    index: Index, vector: np.ndarray, eligible: np.ndarray, k: int, lift: float, per_space: int | None
+) -> np.ndarray:
+    """Best ``k`` eligible pages: positive scores first, then eligible pages by global PageRank."""
+    positive = np.flatnonzero(eligible & (vector > 0))
+    scores = _ranked(index, positive, vector[positive], lift)
+    taken: dict = {}
+    want = k
+    while True:
+        ordered = positive[top_k(scores, min(want, positive.size))]
+        chosen = _per_space(index, ordered, k, per_space, dict(taken))
+        if len(chosen) == k or want >= positive.size:
+            break
+        want *= 4
+    _per_space(index, np.array(chosen, dtype=np.int64), k, per_space, taken)
+    if len(chosen) < k:
+        rest = np.flatnonzero(eligible & ~(vector > 0))
+        want = k
+        while True:
+            ordered = rest[top_k(np.asarray(index.global_vector)[rest], min(want, rest.size))]
+            extra = _per_space(index, ordered, k - len(chosen), per_space, dict(taken))
+            if len(extra) == k - len(chosen) or want >= rest.size:
+                break
+            want *= 4
+        chosen += extra
+    return np.array(chosen, dtype=np.int64)
+
+
+def _eligible(
+    index: Index,
+    visible: np.ndarray,
+    *,
+    seed: int | None = None,
+    linked: bool = False,
+    read: np.ndarray | None = None,
+) -> np.ndarray:
+    mask = visible & ~np.asarray(index.archived)
+    if seed is not None:
+        mask[seed] = False
+        if linked:
+            mask[index.links_from(seed)] = False
+    if read is not None:
+        mask[read] = False
+    return mask
+
+
+# -- explaining -------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class _Audience:
+    visible: np.ndarray
+    read: np.ndarray | None = None  # pages the reader has in their profile
+    read_by: np.ndarray | None = None  # team members who read each page
+    personal: bool = False
+    seed: int | None = None
+
+
+def _reason(index: Index, page: int, kind: int, via: int, space: int, audience: _Audience) -> str:
+    if audience.read_by is not None and audience.read_by[page] >= READ_BY_MINIMUM:
+        return f"read by {int(audience.read_by[page])} of your team"
+    if kind == NO_LINK:
+        return "among the most linked-to pages of the wiki"
+    if kind == FROM_RESTART and audience.personal:
+        return "you read it before"
+    if kind == VIA_PAGE and via >= 0 and audience.visible[via]:
+        if via == audience.seed:
+            return f"linked from {index.titles[via]}"
+        if audience.read is not None and audience.read[via]:
+            return f"you read {index.titles[via]}, which links here"
+        return f"via {index.titles[via]}"
+    if space >= 0:
+        return f"mostly reached from pages in space {index.space_names[space]}"
+    if audience.seed is not None:
+        return f"closely connected to {index.titles[audience.seed]}"
+    return "close to what you read" if audience.personal else "close to what your team reads"
+
+
+def _items(
+    index: Index, chosen: np.ndarray, vector_values: np.ndarray, lift: float, explained, audience: _Audience
+) -> tuple[Item, ...]:
+    scores = _ranked(index, chosen, vector_values, lift)
+    return tuple(
+        Item(
+            page=index.pages[page],
+            title=index.titles[page],
+            space=index.space_of(page),
+            score=float(score),
+            pagerank=float(value),
+            reason=_reason(index, page, int(kind), int(via), int(space), audience),
+        )
+        for page, score, value, kind, via, space in zip(
+            chosen.tolist(),
+            scores,
+            vector_values,
+            explained.kind,
+            explained.via,
+            explained.space,
+            strict=True,
+        )
+    )
+
+
+def _explain_full(index: Index, vector: np.ndarray, chosen: np.ndarray, restart: np.ndarray | None):
+    damping = index.manifest.damping
+    restart_part = None
+    if restart is not None:
+        restart_part = restart_scale(vector, np.asarray(index.transition.dangling), damping) * restart[chosen]
+    explained = contributions(
+        index.transition.backward,
+        lambda pages: vector[pages],
+        chosen,
+        np.asarray(index.space),
+        damping=damping,
+        restart_part=restart_part,
+    )
+    unscored = vector[chosen] <= 0
+    explained.kind[unscored] = NO_LINK
+    return explained
+
+
+# -- the three lists --------------------------------------------------------------------------------
+def related(
+    index: Index,
+    page: str,
+    *,
+    reader: Reader | None = None,
+    k: int = 10,
+    exclude_linked: bool = False,
+    exclude_read: bool = False,
+    blend: float = 0.0,
+    lift: float | None = None,
+    per_space: int | None = None,
+) -> Recommendations:
+    """Pages related to ``page``, for ``reader`` (their access groups; None: public pages only).
+
+    ``blend`` in [0, 1] mixes the reader's personal vector in: ``(1 − w)·x_page + w·x_reader``
+    ("related, for you"). ``exclude_read`` drops pages the reader read recently.
+    """
+    started = time.perf_counter()
+    check_count("k", k)
+    check_fraction("blend", blend)
+    if per_space is not None:
+        check_count("per_space", per_space)
+    lift = _lift(index, lift)
+    seed = index.page_number(page)
+    visible = index.visible(None if reader is None else reader.groups)
+    read = reader.recent if (exclude_read and reader is not None) else None
+    eligible = _eligible(index, visible, seed=seed, linked=exclude_linked, read=read)
+    audience = _Audience(visible=visible, read=None if reader is None else reader.restart > 0, seed=seed)
+    if blend == 0 and lift == index.manifest.lift:
+        found = index.seed_candidates(seed)
+        keep = eligible[found["pages"]]
+        ordered = np.flatnonzero(keep)
+        positions = _per_space_positions(index, found["pages"], ordered, k, per_space)
+        if positions.size == k or positions.size == int(eligible.sum()):
+            chosen = found["pages"][positions].astype(np.int64)
+            explained = _Stored(found, positions)
+            items = _items(index, chosen, found["scores"][positions].astype(float), lift, explained, audience)
+            return Recommendations(
+                "related", page, items, None, int(eligible.sum()), time.perf_counter() - started
+            )
+    vector = index.seed_vector(seed)
+    restart = None
+    if blend > 0 and reader is not None and reader.restart.sum() > 0:
+        personal = _personal_vector(index, reader.restart)
+        vector = (1.0 - blend) * vector + blend * personal.vector
+        restart = blend * reader.restart
+        restart[seed] = 0.0
+    chosen = _select(index, vector, eligible, k, lift, per_space)
+    explained = _explain_full(index, vector, chosen, restart)
+    items = _items(index, chosen, vector[chosen], lift, explained, audience)
+    return Recommendations("related", page, items, None, int(eligible.sum()), time.perf_counter() - started)
+
+
+@dataclass(frozen=True)
+class _Stored:
+    via: np.ndarray
+    space: np.ndarray
+    kind: np.ndarray
+
+    def __init__(self, found: dict, positions: np.ndarray) -> None:
+        object.__setattr__(self, "via", found["via"][positions])
+        object.__setattr__(self, "space", found["space"][positions])
+        object.__setattr__(self, "kind", found["kind"][positions])
+
+
+def _per_space_positions(
+    index: Index, pages: np.ndarray, ordered: np.ndarray, k: int, per_space: int | None
+) -> np.ndarray:
+    if per_space is None:
+        return ordered[:k]
+    taken: dict = {}
+    keep = []
+    for position in ordered.tolist():
+        code = int(index.space[pages[position]])
+        if taken.get(code, 0) < per_space:
+            taken[code] = taken.get(code, 0) + 1
+            keep.append(position)
+            if len(keep) == k:
+                break
+    return np.array(keep, dtype=np.int64)
+
+
+@dataclass(frozen=True)
+class _Personal:
+    vector: np.ndarray
+    error_bound: float
+
+
+def _personal_vector(index: Index, restart: np.ndarray) -> _Personal:
+    """Personalised PageRank of a restart distribution: the index's basis plus push for the rest."""
+    if index.basis is not None:
+        found = index.basis.personalized(index.transition, restart)
+        return _Personal(found.vector, found.error_bound)
+    pages = np.flatnonzero(restart)
+    result = push(
+        index.transition,
+        dict(zip(pages.tolist(), restart[pages].tolist(), strict=True)),
+        damping=index.manifest.damping,
+        epsilon=1e-7,
+    )
+    vector = np.zeros(index.size)
+    vector[np.asarray(result.vector.coords[0])] = result.vector.data
+    total = vector.sum()
+    # p ≤ x and ‖x − p‖₁ = ρ, so ‖x − p/‖p‖₁‖₁ ≤ 2ρ (x sums to one)
+    return _Personal(vector / total, min(2.0, 2.0 * result.residual_mass / total))
+
+
+def recommend(
+    index: Index,
+    reader: Reader,
+    *,
+    k: int = 10,
+    exclude_read: bool = True,
+    lift: float | None = None,
+    per_space: int | None = None,
+) -> Recommendations:
+    """A reader's personal list from their reading profile (basis combination plus push).
+
+    ``error_bound`` is the L1 bound of the personal vector (so every item's ``pagerank`` is within
+    it of the exact personalised PageRank). A reader without reading history gets the global
+    PageRank order of what they may see.
+    """
+    started = time.perf_counter()
+    check_count("k", k)
+    if per_space is not None:
+        check_count("per_space", per_space)
+    lift = _lift(index, lift)
+    visible = index.visible(reader.groups)
+    eligible = _eligible(index, visible, read=reader.recent if exclude_read else None)
+    if reader.restart.sum() > 0:
+        personal = _personal_vector(index, reader.restart)
+        restart = reader.restart
+    else:
+        personal = _Personal(np.zeros(index.size), 0.0)
+        restart = None
+    chosen = _select(index, personal.vector, eligible, k, lift, per_space)
+    explained = _explain_full(index, personal.vector, chosen, restart)
+    audience = _Audience(visible=visible, read=reader.restart > 0, personal=True)
+    items = _items(index, chosen, personal.vector[chosen], lift, explained, audience)
+    return Recommendations(
+        "personal",
+        reader.user,
+        items,
+        personal.error_bound,
+        int(eligible.sum()),
+        time.perf_counter() - started,
+    )
+
+
+def landing(
+    index: Index, team: Team, *, k: int = 20, lift: float | None = None, per_space: int | None = None
+) -> Recommendations:
+    """A team's landing ordering: only pages every member may see; no output names a member.
+
+    ``team`` comes from :func:`rankrec.recommend.team_from_store`, which already refused a team with
+    too few distinct active readers (GroupTooSmall).
+    """
+    started = time.perf_counter()
+    check_count("k", k)
+    if per_space is not None:
+        check_count("per_space", per_space)
+    lift = _lift(index, lift)
+    eligible = _eligible(index, team.visible)
+    personal = _personal_vector(index, team.restart)
+    chosen = _select(index, personal.vector, eligible, k, lift, per_space)
+    explained = _explain_full(index, personal.vector, chosen, team.restart)
+    audience = _Audience(visible=team.visible, read_by=team.read_by)
+    items = _items(index, chosen, personal.vector[chosen], lift, explained, audience)
+    return Recommendations(
+        "landing", team.name, items, personal.error_bound, int(eligible.sum()), time.perf_counter() - started
+    )
+
+
+# -- comparing with an earlier export ---------------------------------------------------------------
+def read_previous(path: str | Path) -> tuple[str, ...]:
+    """Pages of an earlier JSON export (a list of objects with ``page``; rows marked "left" skipped)."""
+    try:
+        rows = json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, ValueError) as error:
+        raise InputError(str(path), None, f"not a readable JSON export: {error}") from None
+    if not isinstance(rows, list) or not all(isinstance(row, dict) and "page" in row for row in rows):
+        raise InputError(str(path), None, "expected a JSON list of objects with a 'page' field")
+    return tuple(str(row["page"]) for row in rows if row.get("change") != "left")
+
+
+def changes_since(result: Recommendations, previous) -> tuple[frozenset[str], tuple[str, ...]]:
+    """Pages that entered the list (not in ``previous``) and pages that left it (in previous order).
+
+    >>> items = tuple(Item(p, p, None, 1.0, 1.0, "") for p in ("a", "b"))
+    >>> entered, left = changes_since(Recommendations("landing", "t", items, None, 2, 0.0), ["b", "c"])
+    >>> sorted(entered), left
+    (['a'], ('c',))
+    """
+    before = list(dict.fromkeys(previous))
+    now = [item.page for item in result.items]
+    return frozenset(set(now) - set(before)), tuple(page for page in before if page not in set(now))
