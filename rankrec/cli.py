@@ -92,6 +92,123 @@ def _cmd_rank(args: argparse.Namespace) -> int:
     return 0
 
 
+# -- build, related, recommend, landing ------------------------------------------------------------
+def _cmd_build(args: argparse.Namespace) -> int:
+    from .index import build_index, load_index
+    from .store import Store
+
+    bars: dict = {}
+
+    def progress(step: str, done: int, total: int) -> None:
+        bar = bars.get(step)
+        if bar is None:
+            bar = bars[step] = _progress_bar(step, "it", total)
+        bar.update(done - bar.n)
+
+    try:
+        with Store(args.wiki, create=False) as store:
+            build_index(
+                store,
+                args.index,
+                damping=args.damping,
+                tol=args.tol,
+                topics=args.topics,
+                hubs=args.hubs,
+                k_related=args.k_related,
+                lift=args.lift,
+                view_share=args.view_share,
+                workers=args.workers,
+                progress=progress,
+            )
+    finally:
+        for bar in bars.values():
+            bar.close()
+    manifest = load_index(args.index).manifest
+    print_mapping({**manifest.counts, "seconds": manifest.seconds}, "table")
+    print(f"index written to {args.index}")
+    return 0
+
+
+def _open_index(args: argparse.Namespace, *, need_store: bool):
+    """The index, and its store (checked current) from --wiki or the manifest (None: not needed, absent)."""
+    from .index import load_index
+    from .store import Store
+
+    index = load_index(args.index)
+    wiki = args.wiki or index.manifest.store
+    if args.wiki is None and not need_store and not Path(wiki).is_file():
+        return index, None
+    store = Store(wiki, create=False)
+    try:
+        index.check_current(store)
+    except BaseException:
+        store.close()
+        raise
+    return index, store
+
+
+def _print_list(result, format: str) -> None:
+    print_rows(result.rows(), format)
+
+
+def _cmd_related(args: argparse.Namespace) -> int:
+    from .recommend import reader_from_store, related
+
+    index, store = _open_index(args, need_store=args.viewer is not None)
+    try:
+        reader = None if args.viewer is None else reader_from_store(store, index, args.viewer)
+        result = related(
+            index, args.page, reader=reader, k=args.k, exclude_linked=args.exclude_linked,
+            exclude_read=args.exclude_read, blend=args.blend, lift=args.lift, per_space=args.per_space,
+        )
+    finally:
+        if store is not None:
+            store.close()
+    _print_list(result, args.format)
+    return 0
+
+
+def _cmd_recommend(args: argparse.Namespace) -> int:
+    from .recommend import reader_from_store, recommend
+
+    index, store = _open_index(args, need_store=True)
+    with store:
+        reader = reader_from_store(store, index, args.user)
+        result = recommend(
+            index, reader, k=args.k, exclude_read=not args.include_read, lift=args.lift,
+            per_space=args.per_space,
+        )
+    _print_list(result, args.format)
+    return 0
+
+
+def _cmd_landing(args: argparse.Namespace) -> int:
+    from .recommend import changes_since, landing, read_previous, team_from_store
+
+    index, store = _open_index(args, need_store=True)
+    with store:
+        team = team_from_store(store, index, args.team, min_readers=args.min_readers)
+        result = landing(index, team, k=args.k, lift=args.lift, per_space=args.per_space)
+    if args.since is None:
+        _print_list(result, args.format)
+        return 0
+    entered, left = changes_since(result, read_previous(args.since))
+    rows = [{**row, "change": "entered" if row["page"] in entered else ""} for row in result.rows()]
+    if args.format in ("json", "csv"):
+        rows += [
+            {"rank": None, "page": page, "title": None, "space": None, "score": None, "reason": None,
+             "change": "left"}
+            for page in left
+        ]
+        print_rows(rows, args.format)
+        return 0
+    print_rows(rows, args.format)
+    if left:
+        gap = "\n" if args.format == "md" else ""
+        print(f"{gap}left the list since the last export: " + ", ".join(left))
+    return 0
+
+
 # -- synth ----------------------------------------------------------------------------------------
 def _cmd_synth(args: argparse.Namespace) -> int:
     from .synth import synthesize
@@ -214,6 +331,92 @@ def build_parser() -> argparse.ArgumentParser:
     rank.add_argument("--damping", type=float, default=0.85, help="probability of following a link (0.85)")
     rank.add_argument("--format", default="table", choices=("table", "json", "csv"), help="output format")
     rank.set_defaults(run=_cmd_rank)
+
+    index_help = "the index folder (written by `rankrec build`)"
+    wiki_default = "the wiki store (default: the one the index was built from)"
+    build = commands.add_parser(
+        "build",
+        help="compute and publish the recommendation index of a wiki store",
+        description=(
+            "Compute global PageRank, a basis of topic and hub vectors and every page's related list, "
+            "and publish them as one folder (atomically: a failed build leaves the previous index)."
+        ),
+    )
+    build.add_argument("--wiki", required=True, metavar="WIKI.db", help="the wiki store")
+    build.add_argument("--index", required=True, metavar="DIR", help="the index folder to (re)place")
+    build.add_argument("--damping", type=float, default=0.85, help="probability of following a link (0.85)")
+    build.add_argument("--tol", type=float, default=1e-6, help="power-iteration tolerance, L1 (1e-6)")
+    build.add_argument(
+        "--topics", default="spaces", metavar="spaces|tags|none|text:K", help="topic vectors (default spaces)"
+    )
+    build.add_argument("--hubs", type=int, default=64, metavar="N", help="most-viewed pages as basis vectors")
+    build.add_argument(
+        "--k-related", type=int, default=50, metavar="K", help="candidates kept per page (default 50)"
+    )
+    build.add_argument(
+        "--lift", type=float, default=0.5, metavar="B", help="rank by score / global^B (default 0.5)"
+    )
+    build.add_argument(
+        "--view-share",
+        type=float,
+        metavar="S",
+        help="precompute only the most-viewed pages carrying this share of views (default: every page)",
+    )
+    build.add_argument("--workers", type=int, default=1, metavar="N", help="processes (default 1)")
+    build.set_defaults(run=_cmd_build)
+
+    def list_options(command, k: int) -> None:
+        command.add_argument("--index", required=True, metavar="DIR", help=index_help)
+        command.add_argument("--wiki", metavar="WIKI.db", help=wiki_default)
+        command.add_argument("-k", type=int, default=k, help=f"how many pages (default {k})")
+        command.add_argument("--lift", type=float, metavar="B", help="lift exponent (default: the index's)")
+        command.add_argument("--per-space", type=int, metavar="M", help="at most M pages from one space")
+        command.add_argument(
+            "--format", default="table", choices=("table", "json", "csv", "md"), help="output format"
+        )
+
+    rel = commands.add_parser(
+        "related",
+        help="pages related to a page",
+        description="Without --viewer only pages visible to everyone are listed.",
+    )
+    rel.add_argument("page", metavar="PAGE", help="page id")
+    list_options(rel, 10)
+    rel.add_argument("--viewer", metavar="USER", help="apply this user's access groups and reading history")
+    rel.add_argument("--exclude-linked", action="store_true", help="leave out pages PAGE links to")
+    rel.add_argument(
+        "--exclude-read", action="store_true", help="leave out pages the viewer read in the last 30 days"
+    )
+    rel.add_argument(
+        "--blend", type=float, default=0.0, metavar="W", help="mix in the viewer's profile with weight W"
+    )
+    rel.set_defaults(run=_cmd_related)
+
+    rec = commands.add_parser("recommend", help="a reader's personal list")
+    rec.add_argument("user", metavar="USER", help="user id")
+    list_options(rec, 10)
+    rec.add_argument(
+        "--include-read", action="store_true", help="keep pages the user read in the last 30 days"
+    )
+    rec.set_defaults(run=_cmd_recommend)
+
+    land = commands.add_parser(
+        "landing",
+        help="a team's landing ordering",
+        description=(
+            "Only pages every member may see; refused for teams with too few distinct active readers. "
+            "No output names a member."
+        ),
+    )
+    land.add_argument("team", metavar="TEAM", help="team name")
+    list_options(land, 20)
+    land.add_argument(
+        "--since", metavar="PREVIOUS.json", help="mark what entered or left since this earlier JSON export"
+    )
+    land.add_argument(
+        "--min-readers", type=int, default=5, metavar="N", help="fewest distinct active readers (default 5)"
+    )
+    land.set_defaults(run=_cmd_landing)
 
     synth = commands.add_parser(
         "synth",

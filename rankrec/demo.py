@@ -63,3 +63,44 @@ def run_demo(workdir: Path, out: TextIO) -> None:
     out.write(f"Imported the invented demo wiki into {wiki}\n\n")
     with Store(wiki, create=False) as store:
         print_mapping(wiki_stats(store, worst=5), "table", out)
+        show_lists(store, workdir / "index", out)
+
+
+def _demo_choices(store) -> tuple[list[str], str, str]:
+    """Two much-read pages of different spaces, the busiest reader, the largest team (ties by name)."""
+    pages = store.connection.execute(
+        "SELECT page, space FROM views JOIN pages ON pages.id = page_id WHERE archived = 0 "
+        "AND NOT EXISTS (SELECT 1 FROM page_groups WHERE page_groups.page_id = pages.id) "
+        "GROUP BY pages.id ORDER BY count(*) DESC, page"
+    ).fetchall()
+    first = pages[0]
+    second = next((row for row in pages if row[1] != first[1]), pages[1])
+    reader = store.scalar(
+        "SELECT user FROM views JOIN users ON users.id = user_id "
+        "GROUP BY user_id ORDER BY count(*) DESC, user"
+    )
+    team = store.scalar(
+        "SELECT name FROM memberships WHERE kind = 'team' GROUP BY name ORDER BY count(*) DESC, name"
+    )
+    return [first[0], second[0]], reader, team
+
+
+def show_lists(store, folder: Path, out: TextIO) -> None:
+    """Build the index into ``folder`` and print related pages, a personal list and a landing ordering."""
+    from ._output import print_rows
+    from .index import build_index, load_index
+    from .recommend import landing, reader_from_store, recommend, related, team_from_store
+
+    build_index(store, folder)
+    index = load_index(folder)
+    pages, user, team = _demo_choices(store)
+    for page in pages:
+        out.write(f"\nRelated to {page} (pages visible to everyone):\n")
+        print_rows(related(index, page, k=5).rows(), "table", out)
+    reader = reader_from_store(store, index, user)
+    personal = recommend(index, reader, k=5)
+    out.write(f"\nPersonal list for reader {user} (error bound {personal.error_bound:.1e}, L1):\n")
+    print_rows(personal.rows(), "table", out)
+    out.write(f"\nLanding ordering for team {team} (only pages every member may see):\n")
+    print_rows(landing(index, team_from_store(store, index, team), k=8).rows(), "table", out)
+    out.write(f"\nThe index is in {folder} (try `rankrec related PAGE --index {folder}`).\n")
