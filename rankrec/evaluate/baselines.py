@@ -123,8 +123,15 @@ def _lists_matrix(lists: np.ndarray, size: int) -> sp.csr_array:
     return matrix
 
 
-def _fill_from_order(lists: np.ndarray, order: np.ndarray, excluded: sp.csr_array) -> np.ndarray:
-    """Fill each row's empty tail slots with the first pages of ``order`` it neither excludes nor lists."""
+def _fill_from_orders(
+    lists: np.ndarray, orders: np.ndarray, group: np.ndarray, excluded: sp.csr_array
+) -> np.ndarray:
+    """Fill each row's empty tail slots from its group's page order, skipping pages it excludes or lists.
+
+    ``orders`` is (groups, depth), best first, ``-1`` padded; ``group[row]`` picks a row's order (``-1``:
+    none). Among the first ``need + blocked`` pages of an order at most ``blocked`` are blocked, so a row
+    never needs to look deeper than that.
+    """
     lists = lists.copy()
     queries, k = lists.shape
     filled = (lists >= 0).sum(axis=1)
@@ -133,18 +140,18 @@ def _fill_from_order(lists: np.ndarray, order: np.ndarray, excluded: sp.csr_arra
     blocked.sum_duplicates()
     blocked.sort_indices()
     blocked_keys = _keys(blocked)
-    width = np.minimum(need + np.diff(blocked.indptr), order.size)  # enough candidates for every row
-    todo = np.flatnonzero(need > 0)
+    width = np.minimum(need + np.diff(blocked.indptr), orders.shape[1])
+    todo = np.flatnonzero((need > 0) & (group >= 0))
     todo = todo[np.argsort(width[todo], kind="stable")]
     start = 0
     while start < todo.size:
         ahead = width[todo[start:start + _CHUNK_ELEMENTS]]  # ascending
-        rows = np.arange(1, ahead.size + 1)
-        fits = int(np.count_nonzero(rows * np.maximum(ahead, 1) <= _CHUNK_ELEMENTS))
+        fits = int(np.count_nonzero(np.arange(1, ahead.size + 1) * np.maximum(ahead, 1) <= _CHUNK_ELEMENTS))
         chunk = todo[start:start + max(1, fits)]
         span = int(width[chunk].max())
-        candidates = np.broadcast_to(order[:span], (chunk.size, span))
-        free = ~_isin_sorted(chunk[:, None] * excluded.shape[1] + candidates, blocked_keys)
+        candidates = orders[group[chunk], :span]
+        cells = chunk[:, None] * excluded.shape[1] + candidates
+        free = (candidates >= 0) & ~_isin_sorted(cells, blocked_keys)
         rank = np.cumsum(free, axis=1) - 1
         take = free & (rank < need[chunk, None])
         row_index, column_index = np.nonzero(take)
@@ -153,6 +160,11 @@ def _fill_from_order(lists: np.ndarray, order: np.ndarray, excluded: sp.csr_arra
         ]
         start += chunk.size
     return lists
+
+
+def _fill_from_order(lists: np.ndarray, order: np.ndarray, excluded: sp.csr_array) -> np.ndarray:
+    """:func:`_fill_from_orders` with one page order for every row."""
+    return _fill_from_orders(lists, order[None, :], np.zeros(lists.shape[0], dtype=np.int64), excluded)
 
 
 def _global_order(scores: np.ndarray) -> np.ndarray:
@@ -336,13 +348,13 @@ class TeamMostRead:
                 f"teams must give a code >= -1 for every user code up to {highest!r}; got shape "
                 f"{teams.shape!r}, minimum {teams.min(initial=0)!r}"
             )
-        by_team = team_counts(split.train, teams)
-        query_team = teams[split.queries.users]
-        known = np.flatnonzero(query_team >= 0)
-        picked = sp.csr_array((np.ones(known.size), (known, query_team[known])),
-                              shape=(len(split.queries), by_team.shape[0]))
         excluded = excluded_pages(split)
-        lists = _from_scores(sp.csr_array(picked @ by_team), excluded, k)
+        # rank each team's pages once, then take each query's first pages it does not exclude
+        by_team = team_counts(split.train, teams)
+        depth = min(split.size, k + int(np.diff(excluded.indptr).max(initial=0)))
+        orders = _from_scores(by_team, sp.csr_array(by_team.shape), depth)
+        empty = np.full((len(split.queries), k), -1, dtype=np.int64)
+        lists = _fill_from_orders(empty, orders, teams[split.queries.users], excluded)
         return _fill_from_order(lists, _global_order(training_counts(split.train).astype(float)), excluded)
 
 
