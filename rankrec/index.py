@@ -337,6 +337,7 @@ def _report(progress: Progress | None, step: str, done: int, total: int) -> None
 def _write_related(staging, chosen, method, damping, tol, epsilon, lift, k, workers, progress) -> None:
     size = int(np.load(staging / "archived.npy", mmap_mode="r").size)
     batch = 64 if method == "power" else 512
+    batch = max(1, min(batch, -(-chosen.size // (4 * workers))))  # several batches per worker
     batches = [chosen[first : first + batch] for first in range(0, chosen.size, batch)]
     shape = (chosen.size, k)
     arrays = {

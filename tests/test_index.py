@@ -1,0 +1,286 @@
+"""The published index: contents, exact related lists, first-request pages, staleness, crash safety."""
+
+from __future__ import annotations
+
+import json
+import mmap
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from rankrec.errors import StaleIndex, UnknownPage
+from rankrec.graph import load_graph
+from rankrec.index import build_index, load_index
+from rankrec.pagerank import solve_exact
+from rankrec.sources.records import Origin, PageRecord
+from rankrec.store import Store
+
+DAY = 86_400.0
+
+
+def make_wiki(
+    path,
+    *,
+    pages: int = 60,
+    seed: int = 0,
+    density: float = 0.06,
+    spaces: int = 3,
+    groups: int = 2,
+    restricted: float = 0.25,
+    archived: float = 0.1,
+    users: int = 12,
+    teams: int = 2,
+    views: int = 15,
+) -> Path:
+    """A random wiki store: pages in spaces, some archived or restricted, readers with views, teams."""
+    rng = np.random.default_rng(seed)
+    origin = Origin("test")
+    names = [f"s{i % spaces}/page-{i}" for i in range(pages)]
+    group_names = [f"g{g}" for g in range(groups)]
+    with Store(path) as store, store.transaction():
+        for i, name in enumerate(names):
+            chosen = ()
+            if groups and rng.random() < restricted:
+                chosen = tuple(sorted(set(rng.choice(group_names, size=rng.integers(1, groups + 1)).tolist())))
+            store.put_page(
+                PageRecord(
+                    name, f"Title {i}", origin, space=f"s{i % spaces}", groups=chosen,
+                    archived=bool(rng.random() < archived), tags=(f"t{i % 2}",),
+                )
+            )
+        dense = rng.random((pages, pages)) < density
+        np.fill_diagonal(dense, False)
+        sources, targets = np.nonzero(dense)
+        store.put_links(
+            (names[s], names[t], float(rng.integers(1, 3)))
+            for s, t in zip(sources.tolist(), targets.tolist(), strict=True)
+        )
+        rows = []
+        for u in range(users):
+            for _ in range(views):
+                rows.append((f"user{u:02d}", names[int(rng.integers(pages))], float(rng.integers(0, 60)) * DAY,
+                             None))
+        store.put_views(rows)
+        memberships = [("team", f"team{u % teams}", f"user{u:02d}") for u in range(users)]
+        memberships += [
+            ("group", group_names[int(rng.integers(groups))], f"user{u:02d}")
+            for u in range(users) if groups and rng.random() < 0.6
+        ]
+        store.put_memberships(memberships)
+        store.log_import("test", "generated", pages, 0)
+    return Path(path)
+
+
+@pytest.fixture(scope="module")
+def built(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("index")
+    wiki = make_wiki(folder / "wiki.db")
+    with Store(wiki) as store:
+        build_index(store, folder / "index", hubs=5, k_related=20, lift=0.5, tol=1e-10)
+        graph = load_graph(store)
+    return folder, graph, load_index(folder / "index")
+
+
+def test_manifest_records_what_the_index_was_built_from(built):
+    folder, graph, index = built
+    manifest = index.manifest
+    assert manifest.fingerprint == graph.fingerprint
+    assert (manifest.damping, manifest.tol, manifest.lift, manifest.k_related) == (0.85, 1e-10, 0.5, 20)
+    assert manifest.counts["pages"] == graph.size == index.size
+    assert manifest.counts["links"] == graph.adjacency.nnz
+    assert manifest.store == str((folder / "wiki.db").resolve())
+    assert {"rankrec", "numpy", "scipy", "scikit-learn"} <= set(manifest.versions)
+    assert manifest.counts["precomputed"] == graph.size
+
+
+def _mapped(array) -> bool:
+    """True when the array's memory is a file mapping (walking the chain of views)."""
+    while array is not None:
+        if isinstance(array, np.memmap | mmap.mmap):
+            return True
+        array = getattr(array, "base", None)
+    return False
+
+
+def test_arrays_are_memory_mapped(built):
+    _, _, index = built
+    assert _mapped(index.archived) and _mapped(index.global_vector) and _mapped(index.related["pages"])
+    for matrix in (index.transition.forward, index.transition.backward, index.group_pages):
+        assert _mapped(matrix.indices) and _mapped(matrix.indptr) and _mapped(matrix.data)
+    assert _mapped(index.basis.vectors) and _mapped(index.pages.blob)
+
+
+def test_page_table_matches_the_store(built):
+    folder, graph, index = built
+    with Store(folder / "wiki.db") as store:
+        rows = store.connection.execute(
+            "SELECT page, title, space, archived FROM pages WHERE present = 1 ORDER BY id"
+        ).fetchall()
+        groups = dict(store.connection.execute(
+            "SELECT page, group_concat(name) FROM page_groups JOIN pages ON id = page_id GROUP BY page"
+        ).fetchall())
+    for number, (page, title, space, archived) in enumerate(rows):
+        assert index.page_number(page) == number
+        assert (index.pages[number], index.titles[number], index.space_of(number)) == (page, title, space)
+        assert bool(index.archived[number]) == bool(archived)
+        assert index.public[number] == (page not in groups)
+
+
+def test_global_vector_matches_a_direct_solve(built):
+    # Reference: LU solve of the PageRank linear system (scipy spsolve inside solve_exact).
+    _, graph, index = built
+    exact = solve_exact(graph.adjacency, damping=0.85).vectors
+    assert np.abs(np.asarray(index.global_vector) - exact).sum() < 1e-7
+
+
+def _exact_top(graph, index, seed, k, lift):
+    restart = np.zeros(graph.size)
+    restart[seed] = 1.0
+    exact = solve_exact(graph.adjacency, restart, damping=0.85).vectors
+    ranked = exact / np.power(np.asarray(index.global_vector), lift)
+    ranked[seed] = -np.inf
+    ranked[np.asarray(index.archived)] = -np.inf
+    ranked[exact <= 1e-15] = -np.inf
+    order = np.lexsort((np.arange(graph.size), -ranked))
+    return order[np.isfinite(ranked[order])][:k], exact, ranked
+
+
+def test_precomputed_lists_are_the_exact_top_candidates(built):
+    # Each list is the top-k of the exact personalised PageRank (direct sparse solve), lifted by
+    # global^0.5, with the page itself and archived pages removed; compared where scores are apart.
+    _, graph, index = built
+    for seed in range(0, graph.size, 7):
+        expected, exact, ranked = _exact_top(graph, index, seed, 20, 0.5)
+        found = index.seed_candidates(seed)
+        assert np.allclose(found["scores"], exact[found["pages"]], rtol=1e-5, atol=1e-9)
+        gaps = np.abs(np.diff(ranked[expected])) > 1e-6
+        agree = found["pages"][: expected.size] == expected
+        assert np.all(agree[:-1][gaps] | ~gaps) and agree[0]
+
+
+def test_push_built_lists_agree_with_power_built_ones(tmp_path, built):
+    folder, graph, index = built
+    with Store(folder / "wiki.db") as store:
+        pushed = load_index(
+            build_index(store, tmp_path / "pushed", hubs=0, topics="spaces", k_related=20, method="push",
+                        epsilon=1e-9)
+        )
+    for seed in range(0, graph.size, 5):
+        a, b = index.seed_candidates(seed), pushed.seed_candidates(seed)
+        assert a["pages"][:5].tolist() == b["pages"][:5].tolist()
+        assert np.allclose(a["scores"], b["scores"], atol=1e-6)
+
+
+def test_share_of_views_precomputes_the_most_viewed_pages(tmp_path, built):
+    folder, graph, index = built
+    with Store(folder / "wiki.db") as store:
+        partial = load_index(build_index(store, tmp_path / "partial", hubs=2, k_related=20, view_share=0.5))
+        counts = np.zeros(graph.size)
+        for page_id, count in store.connection.execute("SELECT page_id, count(*) FROM views GROUP BY page_id"):
+            counts[np.searchsorted(graph.row_ids, page_id)] = count
+    chosen = np.flatnonzero(np.asarray(partial.related["row"]) >= 0)
+    assert counts[chosen].sum() >= 0.5 * counts.sum()
+    assert counts[chosen].min() >= counts[np.setdiff1d(np.arange(graph.size), chosen)].max()
+    assert partial.manifest.counts["precomputed"] == chosen.size < graph.size
+    missing = int(np.setdiff1d(np.arange(graph.size), chosen)[0])
+    first = partial.seed_candidates(missing)  # computed now by push, then cached
+    assert partial.seed_candidates(missing) is first
+    assert first["pages"][:5].tolist() == index.seed_candidates(missing)["pages"][:5].tolist()
+
+
+def test_workers_give_the_same_lists(tmp_path, built):
+    folder, _, index = built
+    with Store(folder / "wiki.db") as store:
+        parallel = load_index(build_index(store, tmp_path / "parallel", hubs=5, k_related=20, tol=1e-10,
+                                          method="push", epsilon=1e-8, workers=2))
+        serial = load_index(build_index(store, tmp_path / "serial", hubs=5, k_related=20, tol=1e-10,
+                                        method="push", epsilon=1e-8, workers=1))
+    for name in ("pages", "scores", "via", "space", "kind"):
+        assert np.array_equal(np.asarray(parallel.related[name]), np.asarray(serial.related[name]))
+
+
+def test_unknown_page_names_the_closest(built):
+    _, _, index = built
+    with pytest.raises(UnknownPage) as caught:
+        index.page_number("s1/page_10")
+    assert "s1/page-10" in caught.value.suggestions
+
+
+def test_stale_format_and_fingerprint_are_refused(tmp_path):
+    wiki = make_wiki(tmp_path / "wiki.db", pages=30, seed=4)
+    with Store(wiki) as store:
+        folder = build_index(store, tmp_path / "index", hubs=2)
+        index = load_index(tmp_path / "index")
+        index.check_current(store)  # nothing imported since: fine
+        store.put_links([("s0/page-0", "s1/page-1", 1.0), ("s1/page-1", "s2/page-29", 1.0)])
+        store.log_import("more", "edges", 2, 0)
+        with pytest.raises(StaleIndex) as caught:
+            index.check_current(store)
+        graph = load_graph(store)
+    assert index.manifest.fingerprint in str(caught.value) and graph.fingerprint in str(caught.value)
+    with pytest.raises(StaleIndex):
+        load_index(tmp_path / "index", graph=graph)
+    manifest = json.loads((folder / "manifest.json").read_text())
+    (folder / "manifest.json").write_text(json.dumps({**manifest, "format_version": 99}))
+    with pytest.raises(StaleIndex, match="index format 99"):
+        load_index(tmp_path / "index")
+
+
+_CRASH = """
+import os, sys
+import numpy as np
+from rankrec.index import build_index
+from rankrec.store import Store
+limit, written = int(sys.argv[3]), [0]
+real_save = np.save
+def save(*args, **kwargs):
+    if written[0] >= limit:
+        os._exit(3)  # a crash: no cleanup, no exception handlers
+    written[0] += 1
+    return real_save(*args, **kwargs)
+np.save = save
+with Store(sys.argv[1]) as store:
+    build_index(store, sys.argv[2], hubs=2)
+"""
+
+
+def _snapshot(folder: Path) -> dict:
+    return {str(p.relative_to(folder)): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+@pytest.mark.parametrize("how", ["exception", "process killed"])
+def test_an_interrupted_build_leaves_the_old_index(tmp_path, monkeypatch, how):
+    wiki = make_wiki(tmp_path / "wiki.db", pages=40, seed=2)
+    with Store(wiki) as store:
+        build_index(store, tmp_path / "index", hubs=2)
+        before = load_index(tmp_path / "index").manifest.fingerprint
+        files = _snapshot(tmp_path / "index")
+        arrays = sum(name.endswith(".npy") for name in files)
+        store.put_links([("s0/page-0", "s2/page-5", 1.0)])  # the next build sees another graph
+        store.log_import("more", "edges", 1, 0)
+    half = arrays // 2
+    if how == "exception":
+        import rankrec.index as module
+
+        real_save, written = np.save, [0]
+
+        def failing_save(*args, **kwargs):
+            if written[0] >= half:
+                raise OSError("disk full (simulated)")
+            written[0] += 1
+            return real_save(*args, **kwargs)
+
+        monkeypatch.setattr(module.np, "save", failing_save)
+        with Store(wiki) as store, pytest.raises(OSError, match="simulated"):
+            build_index(store, tmp_path / "index", hubs=2)
+        monkeypatch.undo()
+    else:
+        done = subprocess.run([sys.executable, "-c", _CRASH, str(wiki), str(tmp_path / "index"), str(half)],
+                              capture_output=True, text=True)
+        assert done.returncode == 3, done.stderr
+    after = load_index(tmp_path / "index")
+    assert after.manifest.fingerprint == before
+    assert _snapshot(tmp_path / "index") == files
