@@ -113,6 +113,33 @@ def _from_scores(scores: sp.csr_array, excluded: sp.csr_array, k: int) -> np.nda
     return lists
 
 
+def _strongest(matrix: sp.csr_array, n: int) -> sp.csr_array:
+    """Keep each row's ``n`` largest entries (ties to the lower column)."""
+    lists = _from_scores(matrix, sp.csr_array(matrix.shape), n)
+    rows = np.repeat(np.arange(matrix.shape[0]), n).reshape(lists.shape)
+    kept = lists >= 0
+    values = _lookup_values(matrix, rows[kept], lists[kept])
+    return sp.csr_array((values, (rows[kept], lists[kept])), shape=matrix.shape)
+
+
+def _lookup_values(matrix: sp.csr_array, rows: np.ndarray, columns: np.ndarray) -> np.ndarray:
+    keys = _keys(matrix)
+    position = np.searchsorted(keys, rows * matrix.shape[1] + columns)
+    return matrix.data[position]
+
+
+_PRODUCT_ROWS = 8192  # query rows scored at once, to bound the memory of seeds @ matrix
+
+
+def _ranked_product(seeds: sp.csr_array, matrix: sp.csr_array, excluded: sp.csr_array, k: int) -> np.ndarray:
+    """:func:`_from_scores` of ``seeds @ matrix``, computed a block of query rows at a time."""
+    blocks = [np.zeros((0, k), dtype=np.int64)]
+    for start in range(0, seeds.shape[0], _PRODUCT_ROWS):
+        rows = slice(start, start + _PRODUCT_ROWS)
+        blocks.append(_from_scores(sp.csr_array(seeds[rows] @ matrix), sp.csr_array(excluded[rows]), k))
+    return np.concatenate(blocks)
+
+
 def _lists_matrix(lists: np.ndarray, size: int) -> sp.csr_array:
     rows = np.repeat(np.arange(lists.shape[0]), lists.shape[1]).reshape(lists.shape)
     filled = lists >= 0
@@ -298,10 +325,9 @@ class OutLinks:
         k = check_count("k", k)
         links = _check_adjacency(self.adjacency, split)
         links.data[:] = 1.0
-        scores = sp.csr_array(_seeds(split, 1, last_only=True) @ links)
-        scores.sum_duplicates()
-        scores.data = 1.0 + training_counts(split.train)[scores.indices]
-        return _from_scores(scores, excluded_pages(split), k)
+        popularity = sp.diags_array(1.0 + training_counts(split.train))
+        return _ranked_product(_seeds(split, 1, last_only=True), sp.csr_array(links @ popularity),
+                               excluded_pages(split), k)
 
 
 @dataclass(frozen=True)
@@ -309,12 +335,15 @@ class CoVisitation:
     """Sum of :func:`covisitation` cosines to the query's pages; pages never co-visited are not listed.
 
     ``gap`` defaults to the split's own session gap (else 30 minutes); ``history`` is how many of a user's
-    last training views start a user query.
+    last training views start a user query; ``neighbours`` keeps only each page's strongest co-visited
+    pages (item-neighbourhood pruning, common practice in item-based collaborative filtering; None keeps
+    all); ``max_session_pages`` as in :func:`covisitation`.
     """
 
     gap: float | None = None
     history: int = 3
     max_session_pages: int | None = 100
+    neighbours: int | None = 100
     name: str = "co-visitation"
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
@@ -322,8 +351,10 @@ class CoVisitation:
         gap = check_positive("gap", self.gap if self.gap is not None else split.settings.get(
             "gap", SESSION_GAP_SECONDS))
         cosine = covisitation(split.train, gap=gap, max_session_pages=self.max_session_pages)
+        if self.neighbours is not None:
+            cosine = _strongest(cosine, check_count("neighbours", self.neighbours))
         seeds = _seeds(split, check_count("history", self.history), last_only=False)
-        return _from_scores(sp.csr_array(seeds @ cosine), excluded_pages(split), k)
+        return _ranked_product(seeds, cosine, excluded_pages(split), k)
 
 
 @dataclass(frozen=True, eq=False)

@@ -93,6 +93,18 @@ def test_covisitation_lists_follow_summed_cosines_of_the_prefix():
         assert _listed(row) == [p for p in expected if p not in seeds][:5]
 
 
+def test_covisitation_neighbours_keeps_only_each_pages_strongest_pages():
+    users, pages, times, size = _random_views(11)
+    split = session_split(users, pages, times, size, prefix=1)
+    cosine = covisitation(split.train).toarray()
+    lists = CoVisitation(neighbours=2).recommend(split, 5)
+    for row, prefix in zip(lists, split.queries.pages, strict=True):
+        seed = int(prefix[0])
+        ranked = sorted(range(size), key=lambda p: (-cosine[seed, p], p))
+        strongest = [p for p in ranked if cosine[seed, p] > 0]
+        assert _listed(row) == [p for p in strongest[:2] if p != seed]
+
+
 # ------------------------------------------------------------------------------------ global rankings
 
 
