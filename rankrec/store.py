@@ -89,6 +89,8 @@ class Store:
             self.connection.execute("PRAGMA journal_mode=WAL")
             self.connection.execute("PRAGMA synchronous=NORMAL")
             self.connection.execute("PRAGMA foreign_keys=ON")
+            self.connection.execute("PRAGMA cache_size=-131072")  # 128 MiB of page cache for big imports
+            self.connection.execute("PRAGMA temp_store=MEMORY")
             self._check_schema()
         except sqlite3.DatabaseError as error:
             raise InputError(self.path, None, f"not a usable wiki store: {error}") from None
