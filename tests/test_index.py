@@ -44,11 +44,18 @@ def make_wiki(
         for i, name in enumerate(names):
             chosen = ()
             if groups and rng.random() < restricted:
-                chosen = tuple(sorted(set(rng.choice(group_names, size=rng.integers(1, groups + 1)).tolist())))
+                chosen = tuple(
+                    sorted(set(rng.choice(group_names, size=rng.integers(1, groups + 1)).tolist()))
+                )
             store.put_page(
                 PageRecord(
-                    name, f"Title {i}", origin, space=f"s{i % spaces}", groups=chosen,
-                    archived=bool(rng.random() < archived), tags=(f"t{i % 2}",),
+                    name,
+                    f"Title {i}",
+                    origin,
+                    space=f"s{i % spaces}",
+                    groups=chosen,
+                    archived=bool(rng.random() < archived),
+                    tags=(f"t{i % 2}",),
                 )
             )
         dense = rng.random((pages, pages)) < density
@@ -61,13 +68,15 @@ def make_wiki(
         rows = []
         for u in range(users):
             for _ in range(views):
-                rows.append((f"user{u:02d}", names[int(rng.integers(pages))], float(rng.integers(0, 60)) * DAY,
-                             None))
+                rows.append(
+                    (f"user{u:02d}", names[int(rng.integers(pages))], float(rng.integers(0, 60)) * DAY, None)
+                )
         store.put_views(rows)
         memberships = [("team", f"team{u % teams}", f"user{u:02d}") for u in range(users)]
         memberships += [
             ("group", group_names[int(rng.integers(groups))], f"user{u:02d}")
-            for u in range(users) if groups and rng.random() < 0.6
+            for u in range(users)
+            if groups and rng.random() < 0.6
         ]
         store.put_memberships(memberships)
         store.log_import("test", "generated", pages, 0)
@@ -119,9 +128,11 @@ def test_page_table_matches_the_store(built):
         rows = store.connection.execute(
             "SELECT page, title, space, archived FROM pages WHERE present = 1 ORDER BY id"
         ).fetchall()
-        groups = dict(store.connection.execute(
-            "SELECT page, group_concat(name) FROM page_groups JOIN pages ON id = page_id GROUP BY page"
-        ).fetchall())
+        groups = dict(
+            store.connection.execute(
+                "SELECT page, group_concat(name) FROM page_groups JOIN pages ON id = page_id GROUP BY page"
+            ).fetchall()
+        )
     for number, (page, title, space, archived) in enumerate(rows):
         assert index.page_number(page) == number
         assert (index.pages[number], index.titles[number], index.space_of(number)) == (page, title, space)
@@ -165,8 +176,9 @@ def test_push_built_lists_agree_with_power_built_ones(tmp_path, built):
     folder, graph, index = built
     with Store(folder / "wiki.db") as store:
         pushed = load_index(
-            build_index(store, tmp_path / "pushed", hubs=0, topics="spaces", k_related=20, method="push",
-                        epsilon=1e-9)
+            build_index(
+                store, tmp_path / "pushed", hubs=0, topics="spaces", k_related=20, method="push", epsilon=1e-9
+            )
         )
     for seed in range(0, graph.size, 5):
         a, b = index.seed_candidates(seed), pushed.seed_candidates(seed)
@@ -179,7 +191,9 @@ def test_share_of_views_precomputes_the_most_viewed_pages(tmp_path, built):
     with Store(folder / "wiki.db") as store:
         partial = load_index(build_index(store, tmp_path / "partial", hubs=2, k_related=20, view_share=0.5))
         counts = np.zeros(graph.size)
-        for page_id, count in store.connection.execute("SELECT page_id, count(*) FROM views GROUP BY page_id"):
+        for page_id, count in store.connection.execute(
+            "SELECT page_id, count(*) FROM views GROUP BY page_id"
+        ):
             counts[np.searchsorted(graph.row_ids, page_id)] = count
     chosen = np.flatnonzero(np.asarray(partial.related["row"]) >= 0)
     assert counts[chosen].sum() >= 0.5 * counts.sum()
@@ -194,10 +208,30 @@ def test_share_of_views_precomputes_the_most_viewed_pages(tmp_path, built):
 def test_workers_give_the_same_lists(tmp_path, built):
     folder, _, index = built
     with Store(folder / "wiki.db") as store:
-        parallel = load_index(build_index(store, tmp_path / "parallel", hubs=5, k_related=20, tol=1e-10,
-                                          method="push", epsilon=1e-8, workers=2))
-        serial = load_index(build_index(store, tmp_path / "serial", hubs=5, k_related=20, tol=1e-10,
-                                        method="push", epsilon=1e-8, workers=1))
+        parallel = load_index(
+            build_index(
+                store,
+                tmp_path / "parallel",
+                hubs=5,
+                k_related=20,
+                tol=1e-10,
+                method="push",
+                epsilon=1e-8,
+                workers=2,
+            )
+        )
+        serial = load_index(
+            build_index(
+                store,
+                tmp_path / "serial",
+                hubs=5,
+                k_related=20,
+                tol=1e-10,
+                method="push",
+                epsilon=1e-8,
+                workers=1,
+            )
+        )
     for name in ("pages", "scores", "via", "space", "kind"):
         assert np.array_equal(np.asarray(parallel.related[name]), np.asarray(serial.related[name]))
 
@@ -278,8 +312,11 @@ def test_an_interrupted_build_leaves_the_old_index(tmp_path, monkeypatch, how):
             build_index(store, tmp_path / "index", hubs=2)
         monkeypatch.undo()
     else:
-        done = subprocess.run([sys.executable, "-c", _CRASH, str(wiki), str(tmp_path / "index"), str(half)],
-                              capture_output=True, text=True)
+        done = subprocess.run(
+            [sys.executable, "-c", _CRASH, str(wiki), str(tmp_path / "index"), str(half)],
+            capture_output=True,
+            text=True,
+        )
         assert done.returncode == 3, done.stderr
     after = load_index(tmp_path / "index")
     assert after.manifest.fingerprint == before

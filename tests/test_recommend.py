@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import tempfile
 from pathlib import Path
 
@@ -52,8 +53,18 @@ def test_no_list_holds_a_page_its_audience_may_not_see_and_lists_are_full(
     seed, pages, density, groups, k, exclude_linked, per_space
 ):
     with tempfile.TemporaryDirectory() as scratch:
-        wiki = make_wiki(Path(scratch) / "wiki.db", pages=pages, seed=seed, density=density, groups=groups,
-                         restricted=0.4, archived=0.15, users=10, teams=1, views=6)
+        wiki = make_wiki(
+            Path(scratch) / "wiki.db",
+            pages=pages,
+            seed=seed,
+            density=density,
+            groups=groups,
+            restricted=0.4,
+            archived=0.15,
+            users=10,
+            teams=1,
+            views=6,
+        )
         with Store(wiki) as store:
             index = load_index(build_index(store, Path(scratch) / "index", hubs=3, k_related=8, tol=1e-8))
             users = [row[0] for row in store.connection.execute("SELECT user FROM users ORDER BY user")]
@@ -74,7 +85,9 @@ def test_no_list_holds_a_page_its_audience_may_not_see_and_lists_are_full(
             else:
                 counts = np.bincount(space[numbers] + 1, minlength=1)
                 assert counts.max(initial=0) <= per_space
-                capacity = sum(min(per_space, int(np.sum(eligible & (space == s)))) for s in set(space.tolist()))
+                capacity = sum(
+                    min(per_space, int(np.sum(eligible & (space == s)))) for s in set(space.tolist())
+                )
                 assert len(numbers) == min(k, capacity)
 
         rng = np.random.default_rng(seed)
@@ -84,13 +97,28 @@ def test_no_list_holds_a_page_its_audience_may_not_see_and_lists_are_full(
             excluded = {seed_page}
             if exclude_linked:
                 excluded |= set(index.links_from(seed_page).tolist())
-            result = related(index, index.pages[seed_page], reader=reader, k=k, exclude_linked=exclude_linked,
-                             per_space=per_space)
+            result = related(
+                index,
+                index.pages[seed_page],
+                reader=reader,
+                k=k,
+                exclude_linked=exclude_linked,
+                per_space=per_space,
+            )
             check(result, allowed, excluded)
             if reader is not None:
-                check(recommend(index, reader, k=k, per_space=per_space), allowed, set(reader.recent.tolist()))
-                blended = related(index, index.pages[seed_page], reader=reader, k=k, blend=0.5,
-                                  exclude_read=True, per_space=per_space)
+                check(
+                    recommend(index, reader, k=k, per_space=per_space), allowed, set(reader.recent.tolist())
+                )
+                blended = related(
+                    index,
+                    index.pages[seed_page],
+                    reader=reader,
+                    k=k,
+                    blend=0.5,
+                    exclude_read=True,
+                    per_space=per_space,
+                )
                 check(blended, allowed, {seed_page, *reader.recent.tolist()})
         every_member = np.logical_and.reduce([_allowed(index, member.groups) for member in members])
         check(landing(index, team, k=k, per_space=per_space), every_member)
@@ -99,8 +127,17 @@ def test_no_list_holds_a_page_its_audience_may_not_see_and_lists_are_full(
 @pytest.fixture(scope="module")
 def wiki(tmp_path_factory):
     folder = tmp_path_factory.mktemp("recommend")
-    path = make_wiki(folder / "wiki.db", pages=80, seed=11, density=0.05, users=14, teams=2, views=12,
-                     groups=2, restricted=0.2)
+    path = make_wiki(
+        folder / "wiki.db",
+        pages=80,
+        seed=11,
+        density=0.05,
+        users=14,
+        teams=2,
+        views=12,
+        groups=2,
+        restricted=0.2,
+    )
     with Store(path) as store:
         build_index(store, folder / "index", hubs=4, k_related=25, tol=1e-10, lift=0.5)
         graph = load_graph(store)
@@ -174,7 +211,9 @@ def _check_reason(index, graph, vector, item):
         return "page"
     if item.reason.startswith("mostly reached from pages in space "):
         name = item.reason.rsplit(" ", 1)[1]
-        by_space = {s: shares[np.asarray(index.space) == code].sum() for code, s in enumerate(index.space_names)}
+        by_space = {
+            s: shares[np.asarray(index.space) == code].sum() for code, s in enumerate(index.space_names)
+        }
         assert by_space[name] == pytest.approx(max(by_space.values()), rel=1e-6)
         return "space"
     return "other"
@@ -203,15 +242,18 @@ def test_contributions_match_a_hand_computed_example():
 
     links = sp.csr_array(np.array([[0, 0, 0, 1.0], [0, 0, 0, 1.0], [0, 0, 0, 1.0], [0, 0, 0, 0]]))
     x = np.array([0.1, 0.5, 0.2, 0.2])
-    found = contributions(sp.csr_array(links.T), lambda pages: x[pages], np.array([3]),
-                          np.array([0, 1, 0, 0]), damping=0.85)
+    found = contributions(
+        sp.csr_array(links.T), lambda pages: x[pages], np.array([3]), np.array([0, 1, 0, 0]), damping=0.85
+    )
     assert (found.via[0], found.space[0], found.kind[0]) == (1, 1, VIA_PAGE)
     x = np.array([0.3, 0.5, 0.3, 0.2])  # now space 0 (0.6) outweighs page 1 (0.5 of 1.1 < half)
-    found = contributions(sp.csr_array(links.T), lambda pages: x[pages], np.array([3]),
-                          np.array([0, 1, 0, 0]), damping=0.85)
+    found = contributions(
+        sp.csr_array(links.T), lambda pages: x[pages], np.array([3]), np.array([0, 1, 0, 0]), damping=0.85
+    )
     assert (found.via[0], found.space[0], found.kind[0]) == (1, 0, 1)
-    none = contributions(sp.csr_array(links.T), lambda pages: x[pages], np.array([0]),
-                         np.array([0, 1, 0, 0]), damping=0.85)
+    none = contributions(
+        sp.csr_array(links.T), lambda pages: x[pages], np.array([0]), np.array([0, 1, 0, 0]), damping=0.85
+    )
     assert none.kind[0] == NO_LINK
 
 
@@ -259,6 +301,7 @@ def test_changes_since_an_earlier_export(tmp_path, wiki):
     result = landing(index, team, k=5)
     pages = [item.page for item in result.items]
     previous = tmp_path / "previous.json"
-    previous.write_text('[{"page": "%s"}, {"page": "gone/page"}, {"page": "x", "change": "left"}]' % pages[1])
+    rows = [{"page": pages[1]}, {"page": "gone/page"}, {"page": "x", "change": "left"}]
+    previous.write_text(json.dumps(rows))
     entered, left = changes_since(result, read_previous(previous))
     assert entered == frozenset(pages) - {pages[1]} and left == ("gone/page",)

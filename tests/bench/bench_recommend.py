@@ -1,0 +1,192 @@
+"""Index build and list latency on a large invented wiki.
+
+Run: `python -m tests.bench.bench_recommend [--pages N] [--wiki WIKI.db] [--view-share S] [--workers W]`
+
+Without ``--wiki`` it writes a wiki of ``--pages`` pages with `rankrec synth` (layout "tables")
+and imports it into a fresh store (both timed); ``--wiki`` reuses a store made earlier. Then:
+
+- ``rankrec build`` in a child process: wall time and peak memory (ru_maxrss of the child);
+- the index's size on disk, and the time to load it (memory-mapped) in this process;
+- median and p99 time of ``related()`` (precomputed pages, pages computed on first request,
+  and with a viewer), ``recommend()`` and ``landing()``, called in-process on seeded random
+  choices. Building a reader or team from the store is timed apart from the list itself.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+_BUILD = """
+import json, resource, sys, time
+from rankrec.index import build_index
+from rankrec.store import Store
+wiki, target, settings = sys.argv[1], sys.argv[2], json.loads(sys.argv[3])
+started = time.perf_counter()
+with Store(wiki, create=False) as store:
+    build_index(store, target, **settings)
+print(json.dumps({"seconds": time.perf_counter() - started,
+                  "peak_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024}))
+"""
+
+
+def _percentiles(samples: list[float]) -> dict:
+    values = np.array(samples) * 1000.0
+    return {
+        "calls": len(samples),
+        "median_ms": round(float(np.median(values)), 2),
+        "p99_ms": round(float(np.percentile(values, 99)), 2),
+    }
+
+
+def _timed(call) -> float:
+    started = time.perf_counter()
+    call()
+    return time.perf_counter() - started
+
+
+def _make_store(pages: int, workdir: Path) -> Path:
+    from rankrec.importer import import_sources
+    from rankrec.store import Store
+    from rankrec.synth import synthesize
+
+    started = time.perf_counter()
+    summary = synthesize(workdir / "wiki", pages=pages, seed=1, layout="tables")
+    print(
+        f"synth: {summary.pages:,} pages, {summary.links:,} links, {summary.views:,} views "
+        f"in {time.perf_counter() - started:.1f} s",
+        flush=True,
+    )
+    wiki = workdir / "wiki.db"
+    started = time.perf_counter()
+    files = [
+        ("pages.csv", "pages"),
+        ("links.csv", "edges"),
+        ("views.csv", "views"),
+        ("teams.csv", "teams"),
+        ("groups.csv", "groups"),
+    ]
+    with Store(wiki) as store:
+        import_sources(store, [(workdir / "wiki" / name, format) for name, format in files])
+    print(f"import: {time.perf_counter() - started:.1f} s", flush=True)
+    return wiki
+
+
+def main(argv: list[str]) -> None:
+    parser = argparse.ArgumentParser(description=__doc__)
+    parser.add_argument("--pages", type=int, default=1_000_000, help="pages of the synthetic wiki")
+    parser.add_argument("--wiki", type=Path, help="reuse this store instead of synthesising one")
+    parser.add_argument(
+        "--view-share",
+        type=float,
+        help="precompute pages carrying this share of views "
+        "(default: every page up to 100,000 pages, else 0.5)",
+    )
+    parser.add_argument("--hubs", type=int, default=32, help="hub vectors in the basis")
+    parser.add_argument("--workers", type=int, default=2, help="build processes")
+    parser.add_argument("--calls", type=int, default=200, help="calls per list kind")
+    args = parser.parse_args(argv)
+    from rankrec.errors import GroupTooSmall
+    from rankrec.index import load_index
+    from rankrec.recommend import landing, reader_from_store, recommend, related, team_from_store
+    from rankrec.store import Store
+
+    with tempfile.TemporaryDirectory(prefix="rankrec-bench-") as scratch:
+        workdir = Path(scratch)
+        wiki = args.wiki or _make_store(args.pages, workdir)
+        with Store(wiki, create=False) as store:
+            pages = store.counts()["pages"]
+        share = args.view_share if args.view_share is not None else (None if pages <= 100_000 else 0.5)
+        settings = {"hubs": args.hubs, "view_share": share, "workers": args.workers, "topics": "spaces"}
+        target = workdir / "index"
+        done = subprocess.run(
+            [sys.executable, "-c", _BUILD, str(wiki), str(target), json.dumps(settings)],
+            capture_output=True,
+            text=True,
+            check=True,
+        )
+        build = json.loads(done.stdout)
+        real = target.resolve()
+        size = sum(path.stat().st_size for path in real.rglob("*") if path.is_file())
+        started = time.perf_counter()
+        index = load_index(target)
+        load_seconds = time.perf_counter() - started
+        manifest = index.manifest
+        print(
+            json.dumps(
+                {
+                    "pages": pages,
+                    "links": manifest.counts["links"],
+                    "settings": settings,
+                    "precomputed": manifest.counts["precomputed"],
+                    "build_seconds": round(build["seconds"], 1),
+                    "build_steps": manifest.seconds,
+                    "build_peak_mib": round(build["peak_bytes"] / 2**20),
+                    "index_mib": round(size / 2**20, 1),
+                    "load_seconds": round(load_seconds, 3),
+                }
+            ),
+            flush=True,
+        )
+
+        rng = np.random.default_rng(5)
+        row = np.asarray(index.related["row"])
+        precomputed = np.flatnonzero(row >= 0)
+        others = np.flatnonzero(row < 0)
+        results = {}
+        chosen = rng.choice(precomputed, size=min(args.calls, precomputed.size), replace=False)
+        results["related (precomputed page)"] = [
+            _timed(lambda p=p: related(index, index.pages[int(p)])) for p in chosen
+        ]
+        if others.size:
+            chosen = rng.choice(others, size=min(args.calls, others.size), replace=False)
+            results["related (first request)"] = [
+                _timed(lambda p=p: related(index, index.pages[int(p)])) for p in chosen
+            ]
+        with Store(wiki, create=False) as store:
+            users = [row[0] for row in store.connection.execute("SELECT user FROM users ORDER BY user")]
+            teams = [
+                row[0]
+                for row in store.connection.execute(
+                    "SELECT DISTINCT name FROM memberships WHERE kind = 'team' ORDER BY name"
+                )
+            ]
+            picked = rng.choice(len(users), size=min(args.calls, len(users)), replace=False)
+            building, readers = [], []
+            for position in picked:
+                started = time.perf_counter()
+                readers.append(reader_from_store(store, index, users[int(position)]))
+                building.append(time.perf_counter() - started)
+            results["reader_from_store"] = building
+            results["related (with viewer)"] = [
+                _timed(lambda r=r: related(index, index.pages[int(rng.choice(precomputed))], reader=r))
+                for r in readers
+            ]
+            results["recommend"] = [_timed(lambda r=r: recommend(index, r)) for r in readers]
+            building, lists = [], []
+            refused = 0
+            for name in teams:
+                started = time.perf_counter()
+                try:
+                    team = team_from_store(store, index, name)
+                except GroupTooSmall:
+                    refused += 1
+                    continue
+                building.append(time.perf_counter() - started)
+                lists.append(_timed(lambda t=team: landing(index, t)))
+            print(f"teams: {len(teams)}, refused as too small: {refused}", flush=True)
+            results["team_from_store"] = building
+            results["landing"] = lists
+        for name, samples in results.items():
+            print(json.dumps({"call": name, **_percentiles(samples)}), flush=True)
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])
