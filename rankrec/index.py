@@ -38,7 +38,7 @@ import scipy.sparse as sp
 from ._atomic import publish_folder
 from ._validation import check_count, check_fraction, check_real
 from .basis import Basis, _versions, build_basis, load_basis, save_basis
-from .errors import InputError, StaleIndex, UnknownPage
+from .errors import GroupTooSmall, InputError, StaleIndex, UnknownPage
 from .explain import contributions
 from .graph import WikiGraph, dense_numbers, load_graph
 from .pagerank import Transition, personalized_pagerank, prepare, push
@@ -201,6 +201,7 @@ def build_index(
     view_share: float | None = None,
     method: str = "auto",
     epsilon: float = PUSH_EPSILON,
+    team_min_readers: int = 5,
     workers: int = 1,
     progress: Progress | None = None,
 ) -> Path:
@@ -224,6 +225,9 @@ def build_index(
     method : {"auto", "power", "push"}
         Related lists by block power iteration (exact to ``tol``) or by forward push (``epsilon``).
         "auto" uses the power iteration up to 5,000 pages.
+    team_min_readers : int
+        Teams with at least this many distinct active readers get their vector precomputed (the
+        mean of the members' reading profiles, :func:`rankrec.profiles.team_restart`).
     workers : int
         Processes for the related lists (and threads for the power iteration).
     progress : callable, optional
@@ -275,6 +279,12 @@ def build_index(
     if method == "auto":
         method = "power" if graph.size <= EXACT_LIMIT else "push"
     store_import = store.scalar("SELECT max(id) FROM imports")
+    started = time.perf_counter()
+    team_names, team_vectors = _team_vectors(
+        store, graph, transition, damping, tol, team_min_readers, workers
+    )
+    seconds["teams"] = time.perf_counter() - started
+    _report(progress, "team vectors", 1, 1)
 
     def write(staging: Path) -> None:
         _save_strings(staging, "pages", graph.pages.tolist())
@@ -298,6 +308,8 @@ def build_index(
         )
         if basis is not None:
             save_basis(basis, staging / "basis")
+        np.save(staging / "team_vectors.npy", team_vectors)
+        (staging / "teams.json").write_text(json.dumps(team_names, ensure_ascii=False) + "\n")
         begun = time.perf_counter()
         _write_related(staging, chosen, method, damping, tol, epsilon, lift, k_related, workers, progress)
         seconds["related"] = time.perf_counter() - begun
@@ -316,6 +328,7 @@ def build_index(
                 "groups": len(table["groups"]),
                 "spaces": len(table["spaces"]),
                 "topics": len(topic_sets),
+                "teams": len(team_names),
                 "hubs": int(hub_pages.size),
                 "precomputed": int(chosen.size),
             },
@@ -327,6 +340,43 @@ def build_index(
         (staging / "manifest.json").write_text(json.dumps(asdict(manifest), indent=2) + "\n")
 
     return publish_folder(Path(target), write)
+
+
+def _team_vectors(
+    store, graph, transition, damping, tol, min_readers, workers
+) -> tuple[list[str], np.ndarray]:
+    """Personalised PageRank (float32, rows) of every team with enough distinct active readers."""
+    from .profiles import load_profiles, team_restart
+
+    rows = store.connection.execute(
+        "SELECT name, users.user FROM memberships JOIN users ON users.id = user_id WHERE kind = 'team' "
+        "ORDER BY name"
+    ).fetchall()
+    members: dict[str, list[str]] = {}
+    for name, user in rows:
+        members.setdefault(name, []).append(user)
+    names, restarts = [], []
+    if members:
+        profiles = load_profiles(store, graph)
+        for name, users in members.items():
+            try:
+                restarts.append(team_restart(profiles, users, min_readers=min_readers, team=name))
+            except GroupTooSmall:
+                continue
+            names.append(name)
+    vectors = np.zeros((len(names), graph.size), dtype=np.float32)
+    for first in range(0, len(names), 32):
+        block = np.column_stack(restarts[first : first + 32])
+        result = personalized_pagerank(
+            transition,
+            block,
+            damping=damping,
+            tol=tol,
+            workers=workers,
+            dtype=np.float32 if tol >= 1e-7 else np.float64,
+        )
+        vectors[first : first + block.shape[1]] = result.vectors.T
+    return names, vectors
 
 
 def _report(progress: Progress | None, step: str, done: int, total: int) -> None:
@@ -482,6 +532,8 @@ class Index:
     global_vector: np.ndarray
     basis: Basis | None
     related: dict
+    team_names: tuple[str, ...]
+    team_vectors: np.ndarray
     _cache: dict = field(default_factory=dict, repr=False)
 
     @property
@@ -573,6 +625,21 @@ class Index:
         vector[indices] = values
         return vector / vector.sum()
 
+    def team_vector(self, team: str) -> np.ndarray | None:
+        """The team's personalised PageRank as of the build (float64, sums to 1), or None."""
+        try:
+            row = self.team_names.index(team)
+        except ValueError:
+            return None
+        vector = np.asarray(self.team_vectors[row], dtype=np.float64)
+        return vector / vector.sum()
+
+    @property
+    def team_error_bound(self) -> float:
+        """L1 bound of a precomputed team vector: ``tol·α/(1 − α)`` (geometric tail) plus float32 storage."""
+        damping = self.manifest.damping
+        return self.manifest.tol * damping / (1.0 - damping) + 1e-6
+
     def check_current(self, store: Store) -> None:
         """StaleIndex unless ``store``'s graph is the one the index was built from.
 
@@ -618,6 +685,8 @@ def load_index(folder: str | Path, *, graph: WikiGraph | None = None) -> Index:
             space_names=tuple(names["spaces"]),
             group_names=tuple(names["groups"]),
             global_vector=_load(folder, "global"),
+            team_names=tuple(json.loads((folder / "teams.json").read_text())),
+            team_vectors=_load(folder, "team_vectors"),
             basis=load_basis(folder / "basis") if (folder / "basis").exists() else None,
             related={
                 name: _load(folder, f"related_{name}")

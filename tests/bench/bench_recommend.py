@@ -46,6 +46,14 @@ def _percentiles(samples: list[float]) -> dict:
     }
 
 
+class _Printed(dict):
+    """Prints each measurement as soon as it is stored."""
+
+    def __setitem__(self, name, samples) -> None:
+        print(json.dumps({"call": name, **_percentiles(samples)}), flush=True)
+        super().__setitem__(name, samples)
+
+
 def _timed(call) -> float:
     started = time.perf_counter()
     call()
@@ -140,7 +148,7 @@ def main(argv: list[str]) -> None:
         row = np.asarray(index.related["row"])
         precomputed = np.flatnonzero(row >= 0)
         others = np.flatnonzero(row < 0)
-        results = {}
+        results = _Printed()
         chosen = rng.choice(precomputed, size=min(args.calls, precomputed.size), replace=False)
         results["related (precomputed page)"] = [
             _timed(lambda p=p: related(index, index.pages[int(p)])) for p in chosen
@@ -184,8 +192,6 @@ def main(argv: list[str]) -> None:
             print(f"teams: {len(teams)}, refused as too small: {refused}", flush=True)
             results["team_from_store"] = building
             results["landing"] = lists
-        for name, samples in results.items():
-            print(json.dumps({"call": name, **_percentiles(samples)}), flush=True)
 
 
 if __name__ == "__main__":
