@@ -3,32 +3,49 @@
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange
+from numba import literally, njit, prange, uintp
+
+from ._simd import axpy_lanes, prefetch
+
+LOOKAHEAD = 32
+"""Links between a row's prefetch and its use (measured best of 0, 4, 8, 16, 32, 64, 128 on 1M pages)."""
 
 
-@njit(cache=True, parallel=True, fastmath=True)
+@njit(cache=True, parallel=True, fastmath=True, boundscheck=False)
 def block_step(  # pragma: no cover
-    indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes
+    indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width, lanes
 ):
     """``out = damping·Pᵀx + coef·restart + shift`` column-wise; ``changes[t]`` = L1 change of chunk t.
 
-    Rows are split into chunks of about equal link counts (``bounds``); each chunk is one parallel task.
+    ``x``, ``restart`` and ``out`` are flat views of ``(n, width)`` row-major blocks whose first
+    ``coef.size`` columns are used (the rest are zero padding up to a multiple of ``lanes``). Rows are
+    split into chunks of about equal link counts (``bounds``); each chunk is one parallel task.
     """
-    k = x.shape[1]
+    literally(lanes)
+    literally(width)
+    k = coef.size
+    blocks = width // lanes
+    end = indptr[indptr.size - 1]
     for t in prange(bounds.size - 1):
-        total = np.empty(k, dtype=x.dtype)
+        total = np.empty(width, dtype=x.dtype)
         local = np.zeros(k)
         for j in range(bounds[t], bounds[t + 1]):
             total[:] = 0
             for p in range(indptr[j], indptr[j + 1]):
-                i = indices[p]
+                ahead = p + LOOKAHEAD
+                if ahead < end:
+                    prefetch(x, np.int64(indices[ahead]) * width)
+                row = np.int64(indices[p]) * width
                 w = data[p]
-                for c in range(k):
-                    total[c] += w * x[i, c]
-            for c in range(k):
-                value = damping * total[c] + coef[c] * restart[j, c] + shift[c]
-                local[c] += abs(np.float64(value) - np.float64(x[j, c]))
-                out[j, c] = value
+                for b in range(blocks):
+                    axpy_lanes(total, b * lanes, x, row + b * lanes, w, lanes)
+            base = uintp(j) * uintp(width)  # unsigned: no negative-index handling, so the loop vectorises
+            for column in range(k):
+                c = uintp(column)
+                at = base + c
+                value = damping * total[c] + coef[c] * restart[at] + shift[c]
+                local[c] += abs(np.float64(value) - np.float64(x[at]))
+                out[at] = value
         changes[t, :] = local
 
 
@@ -45,19 +62,18 @@ def column_mass(x, rows):  # pragma: no cover
 
 @njit(cache=True)
 def forward_push(  # pragma: no cover
-    indptr, indices, data, out_degree, seeds, seed_weights, damping, epsilon, max_pushes
+    indptr, indices, data, out_degree, seeds, seed_weights, damping, epsilon, max_pushes, workspace
 ):
     """Forward push from a seed distribution; dangling pages send their mass back to the seeds.
 
-    Returns (estimate, residual, touched pages, pushes, converged).
+    ``workspace`` = (estimate, residual, queue, queued, seen, touched) of length n, all zero / False on
+    entry; only the touched entries are written, and they are reset before returning, so the arrays can
+    serve the next call without an O(n) clearing pass.
+
+    Returns (touched pages, their estimates, their residuals, pushes, converged).
     """
+    estimate, residual, queue, queued, seen, touched = workspace
     n = indptr.size - 1
-    estimate = np.zeros(n)
-    residual = np.zeros(n)
-    queue = np.empty(n, dtype=np.int32)
-    queued = np.zeros(n, dtype=np.bool_)
-    seen = np.zeros(n, dtype=np.bool_)
-    touched = np.empty(n, dtype=np.int32)
     count = 0
     head = 0
     size = 0
@@ -107,4 +123,15 @@ def forward_push(  # pragma: no cover
                 queued[v] = True
                 queue[(head + size) % n] = v
                 size += 1
-    return estimate, residual, touched[:count], pushes, size == 0
+    pages = touched[:count].copy()
+    values = np.empty(count)
+    left = np.empty(count)
+    for position in range(count):
+        u = pages[position]
+        values[position] = estimate[u]
+        left[position] = residual[u]
+        estimate[u] = 0.0
+        residual[u] = 0.0
+        queued[u] = False
+        seen[u] = False
+    return pages, values, left, pushes, size == 0

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import threading
 import time
 import warnings
 from collections.abc import Callable
@@ -98,9 +99,12 @@ def personalized_pagerank(
         raise TypeError(f"callback must be callable, got {callback!r}")
     distributions = check_restart(restart, transition.n)
     start = time.perf_counter()
+    shape = distributions.shape
+    k = 1 if distributions.ndim == 1 else shape[1]
+    padded = _padded(distributions.reshape(transition.n, k), dtype)
+    del distributions  # the float64 copy is not needed while iterating
     vectors, iterations, residuals = _iterate(
-        transition, distributions.reshape(transition.n, -1), damping, tol, max_iter,
-        None if leaky else dangling, dtype, callback, workers,
+        transition, padded, k, damping, tol, max_iter, None if leaky else dangling, dtype, callback, workers,
     )
     if not leaky:
         vectors /= vectors.sum(axis=0, dtype=np.float64).astype(dtype)
@@ -113,7 +117,7 @@ def personalized_pagerank(
             stacklevel=2,
         )
     return PageRankResult(
-        vectors=vectors.reshape(distributions.shape),
+        vectors=vectors.reshape(shape),
         iterations=iterations,
         residuals=residuals,
         converged=converged,
@@ -121,46 +125,84 @@ def personalized_pagerank(
     )
 
 
-def _iterate(transition, distributions, damping, tol, max_iter, dangling, dtype, callback, workers):
-    backward = transition.backward
+_PARALLEL_LOCK = threading.Lock()
+"""Serialises the parallel kernel: numba's default "workqueue" threading layer aborts the process when two
+Python threads enter a parallel region at once (the OpenMP and TBB layers would not need it)."""
+
+_MAX_LANES = 16  # one 64-byte cache line of float32 per gathered row
+
+
+def _lanes(k: int) -> int:
+    """Vector width of the row update: the power of two >= k, at most 16 (k > 16 uses several blocks)."""
+    return min(_MAX_LANES, 1 << max(0, (k - 1).bit_length()))
+
+
+def _aligned_zeros(rows: int, width: int, dtype: type) -> np.ndarray:
+    """Zeroed ``(rows, width)`` array whose rows start on 64-byte boundaries when a row is 64 bytes.
+
+    A gathered row then touches one cache line instead of two.
+    """
+    itemsize = np.dtype(dtype).itemsize
+    spare = 64 // itemsize
+    buffer = np.zeros(rows * width + spare, dtype=dtype)
+    skip = (-buffer.ctypes.data % 64) // itemsize
+    return buffer[skip: skip + rows * width].reshape(rows, width)
+
+
+def _padded(distributions: np.ndarray, dtype: type) -> np.ndarray:
+    """Restart columns in ``dtype``, zero-padded to a whole number of vector lanes, rows 64-byte aligned."""
     n, k = distributions.shape
+    lanes = _lanes(k)
+    restart = _aligned_zeros(n, -(-k // lanes) * lanes, dtype)
+    restart[:, :k] = distributions
+    return restart
+
+
+def _iterate(transition, restart, k, damping, tol, max_iter, dangling, dtype, callback, workers):
+    backward = transition.backward
+    n, width = restart.shape
+    lanes = _lanes(k)
+    current = _aligned_zeros(n, width, dtype)
+    current[:] = restart
+    following = _aligned_zeros(n, width, dtype)
     data = backward.data.astype(dtype, copy=False)
-    restart = distributions.astype(dtype)
-    current = restart.copy()
-    following = np.empty_like(current)
     dangling_pages = transition.dangling_pages.astype(np.int64)
-    chunks = max(1, 8 * workers)
+    chunks = max(1, 16 * workers)
     bounds = np.searchsorted(backward.indptr, np.linspace(0, backward.nnz, chunks + 1)).astype(np.int64)
     bounds[0], bounds[-1] = 0, n
     changes = np.zeros((chunks, k))
     coef = np.full(k, 1.0 - damping)
     shift = np.zeros(k)
     residuals = np.full(k, np.inf)
-    previous_threads = numba.get_num_threads()
-    numba.set_num_threads(min(workers, numba.config.NUMBA_NUM_THREADS))
-    try:
-        iteration = 0
-        while iteration < max_iter:
-            if dangling is not None:
-                mass = _kernels.column_mass(current, dangling_pages)
-                if dangling == "restart":
-                    coef = (1.0 - damping) + damping * mass
-                else:
-                    shift = damping * mass / n
-            _kernels.block_step(
-                backward.indptr, backward.indices, data, current, restart, coef.astype(dtype),
-                shift.astype(dtype), dtype(damping), bounds, following, changes,
-            )
-            current, following = following, current
-            iteration += 1
-            residuals = changes.sum(axis=0)
-            if callback is not None:
-                callback(iteration, residuals.copy())
-            if np.all(residuals < tol):
-                break
-    finally:
-        numba.set_num_threads(previous_threads)
-    return current, iteration, residuals
+    with _PARALLEL_LOCK:
+        previous_threads = numba.get_num_threads()
+        numba.set_num_threads(min(workers, numba.config.NUMBA_NUM_THREADS))
+        try:
+            with numba.parallel_chunksize(1):  # chunks are handed out one by one: a busy core takes fewer
+                iteration = 0
+                while iteration < max_iter:
+                    if dangling is not None:
+                        mass = _kernels.column_mass(current, dangling_pages)[:k]
+                        if dangling == "restart":
+                            coef = (1.0 - damping) + damping * mass
+                        else:
+                            shift = damping * mass / n
+                    _kernels.block_step(
+                        backward.indptr, backward.indices, data, current.ravel(), restart.ravel(),
+                        coef.astype(dtype), shift.astype(dtype), dtype(damping), bounds, following.ravel(),
+                        changes, width, lanes,
+                    )
+                    current, following = following, current
+                    iteration += 1
+                    residuals = changes.sum(axis=0)
+                    if callback is not None:
+                        callback(iteration, residuals.copy())
+                    if np.all(residuals < tol):
+                        break
+        finally:
+            numba.set_num_threads(previous_threads)
+    del following, restart
+    return (current if width == k else np.ascontiguousarray(current[:, :k])), iteration, residuals
 
 
 def combine(leaky_vectors: object, weights: object) -> np.ndarray:

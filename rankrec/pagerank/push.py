@@ -64,13 +64,17 @@ def push(
     seed_pages, seed_weights = check_seeds(seeds, graph.n)
     start = time.perf_counter()
     forward = graph.forward
-    estimate, residual, touched, pushes, converged = _kernels.forward_push(
-        forward.indptr, forward.indices, forward.data, graph.out_degree, seed_pages, seed_weights,
-        damping, epsilon, max_pushes,
-    )
-    touched = np.sort(touched)
-    residual_mass = float(residual[touched].sum())
-    values = estimate[touched]
+    workspace = graph.borrow_workspace()
+    try:
+        touched, values, residual, pushes, converged = _kernels.forward_push(
+            forward.indptr, forward.indices, forward.data, graph.out_degree, seed_pages, seed_weights,
+            damping, epsilon, max_pushes, workspace,
+        )
+    finally:
+        graph.return_workspace(workspace)
+    order = np.argsort(touched)
+    touched, values = touched[order], values[order]
+    residual_mass = float(residual.sum())
     keep = values > 0
     vector = sp.coo_array((values[keep], (touched[keep].astype(np.int64),)), shape=(graph.n,))
     if not converged:

@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import threading
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.sparse as sp
@@ -28,6 +29,12 @@ class Transition:
         Number of out-links per page.
     out_weight : ndarray of float64
         Total out-link weight per page (0 for dangling pages).
+
+    Notes
+    -----
+    A Transition also keeps, out of sight, a pool of scratch arrays for :func:`push` (one set per
+    concurrent caller, made on first use and cleaned after every call), so a query costs work in
+    proportion to the pages it touches rather than an O(n) allocation.
     """
 
     forward: sp.csr_array
@@ -35,6 +42,10 @@ class Transition:
     dangling: np.ndarray
     out_degree: np.ndarray
     out_weight: np.ndarray
+    _workspaces: list = field(default_factory=list, init=False, repr=False, compare=False)
+    _workspace_lock: threading.Lock = field(
+        default_factory=threading.Lock, init=False, repr=False, compare=False
+    )
 
     @property
     def n(self) -> int:
@@ -45,6 +56,20 @@ class Transition:
     def dangling_pages(self) -> np.ndarray:
         """Indices of the dangling pages."""
         return np.flatnonzero(self.dangling)
+
+    def borrow_workspace(self) -> tuple:
+        """Scratch arrays for one push (estimate, residual, queue, queued, seen, touched), all cleared."""
+        with self._workspace_lock:
+            if self._workspaces:
+                return self._workspaces.pop()
+        n = self.n
+        return (np.zeros(n), np.zeros(n), np.zeros(n, dtype=np.int32), np.zeros(n, dtype=np.bool_),
+                np.zeros(n, dtype=np.bool_), np.zeros(n, dtype=np.int32))
+
+    def return_workspace(self, workspace: tuple) -> None:
+        """Give back arrays from :meth:`borrow_workspace`; the caller has cleared what it wrote."""
+        with self._workspace_lock:
+            self._workspaces.append(workspace)
 
 
 def prepare(adjacency: object) -> Transition:
