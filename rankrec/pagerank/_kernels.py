@@ -22,7 +22,6 @@ def block_step(  # pragma: no cover
     split into chunks of about equal link counts (``bounds``); each chunk is one parallel task.
     """
     literally(lanes)
-    literally(width)
     k = coef.size
     blocks = width // lanes
     end = indptr[indptr.size - 1]
@@ -47,6 +46,37 @@ def block_step(  # pragma: no cover
                 local[c] += abs(np.float64(value) - np.float64(x[at]))
                 out[at] = value
         changes[t, :] = local
+
+
+# One cached entry point per lane width: ``lanes`` must be a compile-time literal for axpy_lanes, and
+# passing it as a constant here resolves numba's ``literally`` once, at (cached) compile time. Calling
+# block_step directly with a run-time int re-runs type inference on every call (about 1 s each).
+@njit(cache=True)
+def block_step_1(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width):
+    block_step(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width, 1)
+
+
+@njit(cache=True)
+def block_step_2(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width):
+    block_step(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width, 2)
+
+
+@njit(cache=True)
+def block_step_4(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width):
+    block_step(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width, 4)
+
+
+@njit(cache=True)
+def block_step_8(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width):
+    block_step(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width, 8)
+
+
+@njit(cache=True)
+def block_step_16(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width):
+    block_step(indptr, indices, data, x, restart, coef, shift, damping, bounds, out, changes, width, 16)
+
+
+BLOCK_STEPS = {1: block_step_1, 2: block_step_2, 4: block_step_4, 8: block_step_8, 16: block_step_16}
 
 
 @njit(cache=True)

@@ -187,10 +187,10 @@ def _iterate(transition, restart, k, damping, tol, max_iter, dangling, dtype, ca
                             coef = (1.0 - damping) + damping * mass
                         else:
                             shift = damping * mass / n
-                    _kernels.block_step(
+                    _kernels.BLOCK_STEPS[lanes](
                         backward.indptr, backward.indices, data, current.ravel(), restart.ravel(),
                         coef.astype(dtype), shift.astype(dtype), dtype(damping), bounds, following.ravel(),
-                        changes, width, lanes,
+                        changes, width,
                     )
                     current, following = following, current
                     iteration += 1
