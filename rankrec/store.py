@@ -9,6 +9,7 @@ it or nothing.
 
 from __future__ import annotations
 
+import itertools
 import sqlite3
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
@@ -258,31 +259,27 @@ class Store:
         ids = np.fromiter((row[0] for row in rows), dtype=np.int64, count=len(rows))
         return ids, [row[1] for row in rows]
 
+    def _columns(self, sql: str, count: int, width: int) -> np.ndarray:
+        """A query's rows as a (count, width) float64 array, read without a list of tuples."""
+        cursor = self.connection.execute(sql)
+        flat = np.fromiter(itertools.chain.from_iterable(cursor), dtype=np.float64, count=count * width)
+        return flat.reshape(count, width)
+
     def link_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Row ids of source and target, and weight, of every link between present pages."""
-        cursor = self.connection.execute(
-            "SELECT links.source_id, links.target_id, links.weight FROM links "
-            "JOIN pages AS s ON s.id = links.source_id JOIN pages AS t ON t.id = links.target_id "
-            "WHERE s.present = 1 AND t.present = 1"
-        )
-        sources, targets, weights = [], [], []
-        while chunk := cursor.fetchmany(200_000):
-            block = np.array(chunk, dtype=np.float64).reshape(-1, 3)
-            sources.append(block[:, 0].astype(np.int64))
-            targets.append(block[:, 1].astype(np.int64))
-            weights.append(block[:, 2])
-        if not sources:
-            empty = np.zeros(0, dtype=np.int64)
-            return empty, empty.copy(), np.zeros(0)
-        return np.concatenate(sources), np.concatenate(targets), np.concatenate(weights)
+        count = self.scalar("SELECT count(*) FROM links")
+        table = self._columns("SELECT source_id, target_id, weight FROM links", count, 3)
+        sources, targets = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64)
+        top = self.scalar("SELECT coalesce(max(id), 0) FROM pages")
+        present = np.zeros(top + 1, dtype=bool)
+        present[self.present_pages()[0]] = True
+        keep = present[sources] & present[targets]
+        return sources[keep], targets[keep], table[keep, 2]
 
     def view_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """User row id, page row id and timestamp of every view, ordered by user then time."""
-        cursor = self.connection.execute(
-            "SELECT user_id, page_id, timestamp FROM views ORDER BY user_id, timestamp"
+        count = self.scalar("SELECT count(*) FROM views")
+        table = self._columns(
+            "SELECT user_id, page_id, timestamp FROM views ORDER BY user_id, timestamp", count, 3
         )
-        blocks = []
-        while chunk := cursor.fetchmany(500_000):
-            blocks.append(np.array(chunk, dtype=np.float64).reshape(-1, 3))
-        table = np.concatenate(blocks) if blocks else np.zeros((0, 3))
         return table[:, 0].astype(np.int64), table[:, 1].astype(np.int64), table[:, 2]
