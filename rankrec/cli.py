@@ -11,6 +11,7 @@ import argparse
 import os
 import sys
 from collections.abc import Sequence
+from contextlib import contextmanager
 from dataclasses import asdict
 from pathlib import Path
 
@@ -26,6 +27,24 @@ def _progress_bar(description: str, unit: str, total: int | None = None):
     from tqdm import tqdm
 
     return tqdm(total=total, desc=description, unit=unit, unit_scale=True, leave=False, disable=None)
+
+
+@contextmanager
+def _step_bars():
+    """A ``progress(step, done, total)`` callback drawing one bar per step; closes them at the end."""
+    bars: dict = {}
+
+    def progress(step: str, done: int, total: int) -> None:
+        bar = bars.get(step)
+        if bar is None:
+            bar = bars[step] = _progress_bar(step, "it", total)
+        bar.update(done - bar.n)
+
+    try:
+        yield progress
+    finally:
+        for bar in bars.values():
+            bar.close()
 
 
 # -- import ---------------------------------------------------------------------------------------
@@ -97,32 +116,20 @@ def _cmd_build(args: argparse.Namespace) -> int:
     from .index import build_index, load_index
     from .store import Store
 
-    bars: dict = {}
-
-    def progress(step: str, done: int, total: int) -> None:
-        bar = bars.get(step)
-        if bar is None:
-            bar = bars[step] = _progress_bar(step, "it", total)
-        bar.update(done - bar.n)
-
-    try:
-        with Store(args.wiki, create=False) as store:
-            build_index(
-                store,
-                args.index,
-                damping=args.damping,
-                tol=args.tol,
-                topics=args.topics,
-                hubs=args.hubs,
-                k_related=args.k_related,
-                lift=args.lift,
-                view_share=args.view_share,
-                workers=args.workers,
-                progress=progress,
-            )
-    finally:
-        for bar in bars.values():
-            bar.close()
+    with _step_bars() as progress, Store(args.wiki, create=False) as store:
+        build_index(
+            store,
+            args.index,
+            damping=args.damping,
+            tol=args.tol,
+            topics=args.topics,
+            hubs=args.hubs,
+            k_related=args.k_related,
+            lift=args.lift,
+            view_share=args.view_share,
+            workers=args.workers,
+            progress=progress,
+        )
     manifest = load_index(args.index).manifest
     print_mapping({**manifest.counts, "seconds": manifest.seconds}, "table")
     print(f"index written to {args.index}")
@@ -158,8 +165,15 @@ def _cmd_related(args: argparse.Namespace) -> int:
     try:
         reader = None if args.viewer is None else reader_from_store(store, index, args.viewer)
         result = related(
-            index, args.page, reader=reader, k=args.k, exclude_linked=args.exclude_linked,
-            exclude_read=args.exclude_read, blend=args.blend, lift=args.lift, per_space=args.per_space,
+            index,
+            args.page,
+            reader=reader,
+            k=args.k,
+            exclude_linked=args.exclude_linked,
+            exclude_read=args.exclude_read,
+            blend=args.blend,
+            lift=args.lift,
+            per_space=args.per_space,
         )
     finally:
         if store is not None:
@@ -175,7 +189,11 @@ def _cmd_recommend(args: argparse.Namespace) -> int:
     with store:
         reader = reader_from_store(store, index, args.user)
         result = recommend(
-            index, reader, k=args.k, exclude_read=not args.include_read, lift=args.lift,
+            index,
+            reader,
+            k=args.k,
+            exclude_read=not args.include_read,
+            lift=args.lift,
             per_space=args.per_space,
         )
     _print_list(result, args.format)
@@ -196,8 +214,15 @@ def _cmd_landing(args: argparse.Namespace) -> int:
     rows = [{**row, "change": "entered" if row["page"] in entered else ""} for row in result.rows()]
     if args.format in ("json", "csv"):
         rows += [
-            {"rank": None, "page": page, "title": None, "space": None, "score": None, "reason": None,
-             "change": "left"}
+            {
+                "rank": None,
+                "page": page,
+                "title": None,
+                "space": None,
+                "score": None,
+                "reason": None,
+                "change": "left",
+            }
             for page in left
         ]
         print_rows(rows, args.format)
@@ -213,32 +238,22 @@ def _cmd_landing(args: argparse.Namespace) -> int:
 def _cmd_synth(args: argparse.Namespace) -> int:
     from .synth import synthesize
 
-    bars: dict = {}
-
-    def progress(step: str, done: int, total: int) -> None:
-        bar = bars.get(step)
-        if bar is None:
-            bar = bars[step] = _progress_bar(step, "it", total)
-        bar.update(done - bar.n)
-
     try:
-        summary = synthesize(
-            args.out,
-            pages=args.pages,
-            seed=args.seed,
-            layout=args.layout,
-            readers=args.readers,
-            days=args.days,
-            views_per_reader=args.views_per_reader,
-            access_log=args.access_log,
-            progress=progress,
-        )
+        with _step_bars() as progress:
+            summary = synthesize(
+                args.out,
+                pages=args.pages,
+                seed=args.seed,
+                layout=args.layout,
+                readers=args.readers,
+                days=args.days,
+                views_per_reader=args.views_per_reader,
+                access_log=args.access_log,
+                progress=progress,
+            )
     except ValueError as error:
         print(f"rankrec synth: {error}", file=sys.stderr)
         return EXIT_INPUT
-    finally:
-        for bar in bars.values():
-            bar.close()
     shown = {key: value for key, value in asdict(summary).items() if key not in ("files", "out_dir")}
     print_mapping(shown, "table")
     print(f"written to {args.out}")
