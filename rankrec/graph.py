@@ -110,10 +110,14 @@ def navigation_counts(
     return counts.tocsr()
 
 
-def _row_normalised(matrix: sp.csr_matrix) -> sp.csr_matrix:
+def row_normalised(matrix: sp.csr_matrix) -> sp.csr_matrix:
+    """A copy of a float CSR matrix whose non-empty rows sum to 1 (empty rows stay empty)."""
     sums = np.asarray(matrix.sum(axis=1)).ravel()
     scale = np.divide(1.0, sums, out=np.zeros_like(sums, dtype=np.float64), where=sums > 0)
-    return sp.diags(scale) @ matrix
+    matrix = sp.csr_matrix(matrix, dtype=np.float64, copy=True)
+    matrix.data *= np.repeat(scale, np.diff(matrix.indptr))
+    matrix.sort_indices()
+    return matrix
 
 
 def blend_navigation(adjacency: sp.csr_matrix, counts: sp.csr_matrix, weight: float) -> sp.csr_matrix:
@@ -123,8 +127,8 @@ def blend_navigation(adjacency: sp.csr_matrix, counts: sp.csr_matrix, weight: fl
     and a page with navigation but no links takes its navigation row.
     """
     original = adjacency.astype(np.float64)
-    links = _row_normalised(original)
-    moves = _row_normalised(counts.astype(np.float64))
+    links = row_normalised(original)
+    moves = row_normalised(counts.astype(np.float64))
     has_moves = (np.diff(moves.indptr) > 0).astype(np.float64)
     has_links = (np.diff(links.indptr) > 0).astype(np.float64)
     move_share = has_moves * np.where(has_links > 0, weight, 1.0)

@@ -27,7 +27,7 @@ import scipy.sparse as sp
 
 from ._validation import check_choice, check_count, check_positive, check_real
 from .errors import GroupTooSmall, UnknownTeam, UnknownUser
-from .graph import WikiGraph, dense_numbers
+from .graph import WikiGraph, dense_numbers, row_normalised
 from .store import Store
 
 SECONDS_PER_DAY = 86_400.0
@@ -182,16 +182,7 @@ def profile_matrix(
     if repeat == "log":
         np.log1p(matrix.data, out=matrix.data)
     matrix.eliminate_zeros()
-    return _normalised_rows(matrix)
-
-
-def _normalised_rows(matrix: sp.csr_matrix) -> sp.csr_matrix:
-    sums = np.asarray(matrix.sum(axis=1)).ravel()
-    scale = np.divide(1.0, sums, out=np.zeros_like(sums), where=sums > 0)
-    matrix = matrix.copy()
-    matrix.data *= np.repeat(scale, np.diff(matrix.indptr))
-    matrix.sort_indices()
-    return matrix
+    return row_normalised(matrix)
 
 
 # -- teams ------------------------------------------------------------------------------------------
@@ -236,7 +227,7 @@ def team_restart(profiles, members: Iterable, *, min_readers: int = 5, team: str
         raise ValueError(f"members must be rows in [0, {matrix.shape[0]}); got {bad!r}")
     if matrix.nnz and matrix.data.min() < 0:
         raise ValueError(f"profiles must not be negative; got {matrix.data.min()!r}")
-    chosen = _normalised_rows(matrix[np.unique(rows)])
+    chosen = row_normalised(matrix[np.unique(rows)])
     readers = int(np.count_nonzero(np.diff(chosen.indptr)))
     if readers < min_readers:
         raise GroupTooSmall(team, readers, min_readers)
