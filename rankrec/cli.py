@@ -13,6 +13,7 @@ import sys
 from collections.abc import Sequence
 from contextlib import contextmanager
 from dataclasses import asdict
+from importlib import import_module
 from pathlib import Path
 
 from . import __version__
@@ -21,6 +22,9 @@ from .errors import RankrecError
 from .sources import FORMATS
 
 EXIT_INPUT = 2
+
+# Commands that live beside the code they run; each module has ``register(commands)``.
+_COMMAND_MODULES = ("rankrec.evaluate.command", "rankrec.serve_command")
 
 
 def _progress_bar(description: str, unit: str, total: int | None = None):
@@ -469,6 +473,9 @@ def build_parser() -> argparse.ArgumentParser:
     )
     demo.add_argument("--workdir", default="build/demo", metavar="DIR", help="where the demo store goes")
     demo.set_defaults(run=_cmd_demo)
+
+    for name in _COMMAND_MODULES:
+        import_module(name).register(commands)
     return parser
 
 

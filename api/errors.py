@@ -1,0 +1,76 @@
+"""Errors the service answers with: JSON ``{"error": {"code": ..., "message": ...}}``, never a traceback.
+
+Route code raises :class:`ApiError`; :func:`install_error_handlers` turns it, request-validation
+failures and any unexpected exception into that shape. Codes are stable strings clients may match on.
+"""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+log = logging.getLogger("rankrec.api")
+
+
+class ApiError(Exception):
+    """An error answer: HTTP ``status``, a stable ``code``, a human ``message`` and optional ``details``."""
+
+    def __init__(self, status: int, code: str, message: str, details: dict[str, Any] | None = None) -> None:
+        super().__init__(message)
+        self.status = status
+        self.code = code
+        self.message = message
+        self.details = details
+
+
+def error_body(code: str, message: str, details: dict[str, Any] | None = None) -> dict:
+    """The JSON body of an error answer."""
+    error: dict[str, Any] = {"code": code, "message": message}
+    if details:
+        error["details"] = details
+    return {"error": error}
+
+
+_HTTP_CODES = {
+    401: "unauthorised",
+    403: "forbidden",
+    404: "not_found",
+    405: "method_not_allowed",
+    413: "too_large",
+    415: "unsupported_media_type",
+}
+
+
+def install_error_handlers(app: FastAPI) -> None:
+    """Answer every failure as JSON with a stable code; log unexpected ones without exposing them."""
+
+    @app.exception_handler(ApiError)
+    async def _api_error(request: Request, error: ApiError) -> JSONResponse:
+        return JSONResponse(error_body(error.code, error.message, error.details), status_code=error.status)
+
+    @app.exception_handler(RequestValidationError)
+    async def _invalid(request: Request, error: RequestValidationError) -> JSONResponse:
+        problems = [
+            {"where": ".".join(map(str, problem.get("loc", ()))), "reason": problem.get("msg", "")}
+            for problem in error.errors()
+        ]
+        return JSONResponse(
+            error_body("invalid_request", "the request does not match the schema", {"problems": problems}),
+            status_code=422,
+        )
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http(request: Request, error: StarletteHTTPException) -> JSONResponse:
+        code = _HTTP_CODES.get(error.status_code, "http_error")
+        message = error.detail if isinstance(error.detail, str) else code.replace("_", " ")
+        return JSONResponse(error_body(code, message), status_code=error.status_code, headers=error.headers)
+
+    @app.exception_handler(Exception)
+    async def _unexpected(request: Request, error: Exception) -> JSONResponse:
+        log.exception("unexpected error on %s %s", request.method, request.url.path)
+        return JSONResponse(error_body("internal", "the service failed on this request"), status_code=500)
