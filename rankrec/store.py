@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
+from .errors import InputError, UnknownPage
 
 SCHEMA_VERSION = 1
 
@@ -228,6 +228,87 @@ class Store:
             "INSERT INTO imports (source, format, records, errors) VALUES (?, ?, ?, ?)",
             (source, format, records, errors),
         )
+
+    # -- event log upkeep (each call is its own transaction; not inside :meth:`transaction`) ------
+    def append_views(self, records: Iterable, *, known_pages_only: bool = False) -> int:
+        """Store a batch of views in one durable transaction; returns how many were new.
+
+        ``records`` are objects with ``user``, ``page``, ``timestamp`` and optionally ``dwell``
+        attributes (e.g. :class:`rankrec.sources.records.ViewRecord`). A view already stored, or
+        given twice in the batch, is a duplicate (its identity is ``(user, page, timestamp)``) and
+        is ignored. The connection switches to ``PRAGMA synchronous=FULL`` first, so the batch is
+        on disk when this returns. With ``known_pages_only`` a page the wiki does not hold raises
+        :class:`~rankrec.errors.UnknownPage` and nothing is stored.
+
+        >>> from types import SimpleNamespace as View
+        >>> with Store(":memory:") as store:
+        ...     batch = [View(user="ines", page="ops/db", timestamp=1.0e9)] * 2
+        ...     store.append_views(batch), store.append_views(batch)
+        (1, 0)
+        """
+        rows = [
+            (view.user, view.page, float(view.timestamp), getattr(view, "dwell", None)) for view in records
+        ]
+        self.connection.execute("PRAGMA synchronous=FULL")
+        with self.transaction():
+            if known_pages_only:
+                self._require_present({page for _, page, _, _ in rows})
+            cursor = self.connection.executemany(
+                "INSERT OR IGNORE INTO views (user_id, page_id, timestamp, dwell) VALUES (?, ?, ?, ?)",
+                [(self.user_id(user), self.page_id(page), ts, dwell) for user, page, ts, dwell in rows],
+            )
+            stored = max(cursor.rowcount, 0)
+        return stored
+
+    def _require_present(self, pages: set[str]) -> None:
+        """UnknownPage for the first (by id) of ``pages`` the wiki does not hold."""
+        if not pages:
+            return
+        self.connection.execute("CREATE TEMP TABLE IF NOT EXISTS _wanted (page TEXT PRIMARY KEY)")
+        self.connection.execute("DELETE FROM _wanted")
+        self.connection.executemany("INSERT INTO _wanted (page) VALUES (?)", [(page,) for page in pages])
+        missing = self.connection.execute(
+            "SELECT _wanted.page FROM _wanted LEFT JOIN pages ON pages.page = _wanted.page "
+            "WHERE pages.present IS NOT 1 ORDER BY _wanted.page LIMIT 1"
+        ).fetchone()
+        if missing is not None:
+            raise UnknownPage(missing[0])
+
+    def delete_views_before(self, timestamp: float) -> int:
+        """Delete every view older than ``timestamp`` (Unix seconds); returns how many went.
+
+        >>> from types import SimpleNamespace as View
+        >>> with Store(":memory:") as store:
+        ...     _ = store.append_views([View(user="ines", page="a", timestamp=t) for t in (10, 20, 30)])
+        ...     store.delete_views_before(25), store.counts()["views"]
+        (2, 1)
+        """
+        if isinstance(timestamp, bool) or not isinstance(timestamp, (int, float)) or timestamp != timestamp:
+            raise TypeError(f"timestamp must be Unix seconds (a number), got {timestamp!r}")
+        with self.transaction():
+            cursor = self.connection.execute("DELETE FROM views WHERE timestamp < ?", (float(timestamp),))
+        return cursor.rowcount
+
+    def erase_user(self, user: str) -> int:
+        """Delete every view of ``user``, and the user row unless a membership still names it.
+
+        Returns the number of views deleted (0 for a user the store does not know).
+        """
+        if not isinstance(user, str):
+            raise TypeError(f"user must be a string, got {user!r}")
+        with self.transaction():
+            row = self.connection.execute("SELECT id FROM users WHERE user = ?", (user,)).fetchone()
+            if row is None:
+                return 0
+            cursor = self.connection.execute("DELETE FROM views WHERE user_id = ?", (row[0],))
+            deleted = cursor.rowcount
+            still_named = self.connection.execute(
+                "SELECT 1 FROM memberships WHERE user_id = ? LIMIT 1", (row[0],)
+            ).fetchone()
+            if still_named is None:
+                self.connection.execute("DELETE FROM users WHERE id = ?", (row[0],))
+                self._user_ids.pop(user, None)
+        return deleted
 
     # -- reads -----------------------------------------------------------------------------------
     def scalar(self, sql: str, parameters: tuple = ()):
