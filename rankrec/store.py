@@ -238,7 +238,7 @@ class Store:
         given twice in the batch, is a duplicate (its identity is ``(user, page, timestamp)``) and
         is ignored. The connection switches to ``PRAGMA synchronous=FULL`` first, so the batch is
         on disk when this returns. With ``known_pages_only`` a page the wiki does not hold raises
-        :class:`~rankrec.errors.UnknownPage` and nothing is stored.
+        :class:`~rankrec.errors.UnknownPage` (for the first such record) and nothing is stored.
 
         >>> from types import SimpleNamespace as View
         >>> with Store(":memory:") as store:
@@ -252,7 +252,7 @@ class Store:
         self.connection.execute("PRAGMA synchronous=FULL")
         with self.transaction():
             if known_pages_only:
-                self._require_present({page for _, page, _, _ in rows})
+                self._require_present([page for _, page, _, _ in rows])
             cursor = self.connection.executemany(
                 "INSERT OR IGNORE INTO views (user_id, page_id, timestamp, dwell) VALUES (?, ?, ?, ?)",
                 [(self.user_id(user), self.page_id(page), ts, dwell) for user, page, ts, dwell in rows],
@@ -260,17 +260,20 @@ class Store:
             stored = max(cursor.rowcount, 0)
         return stored
 
-    def _require_present(self, pages: set[str]) -> None:
-        """UnknownPage for the first (by id) of ``pages`` the wiki does not hold."""
+    def _require_present(self, pages: list[str]) -> None:
+        """UnknownPage for the first of ``pages`` (in their order) that the wiki does not hold."""
         if not pages:
             return
-        self.connection.execute("CREATE TEMP TABLE IF NOT EXISTS _wanted (page TEXT PRIMARY KEY)")
+        self.connection.execute(
+            "CREATE TEMP TABLE IF NOT EXISTS _wanted (position INTEGER PRIMARY KEY, page TEXT NOT NULL)"
+        )
         self.connection.execute("DELETE FROM _wanted")
         self.connection.executemany("INSERT INTO _wanted (page) VALUES (?)", [(page,) for page in pages])
         missing = self.connection.execute(
             "SELECT _wanted.page FROM _wanted LEFT JOIN pages ON pages.page = _wanted.page "
-            "WHERE pages.present IS NOT 1 ORDER BY _wanted.page LIMIT 1"
+            "WHERE pages.present IS NOT 1 ORDER BY _wanted.position LIMIT 1"
         ).fetchone()
+        self.connection.execute("DELETE FROM _wanted")
         if missing is not None:
             raise UnknownPage(missing[0])
 

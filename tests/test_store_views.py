@@ -87,6 +87,13 @@ def test_unknown_page_rejects_the_whole_batch(store):
     assert store.append_views(batch[:1], known_pages_only=True) == 1  # the user id cache was reset
 
 
+def test_unknown_page_named_is_the_first_in_batch_order(store):
+    batch = [_view("ines", "ops/db", 1.0), _view("ines", "zz/late", 2.0), _view("ines", "aa/early", 3.0)]
+    with pytest.raises(UnknownPage) as raised:
+        store.append_views(batch, known_pages_only=True)
+    assert raised.value.name == "zz/late"
+
+
 def test_a_page_only_referred_to_is_unknown(store):
     with store.transaction():
         store.put_links([("ops/db", "ops/planned", 1.0)])  # a link target no source described
