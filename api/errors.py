@@ -14,18 +14,59 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from rankrec.errors import (
+    GroupTooSmall,
+    RankrecError,
+    StaleData,
+    UnknownName,
+    UnknownPage,
+    UnknownTeam,
+    UnknownUser,
+)
+
 log = logging.getLogger("rankrec.api")
 
 
 class ApiError(Exception):
     """An error answer: HTTP ``status``, a stable ``code``, a human ``message`` and optional ``details``."""
 
-    def __init__(self, status: int, code: str, message: str, details: dict[str, Any] | None = None) -> None:
+    def __init__(
+        self,
+        status: int,
+        code: str,
+        message: str,
+        details: dict[str, Any] | None = None,
+        headers: dict[str, str] | None = None,
+    ) -> None:
         super().__init__(message)
         self.status = status
         self.code = code
         self.message = message
         self.details = details
+        self.headers = headers
+
+
+def from_library(error: RankrecError) -> ApiError:
+    """The answer to a rankrec domain error (the one place that maps them to HTTP statuses).
+
+    Suggestions are kept for pages (the caller filters them to visible ones) and teams; user ids
+    are never suggested, since they would tell one reader who else uses the wiki.
+    """
+    if isinstance(error, UnknownPage):
+        return ApiError(404, "unknown_page", f"unknown page {error.name!r}", _suggested(error))
+    if isinstance(error, UnknownUser):
+        return ApiError(404, "unknown_user", f"unknown user {error.name!r}")
+    if isinstance(error, UnknownTeam):
+        return ApiError(404, "unknown_team", f"unknown team {error.name!r}", _suggested(error))
+    if isinstance(error, GroupTooSmall):
+        return ApiError(409, "group_too_small", str(error), {"minimum": error.minimum})
+    if isinstance(error, StaleData):
+        return ApiError(503, "stale_index", "the live index does not match the wiki store; rebuild it")
+    return ApiError(422, "invalid_request", "the library refused the request")
+
+
+def _suggested(error: UnknownName) -> dict[str, Any] | None:
+    return {"closest": list(error.suggestions)} if error.suggestions else None
 
 
 def error_body(code: str, message: str, details: dict[str, Any] | None = None) -> dict:
@@ -41,6 +82,7 @@ _HTTP_CODES = {
     403: "forbidden",
     404: "not_found",
     405: "method_not_allowed",
+    409: "conflict",
     413: "too_large",
     415: "unsupported_media_type",
 }
@@ -51,7 +93,11 @@ def install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(ApiError)
     async def _api_error(request: Request, error: ApiError) -> JSONResponse:
-        return JSONResponse(error_body(error.code, error.message, error.details), status_code=error.status)
+        return JSONResponse(
+            error_body(error.code, error.message, error.details),
+            status_code=error.status,
+            headers=error.headers,
+        )
 
     @app.exception_handler(RequestValidationError)
     async def _invalid(request: Request, error: RequestValidationError) -> JSONResponse:

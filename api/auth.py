@@ -1,0 +1,109 @@
+"""Who is calling: bearer tokens from the tokens file, each with a role (reader or admin).
+
+``require_reader`` lets readers and admins through, ``require_admin`` only admins. A missing or
+wrong token answers 401 ``unauthorised``; a token of the wrong role 403 ``forbidden``. Tokens are
+compared by their SHA-256 hashes in constant time (:func:`rankrec.tokens.check_token`); the file
+is read again when it changes, so ``rankrec token add`` takes effect without a restart.
+"""
+
+from __future__ import annotations
+
+import logging
+import threading
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Annotated, Literal
+
+from fastapi import Depends, Request
+from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
+
+from rankrec.errors import InputError
+from rankrec.tokens import check_token, load_tokens
+
+from .errors import ApiError
+
+log = logging.getLogger("rankrec.api")
+_CHALLENGE = {"WWW-Authenticate": "Bearer"}
+_bearer = HTTPBearer(auto_error=False, description="a token made by `rankrec token add`")
+
+
+@dataclass(frozen=True)
+class Caller:
+    """The holder of a valid token: its name and role."""
+
+    name: str
+    role: Literal["reader", "admin"]
+
+
+class TokenTable:
+    """The tokens file's entries, re-read when its modification time or size changes."""
+
+    def __init__(self, path: Path) -> None:
+        self.path = Path(path)
+        self._lock = threading.Lock()
+        self._stamp: tuple | None = None
+        self._entries: tuple = ()
+        self.refresh()
+
+    def _file_stamp(self) -> tuple | None:
+        try:
+            status = self.path.stat()
+        except OSError:
+            return None
+        return (status.st_mtime_ns, status.st_size, status.st_ino)
+
+    def refresh(self) -> None:
+        """Read the file again if it changed; a file that became unreadable keeps the last good entries."""
+        stamp = self._file_stamp()
+        if stamp == self._stamp:
+            return
+        with self._lock:
+            if stamp == self._stamp:
+                return
+            try:
+                self._entries = load_tokens(self.path)
+            except InputError as error:
+                if self._stamp is None:
+                    raise
+                log.error("tokens file refused, keeping the previous tokens: %s", error)
+            self._stamp = stamp
+
+    def check(self, presented: str) -> Caller | None:
+        self.refresh()
+        found = check_token(self._entries, presented)
+        return None if found is None else Caller(name=found[0], role=found[1])
+
+
+def _caller(request: Request, credentials: HTTPAuthorizationCredentials | None) -> Caller:
+    if credentials is None or credentials.scheme.lower() != "bearer" or not credentials.credentials:
+        raise ApiError(
+            401,
+            "unauthorised",
+            "a bearer token is required (Authorization: Bearer TOKEN)",
+            headers=_CHALLENGE,
+        )
+    caller = request.app.state.service.tokens.check(credentials.credentials)
+    if caller is None:
+        raise ApiError(401, "unauthorised", "the bearer token is not valid", headers=_CHALLENGE)
+    return caller
+
+
+_Credentials = Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)]
+
+
+def require_reader(request: Request, credentials: _Credentials) -> Caller:
+    """A caller with a reader or admin token."""
+    return _caller(request, credentials)
+
+
+def require_admin(request: Request, credentials: _Credentials) -> Caller:
+    """A caller with an admin token (403 ``forbidden`` for a reader token)."""
+    caller = _caller(request, credentials)
+    if caller.role != "admin":
+        raise ApiError(403, "forbidden", "this call needs an admin token")
+    return caller
+
+
+#: route parameter types: ``caller: ReaderCaller`` or ``caller: AdminCaller``
+ReaderCaller = Annotated[Caller, Depends(require_reader)]
+AdminCaller = Annotated[Caller, Depends(require_admin)]

@@ -1,0 +1,227 @@
+"""The list routes: related pages, a reader's personal list, a team's landing ordering, page search.
+
+Each route parses, asks the library (:mod:`rankrec.recommend`) and formats; the only thing added
+here is *who may see what*: every list is filtered by the viewer's access groups (no viewer, or a
+viewer the store does not know: pages visible to everyone only), a page the viewer may not see is
+answered like an unknown page, and a personal list is served only for its own viewer or an admin.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+from fastapi import APIRouter, Path, Query, Request
+
+from rankrec.errors import RankrecError, UnknownPage, UnknownUser
+from rankrec.index import Index
+from rankrec.recommend import landing, reader_from_store, recommend, related, team_from_store
+
+from .auth import ReaderCaller
+from .errors import ApiError, from_library
+from .live import Loaded
+from .models import ListResponse, PageMatch, PageSearchResponse, error_responses
+
+TEAM_MIN_READERS = 5  # as `rankrec landing`; not a request option, so no caller can lower it
+SEARCH_SCAN = 5_000  # page ids looked at per search at most (restricted ones are skipped)
+
+_viewer = Query(
+    None, min_length=1, max_length=256, description="the reader the list is shown to (trusted front end)"
+)
+_lift = Query(None, ge=0, le=10, allow_inf_nan=False, description="lift exponent (default: the index's)")
+
+
+def loaded_index(request: Request) -> Loaded:
+    """The live index this request will use throughout (503 ``no_index`` when none is live)."""
+    loaded = request.app.state.service.live.current
+    if loaded is None:
+        raise ApiError(503, "no_index", "no index is live yet")
+    return loaded
+
+
+def _reader(request: Request, loaded: Loaded, viewer: str | None):
+    """The viewer as a library Reader, or None (no viewer, or one the store does not know)."""
+    if viewer is None:
+        return None
+    service = request.app.state.service
+    try:
+        return reader_from_store(service.read_store(loaded.wiki), loaded.index, service.user_id(viewer))
+    except UnknownUser:
+        return None
+
+
+def _may_see(index: Index, number: int, groups: frozenset[str] | None) -> bool:
+    row = index.page_groups
+    codes = row.indices[row.indptr[number] : row.indptr[number + 1]]
+    return codes.size == 0 or any(index.group_names[int(code)] in (groups or ()) for code in codes)
+
+
+def _seed(index: Index, page: str, groups: frozenset[str] | None) -> None:
+    """404 for a page that is unknown or that the viewer may not see (the same answer for both)."""
+    try:
+        number = index.page_number(page)
+    except UnknownPage as error:
+        visible = [name for name in error.suggestions if _may_see(index, index.page_number(name), groups)]
+        raise from_library(UnknownPage(page, visible)) from None
+    if not _may_see(index, number, groups):
+        raise from_library(UnknownPage(page))
+
+
+def _answer(result, loaded: Loaded, subject: str, viewer: str | None) -> ListResponse:
+    return ListResponse(
+        kind=result.kind,
+        subject=subject,
+        viewer=viewer,
+        items=[
+            {**row, "pagerank": item.pagerank} for row, item in zip(result.rows(), result.items, strict=True)
+        ],
+        error_bound=result.error_bound,
+        index=loaded.folder.name,
+    )
+
+
+def make_router(max_k: int) -> APIRouter:
+    """The list routes, with ``k`` bounded by ``max_k``."""
+    router = APIRouter(prefix="/v1", tags=["lists"])
+    bounded_k = {"ge": 1, "le": max_k, "description": f"how many pages (at most {max_k})"}
+
+    @router.get(
+        "/pages/{page:path}/related",
+        response_model=ListResponse,
+        responses=error_responses(401, 404, 422, 503),
+        summary="Pages related to a page",
+    )
+    def related_pages(
+        request: Request,
+        caller: ReaderCaller,
+        page: str = Path(description="page id, percent-encoded (a '/' travels as %2F)"),
+        viewer: str | None = _viewer,
+        k: int = Query(10, **bounded_k),
+        exclude_linked: bool = Query(False, description="leave out pages the page links to"),
+        lift: float | None = _lift,
+        per_space: int | None = Query(None, ge=1, le=max_k, description="at most this many from one space"),
+    ) -> ListResponse:
+        loaded = loaded_index(request)
+        reader = _reader(request, loaded, viewer)
+        _seed(loaded.index, page, None if reader is None else reader.groups)
+        try:
+            result = related(
+                loaded.index,
+                page,
+                reader=reader,
+                k=k,
+                exclude_linked=exclude_linked,
+                lift=lift,
+                per_space=per_space,
+            )
+        except RankrecError as error:
+            raise from_library(error) from None
+        return _answer(result, loaded, page, None if reader is None else viewer)
+
+    @router.get(
+        "/users/{user}/recommendations",
+        response_model=ListResponse,
+        responses=error_responses(401, 403, 404, 422, 503),
+        summary="A reader's personal list",
+    )
+    def recommendations(
+        request: Request,
+        caller: ReaderCaller,
+        user: str = Path(min_length=1, max_length=256),
+        viewer: str | None = Query(
+            None, min_length=1, max_length=256, description="must equal user (admins may leave it out)"
+        ),
+        k: int = Query(10, **bounded_k),
+        include_read: bool = Query(False, description="keep pages the user read in the last 30 days"),
+        lift: float | None = _lift,
+        per_space: int | None = Query(None, ge=1, le=max_k),
+    ) -> ListResponse:
+        if (viewer is None and caller.role != "admin") or (viewer is not None and viewer != user):
+            raise ApiError(403, "forbidden", "a personal list is served only to its own viewer or an admin")
+        loaded = loaded_index(request)
+        service = request.app.state.service
+        try:
+            reader = reader_from_store(service.read_store(loaded.wiki), loaded.index, service.user_id(user))
+            result = recommend(
+                loaded.index, reader, k=k, exclude_read=not include_read, lift=lift, per_space=per_space
+            )
+        except RankrecError as error:
+            if isinstance(error, UnknownUser):
+                raise ApiError(404, "unknown_user", f"unknown user {user!r}") from None
+            raise from_library(error) from None
+        return _answer(result, loaded, user, user)
+
+    @router.get(
+        "/teams/{team}/landing",
+        response_model=ListResponse,
+        responses=error_responses(401, 404, 409, 422, 503),
+        summary="A team's landing ordering",
+    )
+    def team_landing(
+        request: Request,
+        caller: ReaderCaller,
+        team: str = Path(min_length=1, max_length=256),
+        viewer: str | None = _viewer,
+        k: int = Query(20, **bounded_k),
+        lift: float | None = _lift,
+        per_space: int | None = Query(None, ge=1, le=max_k),
+    ) -> ListResponse:
+        loaded = loaded_index(request)
+        service = request.app.state.service
+        reader = _reader(request, loaded, viewer)
+        try:
+            found = team_from_store(
+                service.read_store(loaded.wiki), loaded.index, team, min_readers=TEAM_MIN_READERS
+            )
+            audience = loaded.index.visible(None if reader is None else reader.groups)
+            found = dataclasses.replace(found, visible=found.visible & audience)
+            result = landing(loaded.index, found, k=k, lift=lift, per_space=per_space)
+        except RankrecError as error:
+            raise from_library(error) from None
+        return _answer(result, loaded, team, None if reader is None else viewer)
+
+    @router.get(
+        "/pages",
+        response_model=PageSearchResponse,
+        responses=error_responses(401, 422, 503),
+        summary="Pages whose id starts with a prefix",
+    )
+    def search_pages(
+        request: Request,
+        caller: ReaderCaller,
+        prefix: str = Query("", max_length=256),
+        viewer: str | None = _viewer,
+        limit: int = Query(20, ge=1, le=100),
+    ) -> PageSearchResponse:
+        loaded = loaded_index(request)
+        reader = _reader(request, loaded, viewer)
+        groups = None if reader is None else reader.groups
+        index = loaded.index
+        found = []
+        for number in _prefixed(index, prefix):
+            if _may_see(index, number, groups) and not index.archived[number]:
+                found.append(
+                    PageMatch(
+                        page=index.pages[number], title=index.titles[number], space=index.space_of(number)
+                    )
+                )
+                if len(found) == limit:
+                    break
+        return PageSearchResponse(pages=found)
+
+    return router
+
+
+def _prefixed(index: Index, prefix: str):
+    """Page numbers whose id starts with ``prefix``, in id order (binary search, then a bounded scan)."""
+    low, high = 0, index.size
+    while low < high:
+        middle = (low + high) // 2
+        if index.pages[int(index.page_order[middle])] < prefix:
+            low = middle + 1
+        else:
+            high = middle
+    for position in range(low, min(index.size, low + SEARCH_SCAN)):
+        number = int(index.page_order[position])
+        if not index.pages[number].startswith(prefix):
+            return
+        yield number

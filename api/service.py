@@ -1,0 +1,76 @@
+"""The state one service instance holds: settings, the live index, tokens, store connections, metrics.
+
+``app.state.service`` is a :class:`Service`. Route modules reach everything through it:
+``service.live.current`` (the :class:`api.live.Loaded` a request should hold on to),
+``service.read_store(wiki)`` (a read connection for the calling thread), ``service.user_id(name)``
+(the id as stored: pseudonymised when a key is configured), ``service.registry`` (the
+prometheus registry of this app; other modules register their own metrics on it).
+"""
+
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+
+from prometheus_client import CollectorRegistry
+
+from rankrec.store import Store
+
+from .auth import TokenTable
+from .live import LiveIndex
+from .settings import ServiceSettings
+
+
+class Service:
+    """Everything the routes share; made once by :func:`api.app.create_app`."""
+
+    def __init__(self, settings: ServiceSettings) -> None:
+        self.settings = settings
+        self.registry = CollectorRegistry(auto_describe=True)
+        self.tokens = TokenTable(settings.tokens)
+        self.live = LiveIndex(settings.index, settings.wiki)
+        self._key = self._pseudonym_key(settings.pseudonym_key)
+        self._local = threading.local()
+        self._opened: list[Store] = []
+        self._opened_lock = threading.Lock()
+
+    @staticmethod
+    def _pseudonym_key(path: Path | None) -> bytes | None:
+        if path is None:
+            return None
+        from rankrec.privacy import load_key
+
+        return load_key(path)
+
+    @property
+    def pseudonymous(self) -> bool:
+        return self._key is not None
+
+    def user_id(self, user: str) -> str:
+        """The id under which ``user`` is stored: its keyed pseudonym when a key is configured."""
+        if self._key is None:
+            return user
+        from rankrec.privacy import pseudonym
+
+        return pseudonym(self._key, user)
+
+    def read_store(self, wiki: Path) -> Store:
+        """A store connection for reading, one per thread and store file (kept open for reuse)."""
+        stores = getattr(self._local, "stores", None)
+        if stores is None:
+            stores = self._local.stores = {}
+        store = stores.get(wiki)
+        if store is None:
+            store = stores[wiki] = Store(wiki, create=False)
+            with self._opened_lock:
+                self._opened.append(store)
+        return store
+
+    def close(self) -> None:
+        """Stop the watcher and close every store connection opened for reading."""
+        self.live.stop_watching()
+        with self._opened_lock:
+            for store in self._opened:
+                store.close()
+            self._opened.clear()
+        self._local = threading.local()
