@@ -1,0 +1,226 @@
+"""HTTP load on the related-pages route, with the in-process library call beside it.
+
+Run: `python -m tests.bench.bench_serve [--pages N] [--seconds S] [--max-requests N] [--clients C]`
+
+It writes an invented wiki of ``--pages`` pages (`rankrec synth`, layout "tables"), imports it,
+builds an index with every page's related list precomputed, and serves it with uvicorn in a
+child process on loopback (one worker; ``--http httptools`` / ``--loop uvloop`` only when those
+are installed). The load generator runs on the same machine in this process: ``--clients``
+threads, each with its own keep-alive ``httpx.Client``, asking ``GET /v1/pages/{page}/related``
+for seeded random pages (public lists, k=10) for ``--seconds`` or ``--max-requests``, whichever
+comes first, after a one-second warm-up. It prints requests per second, p50/p90/p99 latency,
+errors, the load average, and the in-process time of ``related()`` for the same pages (the ratio
+is what the HTTP layer costs). Target on a 2-core machine, generator included: >= 1,000 req/s,
+p99 < 25 ms, no errors.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib.util
+import itertools
+import json
+import os
+import socket
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+from urllib.parse import quote
+
+import numpy as np
+
+PROJECT = Path(__file__).resolve().parents[2]
+
+
+def _free_port() -> int:
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return probe.getsockname()[1]
+
+
+def _server_command(port: int) -> list[str]:
+    command = [sys.executable, "-m", "uvicorn", "api.app:app_from_environment", "--factory"]
+    command += ["--host", "127.0.0.1", "--port", str(port), "--workers", "1"]
+    command += ["--log-level", "warning", "--no-access-log"]
+    if importlib.util.find_spec("httptools") is not None:
+        command += ["--http", "httptools"]
+    if importlib.util.find_spec("uvloop") is not None:
+        command += ["--loop", "uvloop"]
+    return command
+
+
+def _start_server(workdir: Path, index: Path, wiki: Path) -> tuple[subprocess.Popen, str, str, list[str]]:
+    from api.settings import ServiceSettings
+    from rankrec.tokens import add_token
+
+    tokens = workdir / "tokens.json"
+    token = add_token(tokens, "bench-frontend", "reader")
+    settings = ServiceSettings(index=index, tokens=tokens, wiki=wiki, watch_seconds=0)
+    port = _free_port()
+    command = _server_command(port)
+    server = subprocess.Popen(
+        command, cwd=PROJECT, env={**os.environ, **settings.environment()}, stdout=subprocess.DEVNULL
+    )
+    base = f"http://127.0.0.1:{port}"
+    _wait_healthy(server, base)
+    return server, base, token, command
+
+
+def _wait_healthy(server: subprocess.Popen, base: str, seconds: float = 60.0) -> None:
+    import httpx
+
+    deadline = time.monotonic() + seconds
+    while time.monotonic() < deadline:
+        if server.poll() is not None:
+            raise RuntimeError(f"the server exited with status {server.returncode} before answering")
+        try:
+            if httpx.get(base + "/v1/health", timeout=1.0).status_code == 200:
+                return
+        except httpx.TransportError:
+            pass
+        time.sleep(0.1)
+    raise RuntimeError(f"the server did not answer /v1/health within {seconds} s")
+
+
+class _Load:
+    """Closed-loop load: each client thread sends its next request when the previous one answered."""
+
+    def __init__(self, base: str, token: str, paths: list[str], clients: int) -> None:
+        self.base, self.token, self.paths, self.clients = base, token, paths, clients
+
+    def run(self, seconds: float, max_requests: int) -> dict:
+        import httpx
+
+        tickets = itertools.count()
+        deadline = time.perf_counter() + seconds
+        latencies: list[list[float]] = [[] for _ in range(self.clients)]
+        errors: list[list[str]] = [[] for _ in range(self.clients)]
+
+        def client(number: int) -> None:
+            rng = np.random.default_rng(1000 + number)
+            headers = {"Authorization": f"Bearer {self.token}"}
+            with httpx.Client(base_url=self.base, headers=headers, timeout=10.0) as session:
+                while next(tickets) < max_requests and time.perf_counter() < deadline:
+                    path = self.paths[int(rng.integers(len(self.paths)))]
+                    started = time.perf_counter()
+                    try:
+                        answer = session.get(path)
+                        if answer.status_code != 200:
+                            errors[number].append(f"HTTP {answer.status_code}")
+                    except httpx.HTTPError as error:
+                        errors[number].append(type(error).__name__)
+                    latencies[number].append(time.perf_counter() - started)
+
+        threads = [threading.Thread(target=client, args=(n,)) for n in range(self.clients)]
+        started = time.perf_counter()
+        for thread in threads:
+            thread.start()
+        for thread in threads:
+            thread.join()
+        wall = time.perf_counter() - started
+        values = np.concatenate([np.array(found) for found in latencies]) * 1000.0
+        problems = [problem for found in errors for problem in found]
+        return {
+            "clients": self.clients,
+            "requests": int(values.size),
+            "seconds": round(wall, 2),
+            "requests_per_second": round(values.size / wall, 1),
+            "p50_ms": round(float(np.percentile(values, 50)), 2),
+            "p90_ms": round(float(np.percentile(values, 90)), 2),
+            "p99_ms": round(float(np.percentile(values, 99)), 2),
+            "max_ms": round(float(values.max()), 2),
+            "errors": len(problems),
+            "error_kinds": sorted(set(problems))[:5],
+        }
+
+
+def _in_process(index_folder: Path, pages: list[str]) -> dict:
+    from rankrec.index import load_index
+    from rankrec.recommend import related
+
+    index = load_index(index_folder)
+    for page in pages[:50]:
+        related(index, page, k=10)  # warm the memory map, as the server's warm-up does
+    samples = []
+    for page in pages:
+        started = time.perf_counter()
+        related(index, page, k=10)
+        samples.append(time.perf_counter() - started)
+    values = np.array(samples) * 1000.0
+    return {
+        "calls": len(samples),
+        "p50_ms": round(float(np.percentile(values, 50)), 3),
+        "p99_ms": round(float(np.percentile(values, 99)), 3),
+    }
+
+
+def _build(wiki: Path, target: Path) -> float:
+    script = (
+        "import sys; from rankrec.index import build_index; from rankrec.store import Store\n"
+        "with Store(sys.argv[1], create=False) as store: build_index(store, sys.argv[2], workers=2)\n"
+    )
+    started = time.perf_counter()
+    subprocess.run([sys.executable, "-c", script, str(wiki), str(target)], check=True, cwd=PROJECT)
+    return time.perf_counter() - started
+
+
+def main(argv: list[str]) -> None:
+    parser = argparse.ArgumentParser(description=__doc__)
+    parser.add_argument("--pages", type=int, default=20_000, help="pages of the invented wiki")
+    parser.add_argument("--seconds", type=float, default=10.0, help="length of the measured run")
+    parser.add_argument("--max-requests", type=int, default=50_000, help="stop after this many requests")
+    parser.add_argument("--clients", type=int, default=8, help="concurrent keep-alive clients (threads)")
+    parser.add_argument("--sample", type=int, default=2_000, help="distinct pages asked for")
+    args = parser.parse_args(argv)
+    from tests.bench.bench_recommend import _make_store
+
+    with tempfile.TemporaryDirectory(prefix="rankrec-bench-serve-") as scratch:
+        workdir = Path(scratch)
+        wiki = _make_store(args.pages, workdir)
+        index_folder = workdir / "index"
+        print(f"build: {_build(wiki, index_folder):.1f} s", flush=True)
+        from rankrec.index import load_index
+
+        index = load_index(index_folder)
+        precomputed = np.flatnonzero(np.asarray(index.related["row"]) >= 0)
+        public = precomputed[np.asarray(index.public)[precomputed]]
+        rng = np.random.default_rng(7)
+        chosen = rng.choice(public, size=min(args.sample, public.size), replace=False)
+        pages = [index.pages[int(number)] for number in chosen]
+        del index
+        paths = [f"/v1/pages/{quote(page, safe='')}/related?k=10" for page in pages]
+        server, base, token, command = _start_server(workdir, index_folder, wiki)
+        try:
+            load = _Load(base, token, paths, args.clients)
+            load.run(1.0, 2_000)  # warm-up, not counted
+            before = os.getloadavg()
+            measured = load.run(args.seconds, args.max_requests)
+            after = os.getloadavg()
+        finally:
+            server.terminate()
+            server.wait(timeout=30)
+        library = _in_process(index_folder, pages)
+        report = {
+            "server": " ".join(Path(part).name if part == sys.executable else part for part in command[1:]),
+            "pages": args.pages,
+            "http": measured,
+            "library_related": library,
+            "ratio_p50_http_to_library": round(measured["p50_ms"] / max(library["p50_ms"], 1e-6), 1),
+            "load_average_before": [round(value, 2) for value in before],
+            "load_average_after": [round(value, 2) for value in after],
+            "cpus": os.cpu_count(),
+        }
+        print(json.dumps(report, indent=2), flush=True)
+        verdict = (
+            measured["requests_per_second"] >= 1000 and measured["p99_ms"] < 25 and measured["errors"] == 0
+        )
+        print(
+            f"target (>= 1,000 req/s, p99 < 25 ms, no errors): {'met' if verdict else 'NOT met'}", flush=True
+        )
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])
