@@ -2,10 +2,8 @@
 
 from __future__ import annotations
 
-import shutil
 import threading
 import time
-import warnings
 from datetime import UTC, datetime
 from urllib.parse import quote
 
@@ -13,46 +11,33 @@ import pytest
 
 from api.app import create_app
 from api.settings import ServiceSettings
-from rankrec.demo import import_demo
-from rankrec.index import build_index
 from rankrec.privacy import new_key, pseudonym
 from rankrec.store import Store
-from rankrec.tokens import add_token
 
-with warnings.catch_warnings():  # starlette asks for its httpx fork; plain httpx works the same here
-    warnings.simplefilter("ignore", DeprecationWarning)
-    from fastapi.testclient import TestClient
+from .conftest import TestClient
 
 NOW = time.time()
 
 
 @pytest.fixture(scope="module")
-def built(tmp_path_factory):
-    """The demo wiki imported and indexed once; tests write to copies of its store."""
-    folder = tmp_path_factory.mktemp("views-world")
-    wiki = import_demo(folder)
-    with Store(wiki) as store:
-        build_index(store, folder / "index")
-        pages = [row[0] for row in store.connection.execute("SELECT page FROM pages WHERE present = 1")]
-    tokens = folder / "tokens.json"
-    reader, admin = add_token(tokens, "frontend", "reader"), add_token(tokens, "operator", "admin")
-    return {"folder": folder, "wiki": wiki, "pages": sorted(pages), "reader": reader, "admin": admin}
+def pages(demo) -> list[str]:
+    with Store(demo["wiki"], create=False) as store:
+        return sorted(row[0] for row in store.connection.execute("SELECT page FROM pages WHERE present = 1"))
 
 
 @pytest.fixture
-def world(built, tmp_path):
-    """A fresh copy of the store per test (the index is shared, read-only)."""
+def world(demo, pages, tmp_path):
+    """The demo service's paths with a store of this test's own (the index is shared, read-only)."""
     wiki = tmp_path / "wiki.db"
-    with Store(built["wiki"], create=False) as store:
-        store.connection.execute("PRAGMA wal_checkpoint(TRUNCATE)")
-    shutil.copyfile(built["wiki"], wiki)
-    return {**built, "wiki": wiki}
+    with Store(demo["wiki"], create=False) as source, Store(wiki) as copy:
+        source.connection.backup(copy.connection)  # SQLite online backup: a consistent copy, WAL included
+    return {**demo, "wiki": wiki, "pages": pages}
 
 
 def _client(world, **overrides) -> TestClient:
     settings = ServiceSettings(
-        index=world["folder"] / "index",
-        tokens=world["folder"] / "tokens.json",
+        index=world["index"],
+        tokens=world["tokens"],
         wiki=world["wiki"],
         watch_seconds=0,
         **overrides,
@@ -247,9 +232,7 @@ def test_reader_tokens_may_not_erase_or_apply_retention(world, method, path):
 
 
 def test_no_live_index_and_no_store_setting_is_unavailable(world, tmp_path):
-    settings = ServiceSettings(
-        index=tmp_path / "none", tokens=world["folder"] / "tokens.json", watch_seconds=0
-    )
+    settings = ServiceSettings(index=tmp_path / "none", tokens=world["tokens"], watch_seconds=0)
     with TestClient(create_app(settings)) as client:
         answer = _post(client, world, [{"user": "hv-x", "page": world["pages"][0], "timestamp": 1}])
     assert answer.status_code == 503 and answer.json()["error"]["code"] == "no_index"
