@@ -142,7 +142,7 @@ class ViewKeeper:
         with self._lock:
             try:
                 if self._store is None or Path(self._store.path) != wiki:
-                    self.close_store()
+                    self._close()
                     self._store = Store(wiki, create=False)
                 return action(self._store)
             except sqlite3.OperationalError as error:  # locked by an import, disk full, ...
@@ -152,6 +152,11 @@ class ViewKeeper:
                 ) from None
 
     def close_store(self) -> None:
+        """Close the write connection once the write in progress (if any) is done."""
+        with self._lock:
+            self._close()
+
+    def _close(self) -> None:
         if self._store is not None:
             self._store.close()
             self._store = None

@@ -354,3 +354,22 @@ def test_openapi_documents_the_views_models(world):
     assert batch["additionalProperties"] is False
     assert schema["components"]["schemas"]["ViewIn"]["additionalProperties"] is False
     assert "422" in schema["paths"]["/v1/views"]["post"]["responses"]
+
+
+def test_closing_waits_for_the_write_in_progress(world):
+    # regression: shutting down while the startup retention ran closed the connection under it (a crash)
+    with _client(world) as client:
+        keeper = client.app.state.views
+        started, results = threading.Event(), []
+
+        def slow_write(store: Store) -> int:
+            started.set()
+            time.sleep(0.3)
+            return store.scalar("SELECT count(*) FROM views")
+
+        writer = threading.Thread(target=lambda: results.append(keeper.write(slow_write)))
+        writer.start()
+        started.wait(5)
+        keeper.close_store()  # must block until slow_write is done
+        assert results and results[0] == _count(world)
+        writer.join()
