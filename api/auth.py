@@ -41,9 +41,8 @@ class TokenTable:
     def __init__(self, path: Path) -> None:
         self.path = Path(path)
         self._lock = threading.Lock()
-        self._stamp: tuple | None = None
-        self._entries: tuple = ()
-        self.refresh()
+        self._stamp = self._file_stamp()
+        self._entries: tuple = load_tokens(self.path)  # InputError: the service does not start
 
     def _file_stamp(self) -> tuple | None:
         try:
@@ -63,8 +62,6 @@ class TokenTable:
             try:
                 self._entries = load_tokens(self.path)
             except InputError as error:
-                if self._stamp is None:
-                    raise
                 log.error("tokens file refused, keeping the previous tokens: %s", error)
             self._stamp = stamp
 
