@@ -2,6 +2,167 @@
 
 from __future__ import annotations
 
+import argparse
+import sys
+
+from ..sources._fields import FieldError, parse_timestamp
+from .splits import SESSION_GAP_SECONDS
+
+EXIT_USAGE = 2  # as rankrec.cli: bad input or usage
+
+
+def _cutoff(text: str) -> float:
+    try:
+        return parse_timestamp(text, now=float("inf"))
+    except FieldError as error:
+        raise argparse.ArgumentTypeError(str(error)) from None
+
+
+def _numbers(text: str) -> tuple[float, ...]:
+    try:
+        values = tuple(float(part) for part in text.split(",") if part.strip())
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected comma-separated numbers, got {text!r}") from None
+    if not values:
+        raise argparse.ArgumentTypeError(f"expected at least one number, got {text!r}")
+    return values
+
+
+def _ks(text: str) -> tuple[int, ...]:
+    try:
+        values = tuple(int(part) for part in text.split(",") if part.strip())
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected comma-separated list lengths, got {text!r}") from None
+    if not values or min(values) < 1:
+        raise argparse.ArgumentTypeError(f"list lengths must be integers >= 1, got {text!r}")
+    return values
+
+
+def _bar(total: int):
+    from tqdm import tqdm
+
+    return tqdm(total=total, desc="evaluating", unit="step", leave=False, disable=None)
+
+
+def evaluate(args: argparse.Namespace, out=None) -> int:
+    """Run ``rankrec evaluate``; prints the headline table and where the report is."""
+    from .method import Configuration
+    from .report import write_report
+    from .run import load_data, make_split, open_store, run_evaluation
+    from .sweeps import Grid
+
+    out = out or sys.stdout
+    try:  # settings first, so that a bad value costs no reading
+        start = Configuration(damping=args.damping, half_life_days=args.half_life, blend=args.blend,
+                              lift=args.lift)
+        grid = None
+        if not args.no_sweep:
+            defaults = Grid()
+            grid = Grid(
+                damping=args.grid_damping or defaults.damping, lift=args.grid_lift or defaults.lift,
+                half_life_days=args.grid_half_life or defaults.half_life_days,
+                blend=args.grid_blend or defaults.blend,
+            )
+        for name in ("samples", "workers", "prefix", "last"):
+            if getattr(args, name) < 1:
+                raise ValueError(f"--{name} must be at least 1; got {getattr(args, name)!r}")
+        if not 0 < args.test_share < 1 or args.gap <= 0:
+            raise ValueError(f"--test-share must lie in (0, 1) and --gap be positive; got "
+                             f"{args.test_share!r} and {args.gap!r}")
+    except ValueError as error:
+        print(f"rankrec evaluate: {error}", file=sys.stderr)
+        return EXIT_USAGE
+    with open_store(args.wiki) as store:
+        data = load_data(store)
+    split = make_split(data, args.split, cutoff=args.cutoff, test_share=args.test_share, gap=args.gap,
+                       n=args.last, prefix=args.prefix)
+    bar = _bar(None)
+    try:
+        def progress(description: str, done: int, total: int) -> None:
+            bar.total = total
+            bar.set_description(description[:40], refresh=False)
+            bar.update(done - bar.n)
+
+        evaluation = run_evaluation(data, split, grid=grid, start=start, ks=args.k, samples=args.samples,
+                                    seed=args.seed, workers=args.workers, progress=progress)
+    finally:
+        bar.close()
+    write_report(evaluation, args.report)
+    _summary(evaluation, out)
+    out.write(f"report written to {args.report} (report.md, results.json, plots)\n")
+    return 0
+
+
+def _summary(evaluation, out) -> None:
+    k = evaluation.settings["headline_k"]
+    shown = (f"ndcg@{k}", f"recall@{k}", f"hit_rate@{k}", "mrr", f"coverage@{k}")
+    width = max(len(name) for name in evaluation.methods)
+    out.write(f"{'method':<{width}}  " + "  ".join(f"{name:>11}" for name in shown) + "\n")
+    for name, scores in evaluation.methods.items():
+        cells = ("-" if scores.means.get(m) is None else f"{scores.means[m]:.4f}" for m in shown)
+        out.write(f"{name:<{width}}  " + "  ".join(f"{cell:>11}" for cell in cells) + "\n")
+    found = evaluation.comparison["metrics"].get(f"ndcg@{k}")
+    configuration = evaluation.configuration.as_dict()
+    shown_configuration = ", ".join(f"{key} {value:g}" for key, value in configuration.items())
+    out.write(f"rankrec configuration: {shown_configuration}\n")
+    if found is not None:
+        low, high = found["ci95"]
+        out.write(f"rankrec − {evaluation.best_baseline} (best baseline), ndcg@{k}: "
+                  f"{found['difference']:+.4f}, 95% interval [{low:+.4f}, {high:+.4f}]\n")
+
 
 def register(commands) -> None:
     """Add the ``evaluate`` sub-command to an ``argparse`` sub-parsers object."""
+    command = commands.add_parser(
+        "evaluate",
+        help="offline evaluation: rankrec against simple baselines on the store's own history",
+        description=(
+            "Split the store's views so that nothing of the test period reaches any model, choose rankrec's "
+            "damping, half-life, navigation blend and lift on a validation split carved from the training "
+            "part, and compare rankrec with random, most-read, global PageRank, out-links, co-visitation and "
+            "team-most-read lists on the test split. Writes DIR/report.md, DIR/results.json and PNG plots "
+            "(the folder is replaced as a whole)."
+        ),
+    )
+    command.add_argument("--wiki", required=True, metavar="WIKI.db", help="the wiki store")
+    command.add_argument("--report", required=True, metavar="DIR", help="the report folder to (re)place")
+    command.add_argument(
+        "--split", default="temporal", choices=("temporal", "last-n", "sessions"),
+        help="temporal: each reader's new pages after a global cutoff (default); last-n: each reader's "
+             "last N views; sessions: given a session's first page(s), the pages it goes on to",
+    )
+    command.add_argument(
+        "--cutoff", type=_cutoff, metavar="ISO-DATE",
+        help="start of the test period (default: the last --test-share of the time span)",
+    )
+    command.add_argument("--test-share", type=float, default=0.2, metavar="S",
+                         help="share of the time span that is test when no cutoff is given (0.2)")
+    command.add_argument("--gap", type=float, default=SESSION_GAP_SECONDS, metavar="SECONDS",
+                         help="inactivity that ends a session, in seconds (1800)")
+    command.add_argument("--prefix", type=int, default=1, metavar="P",
+                         help="sessions: pages of each session given as the query (1)")
+    command.add_argument("--last", type=int, default=1, metavar="N",
+                         help="last-n: views held out per reader (1)")
+    command.add_argument("-k", type=_ks, default=(1, 3, 5, 10, 20), metavar="K,K,...",
+                         help="list lengths to score (default 1,3,5,10,20; the headline is 10 when listed)")
+    command.add_argument("--seed", type=int, default=0,
+                         help="seed of the random baseline and the bootstrap (0)")
+    command.add_argument("--samples", type=int, default=1000, metavar="B", help="bootstrap resamples (1000)")
+    command.add_argument("--workers", type=int, default=1, metavar="N",
+                         help="threads of the power iteration (1)")
+    settings = command.add_argument_group("rankrec's settings (the sweeps start from these)")
+    settings.add_argument("--damping", type=float, default=0.85,
+                          help="probability of following a link (0.85)")
+    settings.add_argument("--half-life", type=float, default=30.0, metavar="DAYS",
+                          help="half-life of a view in a reader's profile (30 days)")
+    settings.add_argument("--blend", type=float, default=0.3, metavar="W",
+                          help="share of a page's row given to observed navigation (0.3)")
+    settings.add_argument("--lift", type=float, default=0.5, metavar="B",
+                          help="rank by score / global^B (0.5)")
+    settings.add_argument("--no-sweep", action="store_true", help="use these settings as they are")
+    grid = command.add_argument_group("sweep grids (comma-separated values)")
+    grid.add_argument("--grid-damping", type=_numbers, metavar="V,V,...", help="default 0.5,0.7,0.85,0.95")
+    grid.add_argument("--grid-lift", type=_numbers, metavar="V,V,...", help="default 0,0.25,0.5,0.75,1")
+    grid.add_argument("--grid-half-life", type=_numbers, metavar="V,V,...", help="default 7,30,90,365 (days)")
+    grid.add_argument("--grid-blend", type=_numbers, metavar="V,V,...", help="default 0,0.3,0.6,0.9")
+    command.set_defaults(run=evaluate)

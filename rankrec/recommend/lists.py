@@ -79,8 +79,102 @@ def _lift(index: Index, lift: float | None) -> float:
     return float(lift)
 
 
+def _lifted(values: np.ndarray, global_values: np.ndarray, lift: float) -> np.ndarray:
+    """The ranking score ``value / global^lift`` (plain values when ``lift`` is 0)."""
+    return values / np.power(global_values, lift) if lift else np.asarray(values, dtype=float)
+
+
 def _ranked(index: Index, pages: np.ndarray, values: np.ndarray, lift: float) -> np.ndarray:
-    return values / np.power(np.asarray(index.global_vector)[pages], lift) if lift else values.astype(float)
+    return _lifted(values, np.asarray(index.global_vector)[pages], lift)
+
+
+_SELECT_CELLS = 1 << 22  # pages x columns handled at once when filling short lists
+
+
+def select_pages(vectors, global_vector, eligible, k: int, *, lift: float) -> np.ndarray:
+    """The best ``k`` eligible pages of each column of ``vectors``: the ranking every list uses.
+
+    Pages with a positive score come first, ranked by ``score / global^lift`` (``lift`` 0: by
+    score); the places left go to the other eligible pages by global PageRank. Ties go to the
+    lower page number. Serving calls it for one vector; offline evaluation for blocks of them.
+
+    Parameters
+    ----------
+    vectors : array of shape (n,) or (n, q)
+        PageRank scores, one column per list.
+    global_vector : array of shape (n,)
+        Global PageRank (positive).
+    eligible : bool array of shape (n,) or like ``vectors``
+        Pages the list may hold.
+    k : int
+        Length of each list.
+    lift : float
+        Lift exponent, >= 0.
+
+    Returns
+    -------
+    int64 array of shape (k,) or (q, k): page numbers, best first, ``-1`` padded at the tail
+    when fewer than ``k`` pages are eligible.
+
+    >>> select_pages(np.array([0.5, 0.0, 0.2, 0.3]), np.array([0.5, 0.1, 0.1, 0.3]),
+    ...              np.array([True, True, True, False]), 3, lift=1.0).tolist()
+    [2, 0, 1]
+    """
+    k = check_count("k", k)
+    if check_real("lift", lift) < 0:
+        raise ValueError(f"lift must not be negative; got {lift!r}")
+    scores = np.asarray(vectors, dtype=np.float64)
+    single = scores.ndim == 1
+    scores = scores[:, None] if single else scores
+    if scores.ndim != 2:
+        raise ValueError(f"vectors must have shape (n,) or (n, q); got {np.shape(vectors)!r}")
+    n, columns = scores.shape
+    overall = np.asarray(global_vector, dtype=np.float64)
+    allowed = np.asarray(eligible, dtype=bool)
+    allowed = allowed[:, None] if allowed.ndim == 1 else allowed
+    if overall.shape != (n,) or allowed.shape[0] != n or allowed.shape[1] not in (1, columns):
+        raise ValueError(
+            f"global_vector {overall.shape!r} and eligible {np.shape(eligible)!r} must match vectors "
+            f"{np.shape(vectors)!r}"
+        )
+    positive = allowed & (scores > 0)
+    ranked = np.where(positive, _lifted(scores, overall[:, None], lift), -np.inf)
+    lists = _top_of_columns(ranked, k)
+    found = (lists >= 0).sum(axis=1)
+    short = np.flatnonzero(found < k)
+    if short.size:
+        order = np.lexsort((np.arange(n), -overall))  # global PageRank, ties to the lower page
+        step = max(1, _SELECT_CELLS // max(n, 1))
+        for start in range(0, short.size, step):
+            chunk = short[start:start + step]
+            usable = allowed[:, chunk] if allowed.shape[1] > 1 else np.broadcast_to(allowed, (n, chunk.size))
+            free = (usable & ~positive[:, chunk])[order]
+            rank = np.cumsum(free, axis=0) - 1
+            take = free & (rank < (k - found[chunk])[None, :])
+            rows, cols = np.nonzero(take)
+            lists[chunk[cols], found[chunk[cols]] + rank[rows, cols]] = order[rows]
+    return lists[0] if single else lists
+
+
+def _top_of_columns(ranked: np.ndarray, k: int) -> np.ndarray:
+    """(columns, k): each column's ``k`` largest finite entries, best first, ties to the lower row."""
+    n, columns = ranked.shape
+    width = min(k, n)
+    lists = np.full((columns, k), -1, dtype=np.int64)
+    if width == 0 or columns == 0:
+        return lists
+    threshold = -np.partition(-ranked, width - 1, axis=0)[width - 1]
+    above = ranked > threshold
+    level = ranked == threshold
+    wanted = width - above.sum(axis=0)
+    chosen = above | (level & (np.cumsum(level, axis=0) <= wanted))
+    cols, rows = np.nonzero(chosen.T)  # grouped by column, width entries each
+    rows = rows.reshape(columns, width)
+    values = np.take_along_axis(ranked.T, rows, axis=1)
+    order = np.lexsort((rows, -values), axis=-1)
+    rows, values = np.take_along_axis(rows, order, 1), np.take_along_axis(values, order, 1)
+    lists[:, :width] = np.where(np.isfinite(values), rows, -1)
+    return lists
 
 
 def _per_space(index: Index, ordered: np.ndarray, k: int, per_space: int | None, taken: dict) -> list[int]:
@@ -101,6 +195,9 @@ def _select(
     index: Index, vector: np.ndarray, eligible: np.ndarray, k: int, lift: float, per_space: int | None
 ) -> np.ndarray:
     """Best ``k`` eligible pages: positive scores first, then eligible pages by global PageRank."""
+    if per_space is None:
+        chosen = select_pages(vector, index.global_vector, eligible, k, lift=lift)
+        return chosen[chosen >= 0]
     positive = np.flatnonzero(eligible & (vector > 0))
     scores = _ranked(index, positive, vector[positive], lift)
     taken: dict = {}

@@ -1,0 +1,352 @@
+"""One offline evaluation of a wiki store: data, split, sweeps, every method, metrics, intervals, comparison.
+
+:func:`load_data` reads the store once (links, views, spaces, teams) into page numbers; :func:`make_split`
+cuts the views; :func:`run_evaluation` then
+
+1. carves the validation split from the training part (:func:`rankrec.evaluate.sweeps.validation_split`)
+   and scores every baseline on it (nDCG@k), which names the best baseline;
+2. chooses rankrec's configuration on the same validation split (:func:`choose_configuration`);
+3. runs every baseline and rankrec (chosen configuration) on the *one* test split, scores every list with
+   :func:`rankrec.evaluate.metrics.evaluate_lists` (plus graded nDCG and catalogue coverage), gives each
+   per-user metric a percentile bootstrap 95% interval over queries, and compares rankrec with the best
+   baseline (and nDCG/hit rate with every baseline) by paired bootstrap.
+
+The test split's held-out pages are read only in step 3, to score lists already made.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import scipy.sparse as sp
+
+from .._validation import check_choice, check_count, check_fraction, check_positive
+from ..errors import InputError
+from ..graph import dense_numbers, load_graph
+from ..store import Store
+from .baselines import (
+    CoVisitation,
+    GlobalPageRank,
+    MostRead,
+    OutLinks,
+    RandomPages,
+    TeamMostRead,
+    check_recommendations,
+    training_counts,
+)
+from .errors import CutoffOutsideSpan, NothingToEvaluate
+from .method import Configuration, PersonalisedPageRank
+from .metrics import coverage, evaluate_lists, ndcg
+from .splits import SESSION_GAP_SECONDS, Split, last_n_split, session_split, temporal_split, training_pages
+from .statistics import bootstrap_ci, paired_difference
+from .sweeps import Choice, Grid, choose_configuration, mean_metric, validation_split
+
+SPLITS = ("temporal", "last-n", "sessions")
+DEFAULT_KS = (1, 3, 5, 10, 20)
+LEVEL = 0.95
+DEFAULT_GRID = Grid()
+DEFAULT_CONFIGURATION = Configuration()
+Progress = Callable[[str, int, int], object]
+
+
+@dataclass(frozen=True, eq=False)
+class EvaluationData:
+    """A store's links and views in page numbers: everything an evaluation reads from it.
+
+    ``users`` are the store's user row ids (codes), ``teams[user]`` a team code or -1, ``space`` each
+    page's space code (``space_names``; pages without a space share the code of ``"(none)"``).
+    """
+
+    store: str
+    pages: np.ndarray
+    adjacency: sp.csr_matrix
+    users: np.ndarray
+    viewed: np.ndarray
+    times: np.ndarray
+    space: np.ndarray
+    space_names: tuple[str, ...]
+    teams: np.ndarray | None
+    team_names: tuple[str, ...]
+    fingerprint: str
+    counts: dict = field(default_factory=dict)
+
+    @property
+    def size(self) -> int:
+        return int(self.pages.size)
+
+
+def _fingerprint(pages, adjacency, users, viewed, times, teams) -> str:
+    digest = hashlib.sha256()
+    digest.update("\0".join(map(str, pages.tolist())).encode())
+    for array in (adjacency.indptr, adjacency.indices, adjacency.data, users, viewed, times):
+        digest.update(np.ascontiguousarray(array).tobytes())
+    if teams is not None:
+        digest.update(np.ascontiguousarray(teams).tobytes())
+    return digest.hexdigest()[:16]
+
+
+def load_data(store: Store) -> EvaluationData:
+    """Read ``store`` for an evaluation; InputError when it holds fewer than two pages or no views."""
+    graph = load_graph(store)
+    if graph.size < 2:
+        raise InputError(store.path, None, "the wiki store holds fewer than two pages; import some first")
+    users, viewed, times = store.view_arrays()
+    dense = dense_numbers(graph.row_ids, viewed)
+    inside = dense >= 0
+    if not inside.any():
+        raise InputError(store.path, None, "the wiki store holds no views of its pages; import view events "
+                         "first (rankrec import VIEWS.csv --wiki ...)")
+    rows = store.connection.execute("SELECT id, space FROM pages WHERE present = 1 ORDER BY id").fetchall()
+    names = ["(none)" if row[1] is None else str(row[1]) for row in rows]
+    space_names, space = np.unique(np.array(names, dtype=object), return_inverse=True)
+    memberships = store.connection.execute(
+        "SELECT user_id, name FROM memberships WHERE kind = 'team' ORDER BY name, user_id").fetchall()
+    teams, team_names = None, ()
+    if memberships:
+        team_names = tuple(sorted({name for _, name in memberships}))
+        top = max(int(users.max(initial=0)), max(user for user, _ in memberships))
+        teams = np.full(top + 1, -1, dtype=np.int64)
+        for user, name in reversed(memberships):  # a member of several teams counts in the first by name
+            teams[user] = team_names.index(name)
+    users, dense, times = users[inside], dense[inside], times[inside]
+    adjacency = sp.csr_matrix(graph.adjacency)
+    counts = {"pages": graph.size, "links": int(adjacency.nnz), "views": int(inside.sum()),
+              "views_outside_the_graph": int((~inside).sum()), "users": int(np.unique(users).size),
+              "spaces": len(space_names), "teams": len(team_names)}
+    return EvaluationData(
+        store=str(store.path), pages=graph.pages, adjacency=adjacency, users=users, viewed=dense,
+        times=times, space=space.astype(np.int64).ravel(), space_names=tuple(map(str, space_names)),
+        teams=teams, team_names=team_names,
+        fingerprint=_fingerprint(graph.pages, adjacency, users, dense, times, teams), counts=counts,
+    )
+
+
+def make_split(
+    data: EvaluationData, kind: str = "temporal", *, cutoff: float | None = None, test_share: float = 0.2,
+    gap: float = SESSION_GAP_SECONDS, n: int = 1, prefix: int = 1,
+) -> Split:
+    """The test split of ``kind`` (graded gains: binary metrics count any held-out view, graded nDCG their
+    number). ``cutoff`` (Unix seconds) must lie inside the views' span (CutoffOutsideSpan); for ``last-n``
+    it sets the share of the span whose last views are held out."""
+    check_choice("kind", kind, SPLITS)
+    check_fraction("test_share", test_share, open_low=True, open_high=True)
+    check_positive("gap", gap)
+    first, last = float(data.times.min()), float(data.times.max())
+    if cutoff is not None and not first < cutoff <= last:
+        raise CutoffOutsideSpan(cutoff, first, last)
+    views = (data.users, data.viewed, data.times, data.size)
+    if kind == "temporal":
+        split = temporal_split(*views, test_share=test_share, cutoff=cutoff, gains="graded")
+    elif kind == "sessions":
+        split = session_split(*views, gap=gap, test_share=test_share, cutoff=cutoff, prefix=prefix,
+                              gains="graded")
+    else:
+        share = test_share if cutoff is None else (last - cutoff) / (last - first)
+        split = last_n_split(*views, n=n, test_share=share, gains="graded")
+    if len(split.queries) == 0:
+        reason = ", ".join(f"{name.replace('_', ' ')} {value}" for name, value in split.counts.items())
+        raise NothingToEvaluate("test", kind, reason)
+    return split
+
+
+def baselines(data: EvaluationData, split: Split, *, seed: int = 0) -> list:
+    """Every baseline that the data allows (team-most-read needs teams), each with ``recommend(split, k)``."""
+    found = [
+        RandomPages(seed=seed),
+        MostRead(),
+        GlobalPageRank(data.adjacency),
+        OutLinks(data.adjacency),
+        CoVisitation(gap=split.settings.get("gap", SESSION_GAP_SECONDS)),
+    ]
+    if data.teams is not None:
+        top = max(int(split.train.users.max(initial=0)), int(split.queries.users.max(initial=0)))
+        teams = np.full(max(top + 1, data.teams.size), -1, dtype=np.int64)
+        teams[: data.teams.size] = data.teams
+        found.append(TeamMostRead(teams))
+    return found
+
+
+@dataclass(frozen=True, eq=False)
+class MethodScores:
+    """One method on the test split: metric means, their 95% intervals, and the per-query values."""
+
+    name: str
+    means: dict
+    ci95: dict
+    per_query: dict
+    seconds: float
+
+
+@dataclass(frozen=True, eq=False)
+class Evaluation:
+    """Everything a report shows (see :mod:`rankrec.evaluate.report`)."""
+
+    settings: dict
+    split: Split
+    methods: dict
+    validation_scores: dict
+    best_baseline: str
+    comparison: dict
+    choice: Choice | None
+    configuration: Configuration
+    seconds: dict
+
+
+def _scores(lists: np.ndarray, split: Split, ks, popularity, data, visited) -> tuple[dict, dict]:
+    per_query = evaluate_lists(lists, split.relevant, ks=ks, popularity=popularity,
+                               space_of_page=data.space, visited=visited)
+    for k in ks:
+        per_query[f"ndcg_graded@{k}"] = ndcg(lists, split.relevant, k, gains="graded")
+    catalogue = {f"coverage@{k}": coverage(lists, split.size, k=k) for k in ks}
+    return per_query, catalogue
+
+
+def _mean(values: np.ndarray) -> float | None:
+    return float(np.nanmean(values)) if np.isfinite(values).any() else None
+
+
+def run_evaluation(
+    data: EvaluationData,
+    split: Split,
+    *,
+    grid: Grid | None = DEFAULT_GRID,
+    start: Configuration = DEFAULT_CONFIGURATION,
+    ks: Sequence[int] = DEFAULT_KS,
+    samples: int = 1000,
+    seed: int = 0,
+    tol: float = 1e-6,
+    workers: int = 1,
+    progress: Progress | None = None,
+) -> Evaluation:
+    """Evaluate every baseline and rankrec on ``split`` (see the module docstring).
+
+    ``grid`` None skips the sweeps (rankrec runs with ``start``) and, when the training part yields no
+    validation split, the best baseline is then named on the test split (the report says so).
+    """
+    ks = tuple(sorted({check_count("ks", k) for k in ks}))
+    if not ks:
+        raise ValueError(f"ks must hold at least one list length; got {ks!r}")
+    samples = check_count("samples", samples)
+    headline = 10 if 10 in ks else ks[-1]
+    methods = baselines(data, split, seed=seed)
+    total = (grid.solves if grid is not None else 0) + 2 * len(methods) + 2
+    done = [0]
+
+    def advance(description: str) -> None:
+        done[0] += 1
+        if progress is not None:
+            progress(description, min(done[0], total), total)
+
+    started = time.perf_counter()
+    try:
+        validation = validation_split(split)
+    except NothingToEvaluate:
+        if grid is not None:
+            raise
+        validation = None
+    validation_scores = {}
+    if validation is not None:
+        for method in methods:
+            validation_scores[method.name] = mean_metric(method.recommend(validation, headline), validation,
+                                                         headline)
+            advance(f"validation: {method.name}")
+    choice = None
+    configuration = start
+    if grid is not None:
+        choice = choose_configuration(split, data.adjacency, grid=grid, start=start, k=headline, tol=tol,
+                                      workers=workers, validation=validation, progress=advance)
+        configuration = choice.configuration
+        validation_scores["rankrec"] = choice.score
+    seconds = {"validation": time.perf_counter() - started}
+    rankrec = PersonalisedPageRank(data.adjacency, configuration, tol=tol, workers=workers)
+    popularity = training_counts(split.train)
+    visited = training_pages(split)
+    scored = {}
+    for method in [*methods, rankrec]:
+        begun = time.perf_counter()
+        lists = check_recommendations(split, method.recommend(split, ks[-1]), ks[-1])
+        elapsed = time.perf_counter() - begun
+        per_query, catalogue = _scores(lists, split, ks, popularity, data, visited)
+        means = {name: _mean(values) for name, values in per_query.items()} | catalogue
+        scored[method.name] = MethodScores(method.name, means, {}, per_query, elapsed)
+        advance(f"test: {method.name}")
+    for number, scores in enumerate(scored.values()):
+        for index, (name, values) in enumerate(sorted(scores.per_query.items())):
+            if np.isfinite(values).any():
+                rng = np.random.default_rng([seed, number, index])
+                scores.ci95[name] = list(bootstrap_ci(values, samples=samples, level=LEVEL, seed=rng,
+                                                      groups=split.queries.users))
+    advance("bootstrap intervals")
+    chosen_on = "validation" if validation_scores else "test"
+    ranking = validation_scores if validation_scores else {
+        name: scores.means[f"ndcg@{headline}"] for name, scores in scored.items()}
+    candidates = [method.name for method in methods]
+    best = max(candidates, key=lambda name: (_finite(ranking.get(name)), -candidates.index(name)))
+    comparison = _comparison(scored, best, candidates, headline, samples, seed, chosen_on,
+                             split.queries.users)
+    seconds["total"] = time.perf_counter() - started
+    settings = {
+        "split": {"name": split.name, **dict(split.settings)},
+        "counts": {"test": dict(split.counts), "validation": None if validation is None else
+                   dict(validation.counts)},
+        "ks": list(ks),
+        "headline_k": headline,
+        "bootstrap": {"samples": samples, "level": LEVEL, "seed": seed, "unit": "user"},
+        "grid": None if grid is None else {name: list(getattr(grid, name)) for name in
+                                           ("damping", "lift", "half_life_days", "blend")},
+        "start": start.as_dict(),
+        "rankrec": configuration.as_dict(),
+        "chosen_by": None if grid is None else f"mean ndcg@{headline} on the validation split",
+        "tol": tol,
+        "data": {"store": data.store, "fingerprint": data.fingerprint, **data.counts},
+    }
+    advance("comparison")
+    return Evaluation(settings, split, scored, validation_scores, best, comparison, choice, configuration,
+                      seconds)
+
+
+def _finite(value) -> float:
+    return float(value) if value is not None and np.isfinite(value) else -np.inf
+
+
+def _paired(a: np.ndarray, b: np.ndarray, samples: int, rng, users: np.ndarray) -> dict | None:
+    if not (np.isfinite(a) & np.isfinite(b)).any():
+        return None
+    result = paired_difference(a, b, samples=samples, level=LEVEL, seed=rng, groups=users)
+    return {"difference": result.mean_difference, "ci95": [result.low, result.high],
+            "share_rankrec_better": result.share_a_better, "queries": result.users}
+
+
+def _comparison(scored, best, candidates, k, samples, seed, chosen_on, users) -> dict:
+    """rankrec minus the best baseline on every per-query metric at ``k`` (and MRR), paired by query;
+    nDCG@k and hit rate@k against every baseline. Users are resampled whole."""
+    ours = scored["rankrec"].per_query
+    shown = [name for name in ours if name.endswith(f"@{k}") or name == "mrr"]
+    metrics = {}
+    for index, name in enumerate(shown):
+        rng = np.random.default_rng([seed, 1000, index])
+        found = _paired(ours[name], scored[best].per_query[name], samples, rng, users)
+        if found is not None:
+            metrics[name] = {"rankrec": scored["rankrec"].means[name], best: scored[best].means[name],
+                             **found}
+    every = {}
+    for number, baseline in enumerate(candidates):
+        every[baseline] = {}
+        for index, name in enumerate((f"ndcg@{k}", f"hit_rate@{k}")):
+            rng = np.random.default_rng([seed, 2000 + number, index])
+            every[baseline][name] = _paired(ours[name], scored[baseline].per_query[name], samples, rng,
+                                            users)
+    return {"rankrec_vs": best, "best_baseline_chosen_on": f"{chosen_on} ndcg@{k}", "level": LEVEL,
+            "metrics": metrics, "against_every_baseline": every}
+
+
+def open_store(path: str | Path) -> Store:
+    """The store at ``path`` (InputError when there is no such file: evaluation never creates one)."""
+    if not Path(path).is_file():
+        raise InputError(str(path), None, "no wiki store here; create one with `rankrec import`")
+    return Store(path, create=False)

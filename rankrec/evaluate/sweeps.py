@@ -1,0 +1,181 @@
+"""Choosing rankrec's settings on a validation split carved from the training part, never on the test split.
+
+:func:`validation_split` applies the test split's own rule (same kind, same settings) to ``split.train``
+alone: the last ``test_share`` of the *training* span becomes the validation period. So every view the
+choice sees is a training view of the test split, and the test period cannot reach it.
+
+:func:`choose_configuration` then runs two 2-D sweeps on that validation split, each scored by the
+mean nDCG@k over its queries:
+
+1. damping factor × lift exponent (half-life and blend at their starting values; every lift of one
+   damping comes from one solve);
+2. half-life × navigation blend weight, at the best damping and lift of the first sweep (the session
+   task restarts from the session's pages, so half-life has no effect there and only blend is swept).
+
+The chosen configuration is the best of every configuration evaluated (ties: the first evaluated).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field, replace
+from types import MappingProxyType
+
+import numpy as np
+
+from .._validation import check_count
+from .errors import NothingToEvaluate
+from .method import Configuration, rankrec_lists
+from .metrics import evaluate_lists
+from .splits import Split, last_n_split, session_split, temporal_split
+
+Progress = Callable[[str], object]
+
+
+@dataclass(frozen=True)
+class Grid:
+    """The values each sweep tries (common practice: damping around the classic 0.85; half-lives from a
+    week to a year; blend and lift over their whole useful range)."""
+
+    damping: tuple[float, ...] = (0.5, 0.7, 0.85, 0.95)
+    lift: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75, 1.0)
+    half_life_days: tuple[float, ...] = (7.0, 30.0, 90.0, 365.0)
+    blend: tuple[float, ...] = (0.0, 0.3, 0.6, 0.9)
+
+    def __post_init__(self) -> None:
+        for name in ("damping", "lift", "half_life_days", "blend"):
+            values = tuple(float(value) for value in getattr(self, name))
+            if not values:
+                raise ValueError(f"grid {name} must hold at least one value; got {getattr(self, name)!r}")
+            for value in values:  # Configuration validates each value's range
+                Configuration(**{name: value})
+            object.__setattr__(self, name, values)
+
+    @property
+    def solves(self) -> int:
+        """Upper bound of the personalised PageRank runs (one per damping, then per half-life × blend)."""
+        return len(self.damping) + len(self.half_life_days) * len(self.blend)
+
+
+@dataclass(frozen=True, eq=False)
+class Sweep:
+    """One 2-D sweep: ``scores[i, j]`` is the validation metric at ``rows[i]``, ``columns[j]``."""
+
+    row_name: str
+    column_name: str
+    rows: tuple[float, ...]
+    columns: tuple[float, ...]
+    scores: np.ndarray
+    fixed: MappingProxyType = field(default_factory=lambda: MappingProxyType({}))
+
+    def best(self) -> tuple[float, float, float]:
+        """(row value, column value, score) of the best cell; ties to the first in row-major order."""
+        position = int(np.nanargmax(self.scores)) if np.isfinite(self.scores).any() else 0
+        row, column = divmod(position, len(self.columns))
+        return self.rows[row], self.columns[column], float(self.scores[row, column])
+
+
+@dataclass(frozen=True, eq=False)
+class Choice:
+    """The configuration a validation split chose, with the sweeps that chose it."""
+
+    configuration: Configuration
+    metric: str
+    score: float
+    sweeps: tuple[Sweep, ...]
+    validation: Split
+    notes: tuple[str, ...] = ()
+
+
+def validation_split(split: Split) -> Split:
+    """A split of the same kind and settings made from ``split.train`` alone (see the module docstring).
+
+    Raises NothingToEvaluate when the training part yields no validation query.
+    """
+    train, settings = split.train, dict(split.settings)
+    arguments = (train.users, train.pages, train.times, train.size)
+    if split.name == "temporal":
+        made = temporal_split(*arguments, test_share=settings["test_share"],
+                              min_train_views=settings["min_train_views"], new_only=settings["new_only"],
+                              gains=settings["gains"])
+    elif split.name == "last-n":
+        made = last_n_split(*arguments, n=settings["n"], test_share=settings["test_share"],
+                            global_cap=settings["global_cap"], min_train_views=settings["min_train_views"],
+                            new_only=settings["new_only"], gains=settings["gains"])
+    elif split.name == "sessions":
+        made = session_split(*arguments, gap=settings["gap"], test_share=settings["test_share"],
+                             prefix=settings["prefix"], gains=settings["gains"])
+    else:
+        raise ValueError(f"split.name must be 'temporal', 'last-n' or 'sessions'; got {split.name!r}")
+    if len(made.queries) == 0:
+        raise NothingToEvaluate("validation", split.name, "the training part is too short or too sparse; "
+                                "choose a later cutoff or skip the sweeps")
+    return made
+
+
+def mean_metric(lists: np.ndarray, split: Split, k: int) -> float:
+    """Mean binary nDCG@k of ``lists`` over the split's queries (the sweeps' criterion)."""
+    values = evaluate_lists(lists, split.relevant, ks=(k,))[f"ndcg@{k}"]
+    return float(np.nanmean(values)) if np.isfinite(values).any() else float("nan")
+
+
+def choose_configuration(
+    split: Split,
+    adjacency,
+    *,
+    grid: Grid | None = None,
+    start: Configuration | None = None,
+    k: int = 10,
+    gap: float | None = None,
+    tol: float = 1e-6,
+    workers: int = 1,
+    validation: Split | None = None,
+    progress: Progress | None = None,
+) -> Choice:
+    """Sweep ``grid`` on the validation split of ``split`` and return the best configuration.
+
+    ``validation`` may pass the split from :func:`validation_split` (made once for baselines and
+    sweeps alike); ``progress(description)`` is called after every solve. Only ``split.train`` is read.
+    """
+    k = check_count("k", k)
+    grid = Grid() if grid is None else grid
+    start = Configuration() if start is None else start
+    validation = validation_split(split) if validation is None else validation
+    metric = f"ndcg@{k}"
+    tried: list[tuple[float, Configuration]] = []
+
+    def solve(configuration: Configuration, lifts) -> dict[float, float]:
+        found = rankrec_lists(validation, adjacency, k, configuration, lifts=lifts, gap=gap, tol=tol,
+                              workers=workers)
+        scores = {lift: mean_metric(lists, validation, k) for lift, lists in found.items()}
+        for lift, score in scores.items():
+            tried.append((score, replace(configuration, lift=lift)))
+        if progress is not None:
+            progress(f"sweep {configuration.as_dict()}")
+        return scores
+
+    first = np.full((len(grid.damping), len(grid.lift)), np.nan)
+    for row, damping in enumerate(grid.damping):
+        scores = solve(replace(start, damping=damping), grid.lift)
+        first[row] = [scores[lift] for lift in grid.lift]
+    damping_sweep = Sweep("damping", "lift", grid.damping, grid.lift, first, MappingProxyType(
+        {"half_life_days": start.half_life_days, "blend": start.blend}))
+    damping, lift, _ = damping_sweep.best()
+    notes = []
+    half_lives = grid.half_life_days
+    if split.task == "sessions":
+        half_lives = (start.half_life_days,)
+        notes.append("half-life is not swept: the session task restarts from the session's own pages")
+    second = np.full((len(half_lives), len(grid.blend)), np.nan)
+    for row, half_life in enumerate(half_lives):
+        for column, blend in enumerate(grid.blend):
+            configuration = Configuration(damping=damping, half_life_days=half_life, blend=blend, lift=lift)
+            second[row, column] = solve(configuration, (lift,))[lift]
+    history_sweep = Sweep("half_life_days", "blend", half_lives, grid.blend, second, MappingProxyType(
+        {"damping": damping, "lift": lift}))
+    finite = [(score, position) for position, (score, _) in enumerate(tried) if np.isfinite(score)]
+    if not finite:
+        raise NothingToEvaluate("validation", split.name, f"no configuration has a defined {metric}")
+    best = max(finite, key=lambda pair: (pair[0], -pair[1]))[1]
+    score, chosen = tried[best]
+    return Choice(chosen, metric, float(score), (damping_sweep, history_sweep), validation, tuple(notes))
