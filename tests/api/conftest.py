@@ -87,7 +87,7 @@ def odd(tmp_path_factory, demo) -> dict:
 
 
 def settings_for(paths: dict, **options) -> ServiceSettings:
-    return ServiceSettings(index=paths["index"], tokens=paths["tokens"], watch_seconds=0, **options)
+    return ServiceSettings(index=paths["index"], tokens=paths["tokens"], **{"watch_seconds": 0, **options})
 
 
 @pytest.fixture(scope="session")
