@@ -112,6 +112,12 @@ def install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(StarletteHTTPException)
     async def _http(request: Request, error: StarletteHTTPException) -> JSONResponse:
+        if (
+            error.status_code == 400
+        ):  # FastAPI: a body it could not parse (e.g. not UTF-8); as its JSON errors
+            return JSONResponse(
+                error_body("invalid_request", "the request body could not be parsed"), status_code=422
+            )
         code = _HTTP_CODES.get(error.status_code, "http_error")
         message = error.detail if isinstance(error.detail, str) else code.replace("_", " ")
         return JSONResponse(error_body(code, message), status_code=error.status_code, headers=error.headers)
