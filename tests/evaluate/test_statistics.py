@@ -114,3 +114,33 @@ def test_bad_arguments_are_refused():
         bootstrap_ci([1.0, np.inf])
     with pytest.raises(ValueError, match="1-D"):
         bootstrap_ci([[1.0, 2.0]])
+
+
+# ------------------------------------------------------------------------------- users with several values
+
+
+def test_groups_of_one_are_the_plain_bootstrap_draw_for_draw():
+    values = np.random.default_rng(3).random(40)
+    plain = bootstrap_ci(values, samples=300, seed=5)
+    grouped = bootstrap_ci(values, samples=300, seed=5, groups=np.arange(40) * 7)  # codes in value order
+    assert grouped == pytest.approx(plain, abs=1e-12)
+
+
+def test_a_user_repeated_counts_once():
+    # Davison & Hinkley, Bootstrap Methods and their Application (1997), section 3.8: resample clusters whole.
+    # A user whose value appears three times is one cluster; the ratio of sums then equals the mean of the
+    # per-user values, so the interval is the plain bootstrap of one value per user with the same draws.
+    per_user = np.random.default_rng(4).random(30)
+    repeated = np.repeat(per_user, 3)
+    users = np.repeat(np.arange(30), 3)
+    plain = bootstrap_ci(per_user, samples=400, seed=8)
+    assert bootstrap_ci(repeated, samples=400, seed=8, groups=users) == pytest.approx(plain, abs=1e-12)
+    naive = bootstrap_ci(repeated, samples=400, seed=8)  # treating the copies as independent: too narrow
+    assert naive[1] - naive[0] < 0.75 * (plain[1] - plain[0])
+    paired = paired_difference(repeated, np.zeros(90), samples=400, seed=8, groups=users)
+    assert (paired.low, paired.high) == pytest.approx(plain, abs=1e-12) and paired.users == 90
+
+
+def test_groups_must_match_the_values():
+    with pytest.raises(ValueError, match="groups"):
+        bootstrap_ci([0.1, 0.2, 0.3], groups=[0, 1])

@@ -1,0 +1,92 @@
+"""Sweeps choose on a validation split carved from the training part; the test split cannot sway them."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from rankrec.evaluate.errors import NothingToEvaluate
+from rankrec.evaluate.method import Configuration, rankrec_lists
+from rankrec.evaluate.splits import assert_no_leakage, last_n_split, session_split, temporal_split
+from rankrec.evaluate.sweeps import Grid, choose_configuration, mean_metric, validation_split
+from tests.evaluate.test_baselines import _random_graph, _random_views
+
+SMALL = Grid(damping=(0.6, 0.85), lift=(0.0, 1.0), half_life_days=(1.0, 30.0), blend=(0.0, 0.5))
+
+
+def _splits(kind: str, views, later_pages=None):
+    users, pages, times, size = views
+    if later_pages is not None:
+        pages = later_pages
+    if kind == "temporal":
+        return temporal_split(users, pages, times, size, cutoff=14_000.0)
+    if kind == "last-n":
+        return last_n_split(users, pages, times, size, n=2, test_share=0.3)
+    return session_split(users, pages, times, size, cutoff=14_000.0, gap=300.0)
+
+
+@pytest.mark.parametrize("kind", ["temporal", "last-n", "sessions"])
+def test_validation_split_is_made_of_training_views_only(kind):
+    views = _random_views(2, views=900, span=20_000.0)
+    split = _splits(kind, views)
+    validation = validation_split(split)
+    assert validation.name == split.name and dict(validation.settings).keys() == dict(split.settings).keys()
+    assert_no_leakage(validation)
+    # every view the validation split holds (training or held out) is a training view of the test split
+    train = {(int(u), int(p), float(t)) for u, p, t in zip(split.train.users, split.train.pages,
+                                                          split.train.times, strict=True)}
+    for part in (validation.train, validation.held_out):
+        seen = zip(part.users, part.pages, part.times, strict=True)
+        assert {(int(u), int(p), float(t)) for u, p, t in seen} <= train
+    assert validation.train_until <= split.train_until
+
+
+@pytest.mark.parametrize("kind", ["temporal", "sessions"])
+def test_the_test_period_does_not_influence_the_choice(kind):
+    views = _random_views(4, views=900, span=20_000.0)
+    users, pages, times, size = views
+    later = times >= 14_000.0
+    shuffled = pages.copy()
+    shuffled[later] = np.random.default_rng(9).integers(0, size, int(later.sum()))
+    first, second = _splits(kind, views), _splits(kind, views, later_pages=shuffled)
+    assert not np.array_equal(first.held_out.pages, second.held_out.pages)  # the test splits differ
+    adjacency = _random_graph(size, 4)
+    a = choose_configuration(first, adjacency, grid=SMALL)
+    b = choose_configuration(second, adjacency, grid=SMALL)
+    assert a.configuration == b.configuration and a.score == b.score
+    for one, other in zip(a.sweeps, b.sweeps, strict=True):
+        assert np.array_equal(one.scores, other.scores, equal_nan=True)
+
+
+def test_the_choice_is_the_best_cell_and_its_score_is_recomputable():
+    views = _random_views(6, views=900, span=20_000.0)
+    split = _splits("temporal", views)
+    adjacency = _random_graph(views[3], 6)
+    choice = choose_configuration(split, adjacency, grid=SMALL, k=5)
+    cells = np.concatenate([sweep.scores.ravel() for sweep in choice.sweeps])
+    assert choice.score == pytest.approx(np.nanmax(cells))
+    assert choice.sweeps[0].scores.shape == (2, 2) and choice.sweeps[1].scores.shape == (2, 2)
+    # the score is what the chosen configuration earns on the validation split, computed afresh
+    lists = rankrec_lists(choice.validation, adjacency, 5, choice.configuration)[choice.configuration.lift]
+    assert mean_metric(lists, choice.validation, 5) == pytest.approx(choice.score)
+
+
+def test_session_task_does_not_sweep_half_life():
+    views = _random_views(8, views=900, span=20_000.0)
+    split = _splits("sessions", views)
+    choice = choose_configuration(split, _random_graph(views[3], 8), grid=SMALL,
+                                  start=Configuration(half_life_days=30.0))
+    assert choice.sweeps[1].rows == (30.0,) and choice.notes
+
+
+def test_a_training_part_without_validation_queries_is_refused():
+    split = temporal_split([0, 0], [0, 1], [0.0, 10.0], 3, cutoff=5.0)  # one training view in all
+    with pytest.raises(NothingToEvaluate, match="validation"):
+        validation_split(split)
+
+
+def test_grid_refuses_empty_or_out_of_range_values():
+    with pytest.raises(ValueError, match="damping"):
+        Grid(damping=())
+    with pytest.raises(ValueError, match="blend"):
+        Grid(blend=(0.2, 2.0))
