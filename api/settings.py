@@ -94,13 +94,13 @@ class ServiceSettings:
     def from_environment(cls, environ: Mapping[str, str] | None = None) -> ServiceSettings:
         """Settings from ``RANKREC_SERVE_<FIELD>`` variables (``os.environ`` by default).
 
-        ``INDEX`` and ``TOKENS`` are required; empty optional values mean None.
+        ``INDEX`` and ``TOKENS`` are required; an empty value counts as unset (the default).
         """
         environ = os.environ if environ is None else environ
         values = {}
         for field in fields(cls):
             key = PREFIX + field.name.upper()
-            if key not in environ:
+            if not environ.get(key):  # unset or empty: the default
                 continue
             try:
                 values[field.name] = _CASTS[field.name](environ[key])
