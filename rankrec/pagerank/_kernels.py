@@ -90,78 +90,86 @@ def column_mass(x, rows):  # pragma: no cover
     return mass
 
 
-@njit(cache=True)
+@njit(cache=True, boundscheck=False)
+def _queue_if_over(hot, queue, head, size, n, v):  # pragma: no cover
+    """Append page ``v`` to the circular queue if its residual exceeds its (positive) threshold."""
+    threshold = hot[2 * v + 1]
+    if threshold > 0.0 and hot[2 * v] > threshold:
+        at = head + size
+        if at >= n:
+            at -= n
+        queue[at] = v
+        hot[2 * v + 1] = -threshold
+        return size + 1
+    return size
+
+
+@njit(cache=True, boundscheck=False)
 def forward_push(  # pragma: no cover
     indptr, indices, data, out_degree, seeds, seed_weights, damping, epsilon, max_pushes, workspace
 ):
     """Forward push from a seed distribution; dangling pages send their mass back to the seeds.
 
-    ``workspace`` = (estimate, residual, queue, queued, seen, touched) of length n, all zero / False on
-    entry; only the touched entries are written, and they are reset before returning, so the arrays can
-    serve the next call without an O(n) clearing pass.
+    ``workspace`` = (hot, estimate, queue, touched). ``hot`` interleaves, per page ``v``, the residual
+    ``hot[2v]`` and the push threshold ``hot[2v + 1]`` (0: not yet touched; > 0: touched; < 0: queued),
+    so that visiting a link reads one cache line. All entries are zero on entry; the caller reads and
+    then clears the ``touched[:count]`` entries (see :func:`clear_touched`), so the arrays can serve the
+    next call without an O(n) clearing pass.
 
-    Returns (touched pages, their estimates, their residuals, pushes, converged).
+    Returns (count of touched pages, pushes, converged).
     """
-    estimate, residual, queue, queued, seen, touched = workspace
+    hot, estimate, queue, touched = workspace
     n = indptr.size - 1
     count = 0
     head = 0
     size = 0
     for s in range(seeds.size):
         u = seeds[s]
-        residual[u] += seed_weights[s]
-        if not seen[u]:
-            seen[u] = True
+        if hot[2 * u + 1] == 0.0:
+            hot[2 * u + 1] = epsilon * max(out_degree[u], 1)
             touched[count] = u
             count += 1
+        hot[2 * u] += seed_weights[s]
     for s in range(seeds.size):
-        u = seeds[s]
-        if not queued[u] and residual[u] > epsilon * max(out_degree[u], 1):
-            queued[u] = True
-            queue[(head + size) % n] = u
-            size += 1
+        size = _queue_if_over(hot, queue, head, size, n, seeds[s])
     pushes = 0
     while size > 0 and pushes < max_pushes:
         u = queue[head]
-        head = (head + 1) % n
+        head = head + 1 if head + 1 < n else 0
         size -= 1
-        queued[u] = False
-        mass = residual[u]
-        if mass <= epsilon * max(out_degree[u], 1):
-            continue
-        residual[u] = 0.0
+        hot[2 * u + 1] = -hot[2 * u + 1]
+        mass = hot[2 * u]
+        hot[2 * u] = 0.0
         estimate[u] += (1.0 - damping) * mass
         pushes += 1
         spread = damping * mass
-        if out_degree[u] == 0:
+        first = indptr[u]
+        last = indptr[u + 1]
+        if first == last:
             for s in range(seeds.size):
                 v = seeds[s]
-                residual[v] += spread * seed_weights[s]
-                if not queued[v] and residual[v] > epsilon * max(out_degree[v], 1):
-                    queued[v] = True
-                    queue[(head + size) % n] = v
-                    size += 1
+                hot[2 * v] += spread * seed_weights[s]
+                size = _queue_if_over(hot, queue, head, size, n, v)
             continue
-        for p in range(indptr[u], indptr[u + 1]):
-            v = indices[p]
-            residual[v] += spread * data[p]
-            if not seen[v]:
-                seen[v] = True
+        for p in range(first, last):
+            v = np.int64(indices[p])
+            if hot[2 * v + 1] == 0.0:
+                hot[2 * v + 1] = epsilon * max(out_degree[v], 1)
                 touched[count] = v
                 count += 1
-            if not queued[v] and residual[v] > epsilon * max(out_degree[v], 1):
-                queued[v] = True
-                queue[(head + size) % n] = v
-                size += 1
-    pages = touched[:count].copy()
-    values = np.empty(count)
-    left = np.empty(count)
-    for position in range(count):
-        u = pages[position]
-        values[position] = estimate[u]
-        left[position] = residual[u]
-        estimate[u] = 0.0
-        residual[u] = 0.0
-        queued[u] = False
-        seen[u] = False
-    return pages, values, left, pushes, size == 0
+            hot[2 * v] += spread * data[p]
+            size = _queue_if_over(hot, queue, head, size, n, v)
+    return count, pushes, size == 0
+
+
+@njit(cache=True, boundscheck=False)
+def inflow(indptr, indices, data, hot, pages):  # pragma: no cover
+    """``Σ_u r[u] P[u, v]`` for each ``v`` in ``pages``: residual one step away (``indptr`` = Pᵀ rows)."""
+    sums = np.zeros(pages.size)
+    for position in range(pages.size):
+        v = pages[position]
+        total = 0.0
+        for p in range(indptr[v], indptr[v + 1]):
+            total += hot[2 * np.int64(indices[p])] * data[p]
+        sums[position] = total
+    return sums

@@ -131,11 +131,11 @@ def check_positive(value: object, name: str) -> float:
     return float(value)
 
 
-def check_count(value: object, name: str) -> int:
+def check_count(value: object, name: str, *, minimum: int = 1) -> int:
     if isinstance(value, bool) or not isinstance(value, numbers.Integral):
         raise TypeError(f"{name} must be an integer, got {value!r}")
-    if value < 1:
-        raise ValueError(f"{name} must be at least 1, got {value!r}")
+    if value < minimum:
+        raise ValueError(f"{name} must be at least {minimum}, got {value!r}")
     return int(value)
 
 

@@ -58,13 +58,12 @@ class Transition:
         return np.flatnonzero(self.dangling)
 
     def borrow_workspace(self) -> tuple:
-        """Scratch arrays for one push (estimate, residual, queue, queued, seen, touched), all cleared."""
+        """Scratch arrays for one push (residuals and thresholds interleaved, estimates, queue, touched)."""
         with self._workspace_lock:
             if self._workspaces:
                 return self._workspaces.pop()
         n = self.n
-        return (np.zeros(n), np.zeros(n), np.zeros(n, dtype=np.int32), np.zeros(n, dtype=np.bool_),
-                np.zeros(n, dtype=np.bool_), np.zeros(n, dtype=np.int32))
+        return (np.zeros(2 * n), np.zeros(n), np.zeros(n, dtype=np.int32), np.zeros(n, dtype=np.int32))
 
     def return_workspace(self, workspace: tuple) -> None:
         """Give back arrays from :meth:`borrow_workspace`; the caller has cleared what it wrote."""

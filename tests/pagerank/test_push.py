@@ -84,3 +84,22 @@ def test_push_limit_warns_and_keeps_the_bound(transition):
     assert not result.converged and result.pushes == 5
     error = np.abs(_exact(transition, 0) - result.vector.toarray()).sum()
     assert error <= result.residual_mass + 1e-12
+
+
+@pytest.mark.parametrize("case", CASES)
+def test_refined_estimate_stays_below_exact_and_tightens_the_bound(transition, case):
+    # x = p + X r with X = (1 − α) Σ (α Pᵀ)ᵗ (Andersen, Chung & Lang 2006): every term is non-negative, so
+    # adding the first terms for some pages keeps p ≤ x and lowers ‖x − p‖₁ by exactly what was added.
+    seeds = _seed_cases(transition)[case]
+    exact = _exact(transition, seeds)
+    plain = push(transition, seeds, epsilon=1e-4, refine=0)
+    refined = push(transition, seeds, epsilon=1e-4, refine=50)
+    low, high = plain.vector.toarray(), refined.vector.toarray()
+    assert np.all(low <= high + 1e-15) and np.all(high <= exact + 1e-15)
+    assert refined.residual_mass < plain.residual_mass
+    for result, estimate in ((plain, low), (refined, high)):
+        assert np.abs(exact - estimate).sum() == pytest.approx(result.residual_mass, abs=1e-12)
+    # the restart share of every page's own residual is always added: the bound is at most α ‖r‖₁
+    assert plain.residual_mass <= 0.85 * 1e-4 * np.maximum(transition.out_degree, 1).sum()
+    with pytest.raises(ValueError, match="refine must be at least 0"):
+        push(transition, seeds, refine=-1)
