@@ -64,6 +64,7 @@ def run_demo(workdir: Path, out: TextIO) -> None:
     with Store(wiki, create=False) as store:
         print_mapping(wiki_stats(store, worst=5), "table", out)
         show_lists(store, workdir / "index", out)
+        show_evaluation(store, workdir / "report", out)
 
 
 def _demo_choices(store) -> tuple[list[str], str, str]:
@@ -104,3 +105,25 @@ def show_lists(store, folder: Path, out: TextIO) -> None:
     out.write(f"\nLanding ordering for team {team} (only pages every member may see):\n")
     print_rows(landing(index, team_from_store(store, index, team), k=8).rows(), "table", out)
     out.write(f"\nThe index is in {folder} (try `rankrec related PAGE --index {folder}`).\n")
+
+
+def show_evaluation(store, folder: Path, out: TextIO) -> None:
+    """Evaluate rankrec against the baselines on the demo's own history and print a short summary."""
+    from .evaluate.report import write_report
+    from .evaluate.run import load_data, make_split, run_evaluation
+
+    data = load_data(store)
+    evaluation = run_evaluation(data, make_split(data, "temporal"), samples=500)
+    write_report(evaluation, folder)
+    queries = len(evaluation.split.queries)
+    out.write(f"\nOffline evaluation (temporal split: the last 20% of the time span is test, {queries} "
+              "readers; nDCG@10 with per-user bootstrap 95% interval):\n")
+    for name, scores in evaluation.methods.items():
+        low, high = scores.ci95["ndcg@10"]
+        out.write(f"  {name:<15} {scores.means['ndcg@10']:.3f}  [{low:.3f}, {high:.3f}]\n")
+    found = evaluation.comparison["metrics"]["ndcg@10"]
+    configuration = ", ".join(f"{key} {value:g}" for key, value in evaluation.configuration.as_dict().items())
+    out.write(f"rankrec ({configuration}, chosen on a validation split) minus {evaluation.best_baseline}: "
+              f"{found['difference']:+.3f} [{found['ci95'][0]:+.3f}, {found['ci95'][1]:+.3f}]\n")
+    out.write(f"The full report is in {folder} (report.md, results.json, plots; "
+              f"`rankrec evaluate --wiki {store.path} --report DIR` makes it again).\n")

@@ -35,3 +35,19 @@ def test_demo_imports_the_wiki_and_prints_its_stats(tmp_path):
         counts = store.counts()
     assert (counts["pages"], counts["views"]) == (len(files), views)
     assert "Imported the invented demo wiki" in text and "largest scc" in text
+
+
+def test_demo_evaluation_prints_what_the_report_holds(tmp_path):
+    from rankrec.demo import import_demo, show_evaluation
+
+    wiki = import_demo(tmp_path)
+    out = io.StringIO()
+    with Store(wiki, create=False) as store:
+        show_evaluation(store, tmp_path / "report", out)
+    text = out.getvalue()
+    results = json.loads((tmp_path / "report" / "results.json").read_text())
+    assert (tmp_path / "report" / "report.md").is_file() and str(tmp_path / "report") in text
+    for name, entry in results["methods"].items():  # every printed line is the report's number
+        low, high = entry["ci95"]["ndcg@10"]
+        assert f"{name:<15} {entry['ndcg@10']:.3f}  [{low:.3f}, {high:.3f}]" in text
+    assert f"minus {results['best_baseline']}:" in text

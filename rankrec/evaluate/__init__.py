@@ -7,6 +7,10 @@
   the shared :func:`excluded_pages` and :func:`assert_no_leakage`.
 - :mod:`.baselines`: random, most-read, global PageRank, out-links, co-visitation and team-most-read
   recommenders, each with ``recommend(split, k)``, and :func:`check_recommendations`.
+- :mod:`.method`: rankrec itself behind that interface (:class:`PersonalisedPageRank`, :func:`rankrec_lists`).
+- :mod:`.sweeps`: :func:`validation_split` and :func:`choose_configuration` over a :class:`Grid`.
+- :mod:`.run`: :func:`load_data`, :func:`make_split`, :func:`run_evaluation`; :mod:`.report` writes the
+  report folder (imported on demand: it loads matplotlib); :mod:`.command` is ``rankrec evaluate``.
 """
 
 from .baselines import (
@@ -18,6 +22,8 @@ from .baselines import (
     TeamMostRead,
     check_recommendations,
 )
+from .errors import CutoffOutsideSpan, NothingToEvaluate
+from .method import Configuration, PersonalisedPageRank, rankrec_lists
 from .metrics import (
     average_precision,
     coverage,
@@ -32,6 +38,7 @@ from .metrics import (
     reciprocal_rank,
     unvisited_share,
 )
+from .run import Evaluation, load_data, make_split, run_evaluation
 from .splits import (
     Queries,
     Split,
@@ -43,13 +50,21 @@ from .splits import (
     temporal_split,
 )
 from .statistics import PairedComparison, bootstrap_ci, paired_difference
+from .sweeps import Choice, Grid, choose_configuration, validation_split
 
 __all__ = [
+    "Choice",
     "CoVisitation",
+    "Configuration",
+    "CutoffOutsideSpan",
+    "Evaluation",
     "GlobalPageRank",
+    "Grid",
     "MostRead",
+    "NothingToEvaluate",
     "OutLinks",
     "PairedComparison",
+    "PersonalisedPageRank",
     "Queries",
     "RandomPages",
     "Split",
@@ -59,6 +74,7 @@ __all__ = [
     "average_precision",
     "bootstrap_ci",
     "check_recommendations",
+    "choose_configuration",
     "coverage",
     "dcg",
     "evaluate_lists",
@@ -66,13 +82,18 @@ __all__ = [
     "hit_rate",
     "intra_list_diversity",
     "last_n_split",
+    "load_data",
+    "make_split",
     "ndcg",
     "novelty",
     "paired_difference",
     "precision",
+    "rankrec_lists",
     "recall",
     "reciprocal_rank",
+    "run_evaluation",
     "session_split",
     "temporal_split",
     "unvisited_share",
+    "validation_split",
 ]
