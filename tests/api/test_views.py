@@ -303,6 +303,19 @@ def test_with_a_key_only_pseudonyms_reach_the_store(world, tmp_path):
     assert _views_of(world, pseudonym(key, "hv-private")) == []
 
 
+def test_with_a_key_erasure_also_takes_history_stored_under_the_plain_id(world, tmp_path):
+    key_path = tmp_path / "pseudonym.key"
+    key = new_key(key_path)
+    page = world["pages"][0]
+    with _client(world) as client:  # before the key: the plain id is stored
+        _post(client, world, [{"user": "hv-before", "page": page, "timestamp": 3}])
+    with _client(world, pseudonym_key=key_path) as client:
+        _post(client, world, [{"user": "hv-before", "page": page, "timestamp": 4}])
+        answer = client.delete("/v1/users/hv-before/views", headers=_auth(world["admin"]))
+    assert answer.json()["deleted"] == 2
+    assert _views_of(world, "hv-before") == [] and _views_of(world, pseudonym(key, "hv-before")) == []
+
+
 # -- retention -------------------------------------------------------------------------------------
 def _old_and_new(client, world, user: str) -> None:
     page = world["pages"][0]
