@@ -386,3 +386,15 @@ def test_closing_waits_for_the_write_in_progress(world):
         keeper.close_store()  # must block until slow_write is done
         assert results and results[0] == _count(world)
         writer.join()
+
+
+def test_a_failed_retention_run_is_logged_and_the_service_stays_up(world, tmp_path, caplog):
+    settings = ServiceSettings(
+        index=tmp_path / "none", tokens=world["tokens"], watch_seconds=0, retention_days=30
+    )
+    with caplog.at_level("ERROR", logger="rankrec.api"), TestClient(create_app(settings)) as client:
+        deadline = time.monotonic() + 5
+        while "retention run failed" not in caplog.text and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert client.get("/v1/health").status_code == 503  # still answering (no index yet)
+    assert "retention run failed: no index is live" in caplog.text
