@@ -213,6 +213,12 @@ def _summary(clients: int, latencies: list[float], problems: list[str], wall: fl
     }
 
 
+def _cpu_seconds(pid: int) -> float:
+    """User + system CPU seconds a process has used (Linux ``/proc/PID/stat`` fields 14 and 15)."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
 def _in_process(index_folder: Path, pages: list[str]) -> dict:
     from rankrec.index import load_index
     from rankrec.recommend import related
@@ -284,7 +290,9 @@ def _measure(args, workdir: Path) -> dict:
         load = kind(base, token, paths, args.clients)
         load.run(1.0, 2_000)  # warm-up, not counted
         before = os.getloadavg()
+        server_cpu, own_cpu = _cpu_seconds(server.pid), time.process_time()
         measured = load.run(args.seconds, args.max_requests)
+        server_cpu, own_cpu = _cpu_seconds(server.pid) - server_cpu, time.process_time() - own_cpu
         after = os.getloadavg()
     finally:
         server.terminate()
@@ -295,6 +303,8 @@ def _measure(args, workdir: Path) -> dict:
         "generator": f"{args.generator} ({args.clients} keep-alive connections, same machine)",
         "pages": args.pages,
         "http": measured,
+        "server_cpu_ms_per_request": round(1000 * server_cpu / max(measured["requests"], 1), 3),
+        "generator_cpu_ms_per_request": round(1000 * own_cpu / max(measured["requests"], 1), 3),
         "library_related": library,
         "ratio_p50_http_to_library": round(measured["p50_ms"] / max(library["p50_ms"], 1e-6), 1),
         "load_average_before": [round(value, 2) for value in before],
