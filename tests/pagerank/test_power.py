@@ -80,7 +80,7 @@ def test_two_closed_components_converge_at_rate_damping():
     restart = np.zeros(12)
     restart[[0, 5]] = 0.5
     seen = []
-    result = personalized_pagerank(graph, restart, damping=damping, tol=tol,
+    result = personalized_pagerank(graph, restart, damping=damping, tol=tol, extrapolate=False,
                                    callback=lambda step, residuals: seen.append(residuals[0]))
     expected = math.log(tol / 2) / math.log(damping)
     assert abs(result.iterations - expected) <= 1.0
@@ -233,3 +233,47 @@ def test_contract(solve, prepared, graph, restarts):
 def test_bad_input_names_the_parameter(call, error, match, graph):
     with pytest.raises(error, match=match):
         call(graph)
+
+
+def test_extrapolation_on_rotating_error_is_switched_off_and_still_converges():
+    # On two directed cycles the error rotates (eigenvalues α·e^{2πi/m}, Haveliwala & Kamvar 2003), so an
+    # Aitken-type jump along one real eigenvector cannot remove it; the jump must not make it diverge.
+    sources = np.r_[np.arange(5), 5 + np.arange(7)]
+    targets = np.r_[(np.arange(5) + 1) % 5, 5 + (np.arange(7) + 1) % 7]
+    graph = sp.csr_array((np.ones(12), (sources, targets)), shape=(12, 12))
+    restart = np.zeros(12)
+    restart[[0, 5]] = 0.5
+    plain = personalized_pagerank(graph, restart, tol=1e-10, extrapolate=False)
+    jumped = personalized_pagerank(graph, restart, tol=1e-10)
+    assert jumped.converged and jumped.iterations <= 2 * plain.iterations
+    # both stop on a plain step with change < tol, so each is within tol·α/(1−α) of the fixed point
+    assert np.abs(jumped.vectors - plain.vectors).sum() <= 2 * 1e-10 * 0.85 / 0.15
+
+
+def test_extrapolation_agrees_with_the_plain_iteration(graph, restarts):
+    # both stop on a plain step with change < tol, so each is within tol·α/(1−α) of the fixed point
+    plain = personalized_pagerank(graph, restarts, tol=1e-10, extrapolate=False)
+    jumped = personalized_pagerank(graph, restarts, tol=1e-10)
+    assert jumped.converged
+    assert np.abs(jumped.vectors - plain.vectors).sum(axis=0).max() <= 2 * 1e-10 * 0.85 / 0.15
+    with pytest.raises(TypeError, match="extrapolate"):
+        personalized_pagerank(graph, restarts, extrapolate=1)
+
+
+def test_extrapolation_cuts_steps_where_one_real_eigenvalue_dominates():
+    # Two dense communities joined by a few links: the slow mode is the mass exchange between them, one
+    # real eigenvalue near α (Haveliwala & Kamvar 2003), which an Aitken-type jump removes (Kamvar,
+    # Haveliwala, Manning & Golub 2003).
+    rng = np.random.default_rng(0)
+    inside = [(50 * c + rng.integers(50, size=600), 50 * c + rng.integers(50, size=600)) for c in (0, 1)]
+    left, right = rng.integers(50, size=12), 50 + rng.integers(50, size=12)
+    sources = np.concatenate([inside[0][0], inside[1][0], left, right])
+    targets = np.concatenate([inside[0][1], inside[1][1], right, left])
+    keep = sources != targets
+    graph = sp.csr_array((np.ones(int(keep.sum())), (sources[keep], targets[keep])), shape=(100, 100))
+    restarts = np.zeros((100, 2))
+    restarts[:50, 0], restarts[50:, 1] = 1.0, 1.0
+    plain = personalized_pagerank(graph, restarts, tol=1e-10, extrapolate=False)
+    jumped = personalized_pagerank(graph, restarts, tol=1e-10)
+    assert jumped.iterations < plain.iterations / 2
+    assert np.abs(jumped.vectors - plain.vectors).sum(axis=0).max() <= 2 * 1e-10 * 0.85 / 0.15
