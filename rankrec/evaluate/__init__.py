@@ -13,6 +13,7 @@
   report folder (imported on demand: it loads matplotlib); :mod:`.command` is ``rankrec evaluate``.
 """
 
+from ..errors import CutoffOutsideSpan, NothingToEvaluate
 from .baselines import (
     CoVisitation,
     GlobalPageRank,
@@ -22,7 +23,6 @@ from .baselines import (
     TeamMostRead,
     check_recommendations,
 )
-from .errors import CutoffOutsideSpan, NothingToEvaluate
 from .method import Configuration, PersonalisedPageRank, rankrec_lists
 from .metrics import (
     average_precision,

@@ -26,7 +26,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from .._validation import check_choice, check_count, check_fraction, check_positive
-from ..errors import InputError
+from ..errors import CutoffOutsideSpan, InputError, NothingToEvaluate
 from ..graph import dense_numbers, load_graph
 from ..store import Store
 from .baselines import (
@@ -39,7 +39,6 @@ from .baselines import (
     check_recommendations,
     training_counts,
 )
-from .errors import CutoffOutsideSpan, NothingToEvaluate
 from .method import Configuration, PersonalisedPageRank
 from .metrics import coverage, evaluate_lists, ndcg
 from .splits import SESSION_GAP_SECONDS, Split, last_n_split, session_split, temporal_split, training_pages

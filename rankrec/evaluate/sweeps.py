@@ -24,7 +24,7 @@ from types import MappingProxyType
 import numpy as np
 
 from .._validation import check_count
-from .errors import NothingToEvaluate
+from ..errors import NothingToEvaluate
 from .method import Configuration, rankrec_lists
 from .metrics import evaluate_lists
 from .splits import Split, last_n_split, session_split, temporal_split

@@ -10,11 +10,10 @@ from matplotlib.image import imread
 
 from rankrec.cli import main
 from rankrec.demo import import_demo
-from rankrec.errors import InputError
+from rankrec.errors import CutoffOutsideSpan, InputError
 from rankrec.evaluate import report as report_module
 from rankrec.evaluate import run as run_module
 from rankrec.evaluate import sweeps as sweeps_module
-from rankrec.evaluate.errors import CutoffOutsideSpan
 from rankrec.evaluate.method import PersonalisedPageRank
 from rankrec.evaluate.report import write_report
 from rankrec.evaluate.run import load_data, make_split, run_evaluation

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from rankrec.evaluate.errors import NothingToEvaluate
+from rankrec.errors import NothingToEvaluate
 from rankrec.evaluate.method import Configuration, rankrec_lists
 from rankrec.evaluate.splits import assert_no_leakage, last_n_split, session_split, temporal_split
 from rankrec.evaluate.sweeps import Grid, choose_configuration, mean_metric, validation_split
