@@ -213,13 +213,7 @@ def make_router(max_k: int) -> APIRouter:
 
 def _prefixed(index: Index, prefix: str):
     """Page numbers whose id starts with ``prefix``, in id order (binary search, then a bounded scan)."""
-    low, high = 0, index.size
-    while low < high:
-        middle = (low + high) // 2
-        if index.pages[int(index.page_order[middle])] < prefix:
-            low = middle + 1
-        else:
-            high = middle
+    low = index.first_position(prefix)
     for position in range(low, min(index.size, low + SEARCH_SCAN)):
         number = int(index.page_order[position])
         if not index.pages[number].startswith(prefix):

@@ -549,15 +549,20 @@ class Index:
     def _group_codes(self) -> dict[str, int]:
         return {name: code for code, name in enumerate(self.group_names)}
 
-    def page_number(self, page: str) -> int:
-        """Dense number of ``page`` (binary search of the sorted page ids); UnknownPage with close ids."""
+    def first_position(self, key: str) -> int:
+        """Position in id order (``page_order``) of the first page id not below ``key`` (binary search)."""
         low, high = 0, self.size
         while low < high:
             middle = (low + high) // 2
-            if self.pages[int(self.page_order[middle])] < page:
+            if self.pages[int(self.page_order[middle])] < key:
                 low = middle + 1
             else:
                 high = middle
+        return low
+
+    def page_number(self, page: str) -> int:
+        """Dense number of ``page`` (binary search of the sorted page ids); UnknownPage with close ids."""
+        low = self.first_position(page)
         if low < self.size and self.pages[int(self.page_order[low])] == page:
             return int(self.page_order[low])
         nearby = [
