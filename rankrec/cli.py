@@ -51,6 +51,20 @@ def _step_bars():
             bar.close()
 
 
+def _pseudonym_key(args: argparse.Namespace) -> bytes | None:
+    from .privacy import load_key
+
+    return None if args.pseudonym_key is None else load_key(args.pseudonym_key)
+
+
+def _stored_user(args: argparse.Namespace, user: str) -> str:
+    """The id ``user`` is stored under: its keyed pseudonym when ``--pseudonym-key`` is given."""
+    from .privacy import pseudonym
+
+    key = _pseudonym_key(args)
+    return user if key is None else pseudonym(key, user)
+
+
 # -- import ---------------------------------------------------------------------------------------
 def _cmd_import(args: argparse.Namespace) -> int:
     from .importer import import_sources
@@ -64,8 +78,11 @@ def _cmd_import(args: argparse.Namespace) -> int:
         "anonymous": args.anonymous,
     }
     sources = [(path, args.format) for path in args.sources]
+    key = _pseudonym_key(args)
     with Store(args.wiki) as store, _progress_bar("importing", "rec") as bar:
-        reports = import_sources(store, sources, strict=args.strict, progress=bar.update, **options)
+        reports = import_sources(
+            store, sources, strict=args.strict, progress=bar.update, pseudonym_key=key, **options
+        )
     shown = 0
     for report in reports:
         kinds = ", ".join(f"{count:,} {kind}" for kind, count in sorted(report.records.items())) or "nothing"
@@ -167,7 +184,8 @@ def _cmd_related(args: argparse.Namespace) -> int:
 
     index, store = _open_index(args, need_store=args.viewer is not None)
     try:
-        reader = None if args.viewer is None else reader_from_store(store, index, args.viewer)
+        viewer = None if args.viewer is None else _stored_user(args, args.viewer)
+        reader = None if viewer is None else reader_from_store(store, index, viewer)
         result = related(
             index,
             args.page,
@@ -191,7 +209,7 @@ def _cmd_recommend(args: argparse.Namespace) -> int:
 
     index, store = _open_index(args, need_store=True)
     with store:
-        reader = reader_from_store(store, index, args.user)
+        reader = reader_from_store(store, index, _stored_user(args, args.user))
         result = recommend(
             index,
             reader,
@@ -321,6 +339,8 @@ def build_parser() -> argparse.ArgumentParser:
     imp.add_argument(
         "--max-errors", type=int, default=20, metavar="N", help="bad records to list (default 20)"
     )
+    key_help = "a key file (`rankrec serve --pseudonym-key` makes one): users are stored as keyed pseudonyms"
+    imp.add_argument("--pseudonym-key", metavar="FILE", help=key_help)
     imp.set_defaults(run=_cmd_import)
 
     stats = commands.add_parser("stats", help="sizes, graph shape, reading history, unresolved links")
@@ -402,6 +422,8 @@ def build_parser() -> argparse.ArgumentParser:
     rel.add_argument("page", metavar="PAGE", help="page id")
     list_options(rel, 10)
     rel.add_argument("--viewer", metavar="USER", help="apply this user's access groups and reading history")
+    held_as = "the store holds users as pseudonyms under this key"
+    rel.add_argument("--pseudonym-key", metavar="FILE", help=held_as)
     rel.add_argument("--exclude-linked", action="store_true", help="leave out pages PAGE links to")
     rel.add_argument(
         "--exclude-read", action="store_true", help="leave out pages the viewer read in the last 30 days"
@@ -417,6 +439,7 @@ def build_parser() -> argparse.ArgumentParser:
     rec.add_argument(
         "--include-read", action="store_true", help="keep pages the user read in the last 30 days"
     )
+    rec.add_argument("--pseudonym-key", metavar="FILE", help=held_as)
     rec.set_defaults(run=_cmd_recommend)
 
     land = commands.add_parser(

@@ -11,10 +11,12 @@ import time
 from collections import Counter
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 from typing import Any
 
 from .errors import InputError
+from .privacy import pseudonym
 from .sources import detect_format, read_source
 from .sources.records import LinkRecord, MembershipRecord, PageRecord, ViewRecord
 from .store import Store
@@ -68,9 +70,11 @@ class _Batch:
 
 
 class _PageLedger:
-    """Page ids seen in this call, to refuse a second description with another title."""
+    """What one call carries across its sources: the page ids seen (to refuse a second description
+    with another title) and how user ids are stored (as given, or as keyed pseudonyms)."""
 
-    def __init__(self) -> None:
+    def __init__(self, pseudonym_key: bytes | None = None) -> None:
+        self.user = (lambda user: user) if pseudonym_key is None else partial(pseudonym, pseudonym_key)
         self.seen: dict[str, tuple[str, str]] = {}
 
     def check(self, record: PageRecord) -> InputError | None:
@@ -95,6 +99,7 @@ def import_sources(
     strict: bool = False,
     error_cap: int = 1000,
     progress: Callable[[int], None] | None = None,
+    pseudonym_key: bytes | None = None,
     **options: Any,
 ) -> list[ImportReport]:
     """Import every source into ``store`` in one transaction and report on each.
@@ -109,6 +114,9 @@ def import_sources(
         How many InputErrors each report keeps (``error_count`` counts them all).
     progress
         Called with the number of records handled since the previous call.
+    pseudonym_key
+        Store every user id of views and memberships as its keyed pseudonym
+        (:func:`rankrec.privacy.pseudonym`), the same one the service uses with that key.
     options
         Reader options (see :func:`rankrec.sources.read_source`).
 
@@ -123,7 +131,7 @@ def import_sources(
         path, format = (item, "auto") if isinstance(item, str | Path) else item
         jobs.append((str(path), detect_format(path) if format == "auto" else format))
     reports: list[ImportReport] = []
-    ledger = _PageLedger()
+    ledger = _PageLedger(pseudonym_key)
     cleared: set[str] = set()
     with store.transaction():
         for path, format in jobs:
@@ -184,7 +192,7 @@ _KIND = {PageRecord: "pages", LinkRecord: "links", ViewRecord: "views", Membersh
 
 def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
     if isinstance(item, ViewRecord):
-        batch.views.append((item.user, item.page, item.timestamp, item.dwell))
+        batch.views.append((ledger.user(item.user), item.page, item.timestamp, item.dwell))
     elif isinstance(item, LinkRecord):
         if item.source == item.target:
             return InputError(item.origin.file, item.origin.line, f"self-link of {item.source!r} dropped")
@@ -201,7 +209,7 @@ def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
             store.clear_links_from([item.page])
             batch.cleared.add(item.page)
     elif isinstance(item, MembershipRecord):
-        batch.memberships.append((item.kind, item.name, item.user))
+        batch.memberships.append((item.kind, item.name, ledger.user(item.user)))
     else:  # pragma: no cover - a reader bug, not bad input
         raise TypeError(f"reader yielded {type(item).__name__}, not a record")
     return None
