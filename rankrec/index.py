@@ -93,16 +93,29 @@ def _save_strings(folder: Path, name: str, values) -> None:
 
 @dataclass(frozen=True, eq=False)
 class StringTable:
-    """Strings stored as one UTF-8 blob with offsets (memory-mapped); ``table[i]`` decodes one."""
+    """Strings stored as one UTF-8 blob with offsets (memory-mapped); ``table[i]`` decodes one.
+
+    >>> table = StringTable(np.frombuffer("abé".encode(), dtype=np.uint8), np.array([0, 2, 4]))
+    >>> len(table), table[0], table[1]
+    (2, 'ab', 'é')
+    """
 
     blob: np.ndarray
     offsets: np.ndarray
+    # memoryviews of the same memory: indexing one gives a Python int or a slice without making
+    # numpy scalars or views, several times cheaper per string (lookups read some hundred a request)
+    _bytes: memoryview = field(init=False, repr=False)
+    _starts: memoryview = field(init=False, repr=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "_bytes", memoryview(np.ascontiguousarray(self.blob, dtype=np.uint8)))
+        object.__setattr__(self, "_starts", memoryview(np.ascontiguousarray(self.offsets, dtype=np.int64)))
 
     def __len__(self) -> int:
         return int(self.offsets.size - 1)
 
     def __getitem__(self, index: int) -> str:
-        return self.blob[self.offsets[index] : self.offsets[index + 1]].tobytes().decode()
+        return str(self._bytes[self._starts[index] : self._starts[index + 1]], "utf-8")
 
 
 def _load_strings(folder: Path, name: str) -> StringTable:
@@ -120,7 +133,12 @@ def _load_csr(folder: Path, name: str, shape: tuple[int, int]) -> sp.csr_array:
 
 
 def _load(folder: Path, name: str) -> np.ndarray:
-    return np.load(folder / f"{name}.npy", mmap_mode="r")
+    """Memory-map one array, as a plain ndarray view of the mapping (no copy).
+
+    Element reads from an ``np.memmap`` go through its subclass hooks and cost several times
+    those of a plain ndarray; the view keeps the mapping alive through its ``base``.
+    """
+    return np.asarray(np.load(folder / f"{name}.npy", mmap_mode="r"))
 
 
 def _group_tables(size: int, rows: list[tuple[int, str]]) -> tuple[sp.csr_array, list[str]]:
@@ -546,25 +564,36 @@ class Index:
         return np.diff(self.page_groups.indptr) == 0
 
     @cached_property
+    def global_order(self) -> np.ndarray:
+        """Every page by descending global PageRank, ties to the lower page (computed once, on first use)."""
+        return np.lexsort((np.arange(self.size), -np.asarray(self.global_vector, dtype=np.float64)))
+
+    @cached_property
     def _group_codes(self) -> dict[str, int]:
         return {name: code for code, name in enumerate(self.group_names)}
 
     def first_position(self, key: str) -> int:
         """Position in id order (``page_order``) of the first page id not below ``key`` (binary search)."""
+        order, pages = self._order, self.pages
         low, high = 0, self.size
         while low < high:
             middle = (low + high) // 2
-            if self.pages[int(self.page_order[middle])] < key:
+            if pages[order[middle]] < key:
                 low = middle + 1
             else:
                 high = middle
         return low
 
+    @cached_property
+    def _order(self) -> memoryview:
+        """``page_order`` as a memoryview (Python ints per element; see :class:`StringTable`)."""
+        return memoryview(np.ascontiguousarray(self.page_order, dtype=np.int64))
+
     def page_number(self, page: str) -> int:
         """Dense number of ``page`` (binary search of the sorted page ids); UnknownPage with close ids."""
         low = self.first_position(page)
-        if low < self.size and self.pages[int(self.page_order[low])] == page:
-            return int(self.page_order[low])
+        if low < self.size and self.pages[self._order[low]] == page:
+            return self._order[low]
         nearby = [
             self.pages[int(self.page_order[i])] for i in range(max(0, low - 25), min(self.size, low + 25))
         ]

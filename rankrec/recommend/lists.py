@@ -89,9 +89,10 @@ def _ranked(index: Index, pages: np.ndarray, values: np.ndarray, lift: float) ->
 
 
 _SELECT_CELLS = 1 << 22  # pages x columns handled at once when filling short lists
+_FILL_FIRST = 256  # pages of the global order looked at first when filling (x4 until enough)
 
 
-def select_pages(vectors, global_vector, eligible, k: int, *, lift: float) -> np.ndarray:
+def select_pages(vectors, global_vector, eligible, k: int, *, lift: float, order=None) -> np.ndarray:
     """The best ``k`` eligible pages of each column of ``vectors``: the ranking every list uses.
 
     Pages with a positive score come first, ranked by ``score / global^lift`` (``lift`` 0: by
@@ -110,6 +111,10 @@ def select_pages(vectors, global_vector, eligible, k: int, *, lift: float) -> np
         Length of each list.
     lift : float
         Lift exponent, >= 0.
+    order : int array of shape (n,), optional
+        Every page by descending ``global_vector``, ties to the lower page
+        (``np.lexsort((np.arange(n), -global_vector))``, as :attr:`rankrec.index.Index.global_order`
+        keeps it); computed when not given.
 
     Returns
     -------
@@ -137,23 +142,51 @@ def select_pages(vectors, global_vector, eligible, k: int, *, lift: float) -> np
             f"global_vector {overall.shape!r} and eligible {np.shape(eligible)!r} must match vectors "
             f"{np.shape(vectors)!r}"
         )
+    if order is not None and np.shape(order) != (n,):
+        raise ValueError(f"order must have shape ({n},); got {np.shape(order)!r}")
     positive = allowed & (scores > 0)
-    ranked = np.where(positive, _lifted(scores, overall[:, None], lift), -np.inf)
-    lists = _top_of_columns(ranked, k)
+    lists = _scored(scores, overall, positive, k, lift)
     found = (lists >= 0).sum(axis=1)
     short = np.flatnonzero(found < k)
     if short.size:
-        order = np.lexsort((np.arange(n), -overall))  # global PageRank, ties to the lower page
+        order = np.lexsort((np.arange(n), -overall)) if order is None else np.asarray(order)
         step = max(1, _SELECT_CELLS // max(n, 1))
         for start in range(0, short.size, step):
-            chunk = short[start:start + step]
-            usable = allowed[:, chunk] if allowed.shape[1] > 1 else np.broadcast_to(allowed, (n, chunk.size))
-            free = (usable & ~positive[:, chunk])[order]
-            rank = np.cumsum(free, axis=0) - 1
-            take = free & (rank < (k - found[chunk])[None, :])
-            rows, cols = np.nonzero(take)
-            lists[chunk[cols], found[chunk[cols]] + rank[rows, cols]] = order[rows]
+            _fill(lists, short[start : start + step], found, allowed, positive, order, k)
     return lists[0] if single else lists
+
+
+def _scored(scores, overall, positive, k: int, lift: float) -> np.ndarray:
+    """(columns, k): the best positive-scored pages of each column by lifted score (-1 padded)."""
+    if scores.shape[1] > 1:
+        return _top_of_columns(np.where(positive, _lifted(scores, overall[:, None], lift), -np.inf), k)
+    # one list: rank only the scored pages (often few); rows ascend, so ties still go to the lower page
+    rows = np.flatnonzero(positive[:, 0])
+    best = _top_of_columns(_lifted(scores[rows, 0], overall[rows], lift)[:, None], k)
+    return np.where(best >= 0, rows[np.maximum(best, 0)] if rows.size else -1, -1)
+
+
+def _fill(lists, chunk, found, allowed, positive, order, k: int) -> None:
+    """Give the short lists ``chunk`` their remaining places: eligible unscored pages in ``order``.
+
+    Only a head of the order is looked at (the first pages there are nearly always eligible), and
+    a longer head only while some list still lacks pages; the first free pages of the head are the
+    first free pages of the whole order, so the lists equal those of a pass over all pages.
+    """
+    n = order.size
+    usable = allowed if allowed.shape[1] == 1 else allowed[:, chunk]
+    unscored = ~positive[:, chunk]
+    need = (k - found[chunk])[None, :]
+    head = min(n, _FILL_FIRST + 4 * k)
+    while True:
+        pages = order[:head]
+        free = usable[pages] & unscored[pages]
+        rank = np.cumsum(free, axis=0) - 1
+        if head == n or bool((rank[-1] + 1 >= need).all()):
+            break
+        head = min(n, head * 4)
+    rows, cols = np.nonzero(free & (rank < need))
+    lists[chunk[cols], found[chunk[cols]] + rank[rows, cols]] = pages[rows]
 
 
 def _top_of_columns(ranked: np.ndarray, k: int) -> np.ndarray:
@@ -196,7 +229,7 @@ def _select(
 ) -> np.ndarray:
     """Best ``k`` eligible pages: positive scores first, then eligible pages by global PageRank."""
     if per_space is None:
-        chosen = select_pages(vector, index.global_vector, eligible, k, lift=lift)
+        chosen = select_pages(vector, index.global_vector, eligible, k, lift=lift, order=index.global_order)
         return chosen[chosen >= 0]
     positive = np.flatnonzero(eligible & (vector > 0))
     scores = _ranked(index, positive, vector[positive], lift)
@@ -316,7 +349,7 @@ def _explain_full(index: Index, vector: np.ndarray, chosen: np.ndarray, restart:
 # -- the three lists --------------------------------------------------------------------------------
 def related(
     index: Index,
-    page: str,
+    page: str | int,
     *,
     reader: Reader | None = None,
     k: int = 10,
@@ -328,6 +361,8 @@ def related(
 ) -> Recommendations:
     """Pages related to ``page``, for ``reader`` (their access groups; None: public pages only).
 
+    ``page`` is a page id, or its number in the index (:meth:`rankrec.index.Index.page_number`)
+    when the caller has looked it up already; the list's subject is the page id either way.
     ``blend`` in [0, 1] mixes the reader's personal vector in: ``(1 − w)·x_page + w·x_reader``
     ("related, for you"). ``exclude_read`` drops pages the reader read recently.
     """
@@ -337,7 +372,8 @@ def related(
     if per_space is not None:
         check_count("per_space", per_space)
     lift = _lift(index, lift)
-    seed = index.page_number(page)
+    seed = _seed_number(index, page)
+    page = index.pages[seed]
     visible = index.visible(None if reader is None else reader.groups)
     read = reader.recent if (exclude_read and reader is not None) else None
     eligible = _eligible(index, visible, seed=seed, linked=exclude_linked, read=read)
@@ -365,6 +401,17 @@ def related(
     explained = _explain_full(index, vector, chosen, restart)
     items = _items(index, chosen, vector[chosen], lift, explained, audience)
     return Recommendations("related", page, items, None, int(eligible.sum()), time.perf_counter() - started)
+
+
+def _seed_number(index: Index, page: str | int) -> int:
+    """The dense number of ``page`` (an id: looked up, UnknownPage if absent; a number: range-checked)."""
+    if isinstance(page, str):
+        return index.page_number(page)
+    if isinstance(page, bool) or not isinstance(page, int | np.integer):
+        raise TypeError(f"page must be a page id (str) or a page number (int); got {page!r}")
+    if not 0 <= page < index.size:
+        raise ValueError(f"page number must lie in [0, {index.size}); got {page!r}")
+    return int(page)
 
 
 @dataclass(frozen=True)
