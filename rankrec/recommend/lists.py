@@ -307,6 +307,8 @@ def _items(
     index: Index, chosen: np.ndarray, vector_values: np.ndarray, lift: float, explained, audience: _Audience
 ) -> tuple[Item, ...]:
     scores = _ranked(index, chosen, vector_values, lift)
+    columns = (chosen, scores, vector_values, explained.kind, explained.via, explained.space)
+    # Python numbers up front (tolist): per-element reads of numpy arrays cost more than the rest
     return tuple(
         Item(
             page=index.pages[page],
@@ -314,16 +316,10 @@ def _items(
             space=index.space_of(page),
             score=float(score),
             pagerank=float(value),
-            reason=_reason(index, page, int(kind), int(via), int(space), audience),
+            reason=_reason(index, page, kind, via, space, audience),
         )
         for page, score, value, kind, via, space in zip(
-            chosen.tolist(),
-            scores,
-            vector_values,
-            explained.kind,
-            explained.via,
-            explained.space,
-            strict=True,
+            *(np.asarray(column).tolist() for column in columns), strict=True
         )
     )
 
@@ -383,13 +379,12 @@ def related(
         keep = eligible[found["pages"]]
         ordered = np.flatnonzero(keep)
         positions = _per_space_positions(index, found["pages"], ordered, k, per_space)
-        if positions.size == k or positions.size == int(eligible.sum()):
+        count = int(eligible.sum())
+        if positions.size == k or positions.size == count:
             chosen = found["pages"][positions].astype(np.int64)
             explained = _Stored(found, positions)
             items = _items(index, chosen, found["scores"][positions].astype(float), lift, explained, audience)
-            return Recommendations(
-                "related", page, items, None, int(eligible.sum()), time.perf_counter() - started
-            )
+            return Recommendations("related", page, items, None, count, time.perf_counter() - started)
     vector = index.seed_vector(seed)
     restart = None
     if blend > 0 and reader is not None and reader.restart.sum() > 0:
