@@ -3,11 +3,9 @@
 from __future__ import annotations
 
 import json
-import socket
 import stat
 import subprocess
 import sys
-import time
 from dataclasses import fields
 from pathlib import Path
 
@@ -17,6 +15,7 @@ import pytest
 from api.settings import PREFIX, ServiceSettings
 from rankrec.cli import main
 from rankrec.tokens import check_token, load_tokens
+from tests._serving import free_port, wait_healthy
 
 PROJECT = Path(__file__).resolve().parent.parent
 
@@ -124,9 +123,7 @@ def test_the_cli_never_imports_the_service():
 
 def test_serve_starts_a_server_that_answers(tmp_path):
     workdir = tmp_path / "demo"
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        port = probe.getsockname()[1]
+    port = free_port()
     command = [
         sys.executable,
         "-c",
@@ -141,14 +138,8 @@ def test_serve_starts_a_server_that_answers(tmp_path):
         command, cwd=PROJECT, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True
     )
     try:
-        deadline = time.monotonic() + 60
-        while True:
-            try:
-                health = httpx.get(f"http://127.0.0.1:{port}/v1/health", timeout=2)
-                break
-            except httpx.HTTPError:
-                assert server.poll() is None and time.monotonic() < deadline, "the server did not start"
-                time.sleep(0.1)
+        wait_healthy(server, f"http://127.0.0.1:{port}")
+        health = httpx.get(f"http://127.0.0.1:{port}/v1/health", timeout=2)
         assert health.status_code == 200 and health.json()["pages"] == 300
         token = load_tokens(workdir / "tokens.json")[0]
         assert token.name == "demo-admin"

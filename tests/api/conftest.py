@@ -3,11 +3,7 @@
 from __future__ import annotations
 
 import shutil
-import socket
-import threading
-import time
 import warnings
-from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
@@ -123,26 +119,3 @@ def private_copy(demo, tmp_path) -> dict:
 
 def make_client(app) -> TestClient:
     return TestClient(app)
-
-
-@contextmanager
-def served(app):
-    """Serve ``app`` with uvicorn on a free loopback port in a thread; yields its base URL."""
-    import uvicorn
-
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        port = probe.getsockname()[1]
-    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 10
-    while not server.started:
-        if time.monotonic() > deadline or not thread.is_alive():
-            raise RuntimeError("the test server did not start")
-        time.sleep(0.02)
-    try:
-        yield f"http://127.0.0.1:{port}"
-    finally:
-        server.should_exit = True
-        thread.join(timeout=10)

@@ -13,7 +13,6 @@ import itertools
 import os
 import shutil
 import signal
-import socket
 import subprocess
 import sys
 import threading
@@ -25,6 +24,7 @@ import numpy as np
 import pytest
 
 from rankrec.store import Store
+from tests._serving import free_port, wait_healthy
 
 pytestmark = pytest.mark.slow
 
@@ -33,32 +33,11 @@ BATCH = 40
 ACKNOWLEDGED_BEFORE_KILL = 30  # batches answered before the kill (a few seconds of posting)
 
 
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
-
-
 def _rankrec() -> list[str]:
     found = shutil.which("rankrec", path=str(Path(sys.executable).parent))
     if found:
         return [found]
     return [sys.executable, "-c", "import sys; from rankrec.cli import main; sys.exit(main(sys.argv[1:]))"]
-
-
-def _wait_healthy(server: subprocess.Popen, base: str, log: Path) -> None:
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
-        if server.poll() is not None:
-            pytest.fail(f"rankrec serve exited with {server.returncode}:\n{log.read_text()[-2000:]}")
-        try:
-            if httpx.get(base + "/v1/health", timeout=1.0).status_code == 200:
-                return
-        except httpx.TransportError:
-            pass
-        time.sleep(0.1)
-    server.kill()
-    pytest.fail(f"rankrec serve did not answer within 60 s:\n{log.read_text()[-2000:]}")
 
 
 class _Posting:
@@ -121,7 +100,7 @@ def test_every_acknowledged_view_survives_sigkill(demo, tmp_path):
     with Store(demo["wiki"], create=False) as source, Store(wiki) as copy:
         source.connection.backup(copy.connection)
         pages = [row[0] for row in copy.connection.execute("SELECT page FROM pages WHERE present = 1")]
-    port = _free_port()
+    port = free_port()
     base = f"http://127.0.0.1:{port}"
     log = tmp_path / "serve.log"
     command = _rankrec() + ["serve", "--index", str(demo["index"]), "--wiki", str(wiki)]
@@ -138,7 +117,7 @@ def test_every_acknowledged_view_survives_sigkill(demo, tmp_path):
     with open(log, "wb") as output:
         server = subprocess.Popen(command, stdout=output, stderr=subprocess.STDOUT, start_new_session=True)
     try:
-        _wait_healthy(server, base, log)
+        wait_healthy(server, base, log=log)
         posting = _Posting(base, demo["reader"], pages)
         threads = [threading.Thread(target=posting.client, args=(n,)) for n in range(CLIENTS)]
         for thread in threads:

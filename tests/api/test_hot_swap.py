@@ -18,7 +18,8 @@ import httpx
 
 from api.app import create_app
 from rankrec._atomic import publish_folder
-from tests.api.conftest import TestClient, served, settings_for
+from tests._serving import serve_in_thread
+from tests.api.conftest import TestClient, settings_for
 
 
 def _publish(paths: dict, source: Path, edit=None) -> str:
@@ -71,7 +72,7 @@ def test_no_request_fails_while_new_indexes_are_published(private_copy, demo, re
                 else:
                     served_by.add(answer.json()["index"])
 
-    with served(app) as base:
+    with serve_in_thread(app) as base:
         threads = [threading.Thread(target=load, args=(base, seed)) for seed in range(4)]
         for thread in threads:
             thread.start()

@@ -18,7 +18,8 @@ from rankrec.cli import main
 from rankrec.index import load_index
 from rankrec.recommend import landing, reader_from_store, recommend, related, team_from_store
 from rankrec.store import Store
-from tests.api.conftest import ODD_PAGES, TestClient, served, settings_for
+from tests._serving import serve_in_thread
+from tests.api.conftest import ODD_PAGES, TestClient, settings_for
 
 
 def _url(page: str, **query) -> str:
@@ -155,7 +156,7 @@ def test_page_ids_round_trip_percent_encoded(odd):
     app = create_app(settings_for(odd))
     headers = {"Authorization": f"Bearer {_token(odd)}"}
     index = load_index(odd["index"])
-    with served(app) as base, httpx.Client(base_url=base, headers=headers) as http:
+    with serve_in_thread(app) as base, httpx.Client(base_url=base, headers=headers) as http:
         for page in ODD_PAGES:
             answer = http.get(_url(page))
             assert answer.status_code == 200, (page, answer.text)

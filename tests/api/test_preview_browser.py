@@ -7,9 +7,6 @@ library gives for the same page and viewer (the service adds nothing and drops n
 
 from __future__ import annotations
 
-import socket
-import threading
-import time
 from pathlib import Path
 
 import pytest
@@ -17,6 +14,7 @@ import pytest
 from rankrec.index import load_index
 from rankrec.recommend import reader_from_store, related
 from rankrec.store import Store
+from tests._serving import serve_in_thread
 
 from .conftest import settings_for
 
@@ -37,34 +35,13 @@ FLAGS = (
 )
 
 
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
-
-
 @pytest.fixture(scope="module")
 def served(demo):
     """The demo service under uvicorn in a thread; yields its base URL."""
-    import uvicorn
-
     from api.app import create_app
 
-    port = _free_port()
-    config = uvicorn.Config(
-        create_app(settings_for(demo)), host="127.0.0.1", port=port, log_level="warning", access_log=False
-    )
-    server = uvicorn.Server(config)
-    thread = threading.Thread(target=server.run, name="preview-server", daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 30
-    while not server.started:
-        if time.monotonic() > deadline or not thread.is_alive():
-            pytest.fail("uvicorn did not start within 30 s")
-        time.sleep(0.05)
-    yield f"http://127.0.0.1:{port}"
-    server.should_exit = True
-    thread.join(timeout=30)
+    with serve_in_thread(create_app(settings_for(demo))) as base:
+        yield base
 
 
 @pytest.fixture(scope="module")

@@ -25,7 +25,6 @@ import itertools
 import json
 import os
 import shutil
-import socket
 import subprocess
 import sys
 import tempfile
@@ -36,13 +35,9 @@ from urllib.parse import quote
 
 import numpy as np
 
+from tests._serving import free_port, wait_healthy
+
 PROJECT = Path(__file__).resolve().parents[2]
-
-
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
 
 
 def _server_command(port: int) -> list[str]:
@@ -63,30 +58,19 @@ def _start_server(workdir: Path, index: Path, wiki: Path) -> tuple[subprocess.Po
     tokens = workdir / "tokens.json"
     token = add_token(tokens, "bench-frontend", "reader")
     settings = ServiceSettings(index=index, tokens=tokens, wiki=wiki, watch_seconds=0)
-    port = _free_port()
+    port = free_port()
     command = _server_command(port)
     server = subprocess.Popen(
         command, cwd=PROJECT, env={**os.environ, **settings.environment()}, stdout=subprocess.DEVNULL
     )
     base = f"http://127.0.0.1:{port}"
-    _wait_healthy(server, base)
+    try:
+        wait_healthy(server, base)
+    except RuntimeError:
+        server.kill()
+        server.wait(timeout=30)
+        raise
     return server, base, token, command
-
-
-def _wait_healthy(server: subprocess.Popen, base: str, seconds: float = 60.0) -> None:
-    import httpx
-
-    deadline = time.monotonic() + seconds
-    while time.monotonic() < deadline:
-        if server.poll() is not None:
-            raise RuntimeError(f"the server exited with status {server.returncode} before answering")
-        try:
-            if httpx.get(base + "/v1/health", timeout=1.0).status_code == 200:
-                return
-        except httpx.TransportError:
-            pass
-        time.sleep(0.1)
-    raise RuntimeError(f"the server did not answer /v1/health within {seconds} s")
 
 
 class _Load:
