@@ -231,7 +231,8 @@ def _seeds(split: Split, history: int, *, last_only: bool) -> sp.csr_array:
     return seeds
 
 
-def _check_adjacency(adjacency, split: Split) -> sp.csr_array:
+def check_adjacency(adjacency, split: Split) -> sp.csr_array:
+    """A float64 CSR copy of ``adjacency``, refused unless it is sparse and ``split.size`` square."""
     if not sp.issparse(adjacency):
         raise TypeError(f"adjacency must be a scipy sparse matrix, not {type(adjacency).__name__}")
     if adjacency.shape != (split.size, split.size):
@@ -308,7 +309,7 @@ class GlobalPageRank:
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
         k = check_count("k", k)
-        adjacency = _check_adjacency(self.adjacency, split)
+        adjacency = check_adjacency(self.adjacency, split)
         check_fraction("damping", self.damping, open_low=True, open_high=True)
         result = personalized_pagerank(prepare(adjacency), None, damping=self.damping, tol=self.tol)
         return _from_global(np.asarray(result.vectors, dtype=np.float64), split, k)
@@ -323,7 +324,7 @@ class OutLinks:
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
         k = check_count("k", k)
-        links = _check_adjacency(self.adjacency, split)
+        links = check_adjacency(self.adjacency, split)
         links.data[:] = 1.0
         popularity = sp.diags_array(1.0 + training_counts(split.train))
         return _ranked_product(_seeds(split, 1, last_only=True), sp.csr_array(links @ popularity),

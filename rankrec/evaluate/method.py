@@ -33,6 +33,7 @@ from ..graph import blend_navigation, navigation_counts
 from ..pagerank import personalized_pagerank, prepare
 from ..profiles import profile_matrix
 from ..recommend.lists import select_pages
+from .baselines import check_adjacency
 from .splits import SESSION_GAP_SECONDS, Split, excluded_pages
 
 _BLOCK_CELLS = 1 << 22  # pages × restart columns solved at once (32 MiB of float64)
@@ -66,7 +67,7 @@ def training_graph(split: Split, adjacency, *, blend: float, gap: float | None =
 
     ``gap`` (seconds inside one session) defaults to the split's own session gap, else 30 minutes.
     """
-    links = _check_adjacency(adjacency, split)
+    links = sp.csr_matrix(check_adjacency(adjacency, split))
     blend = check_fraction("blend", blend)
     if blend == 0:
         return links
@@ -196,14 +197,6 @@ def rankrec_lists(
         if progress is not None:
             progress(int(rows[-1]) + 1, total)
     return {lift: found[row_of] for lift, found in lists.items()}
-
-
-def _check_adjacency(adjacency, split: Split) -> sp.csr_matrix:
-    if not sp.issparse(adjacency):
-        raise TypeError(f"adjacency must be a scipy sparse matrix, not {type(adjacency).__name__}")
-    if adjacency.shape != (split.size, split.size):
-        raise ValueError(f"adjacency must have shape {(split.size, split.size)!r}; got {adjacency.shape!r}")
-    return sp.csr_matrix(adjacency, dtype=np.float64)
 
 
 @dataclass(frozen=True, eq=False)
