@@ -50,20 +50,14 @@ def _reader(request: Request, loaded: Loaded, viewer: str | None):
         return None
 
 
-def _may_see(index: Index, number: int, groups: frozenset[str] | None) -> bool:
-    row = index.page_groups
-    codes = row.indices[row.indptr[number] : row.indptr[number + 1]]
-    return codes.size == 0 or any(index.group_names[int(code)] in (groups or ()) for code in codes)
-
-
 def _seed(index: Index, page: str, groups: frozenset[str] | None) -> int:
     """The page's number; 404 for a page that is unknown or that the viewer may not see (one answer)."""
     try:
         number = index.page_number(page)
     except UnknownPage as error:
-        visible = [name for name in error.suggestions if _may_see(index, index.page_number(name), groups)]
+        visible = [name for name in error.suggestions if index.may_see(index.page_number(name), groups)]
         raise from_library(UnknownPage(page, visible)) from None
-    if not _may_see(index, number, groups):
+    if not index.may_see(number, groups):
         raise from_library(UnknownPage(page))
     return number
 
@@ -203,7 +197,7 @@ def make_router(max_k: int) -> APIRouter:
         index = loaded.index
         found = []
         for number in _prefixed(index, prefix):
-            if _may_see(index, number, groups) and not index.archived[number]:
+            if index.may_see(number, groups) and not index.archived[number]:
                 found.append(
                     PageMatch(
                         page=index.pages[number], title=index.titles[number], space=index.space_of(number)

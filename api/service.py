@@ -14,6 +14,7 @@ from pathlib import Path
 
 from prometheus_client import CollectorRegistry
 
+from rankrec.privacy import stored_id
 from rankrec.store import Store
 
 from .auth import TokenTable
@@ -48,11 +49,7 @@ class Service:
 
     def user_id(self, user: str) -> str:
         """The id under which ``user`` is stored: its keyed pseudonym when a key is configured."""
-        if self._key is None:
-            return user
-        from rankrec.privacy import pseudonym
-
-        return pseudonym(self._key, user)
+        return stored_id(self._key, user)
 
     def read_store(self, wiki: Path) -> Store:
         """A store connection for reading, one per thread and store file (kept open for reuse)."""

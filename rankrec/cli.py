@@ -59,10 +59,9 @@ def _pseudonym_key(args: argparse.Namespace) -> bytes | None:
 
 def _stored_user(args: argparse.Namespace, user: str) -> str:
     """The id ``user`` is stored under: its keyed pseudonym when ``--pseudonym-key`` is given."""
-    from .privacy import pseudonym
+    from .privacy import stored_id
 
-    key = _pseudonym_key(args)
-    return user if key is None else pseudonym(key, user)
+    return stored_id(_pseudonym_key(args), user)
 
 
 # -- import ---------------------------------------------------------------------------------------

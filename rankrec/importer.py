@@ -16,7 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import InputError
-from .privacy import pseudonym
+from .privacy import stored_id
 from .sources import detect_format, read_source
 from .sources.records import LinkRecord, MembershipRecord, PageRecord, ViewRecord
 from .store import Store
@@ -74,7 +74,7 @@ class _PageLedger:
     with another title) and how user ids are stored (as given, or as keyed pseudonyms)."""
 
     def __init__(self, pseudonym_key: bytes | None = None) -> None:
-        self.user = (lambda user: user) if pseudonym_key is None else partial(pseudonym, pseudonym_key)
+        self.user = partial(stored_id, pseudonym_key)
         self.seen: dict[str, tuple[str, str]] = {}
 
     def check(self, record: PageRecord) -> InputError | None:

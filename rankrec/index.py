@@ -604,6 +604,12 @@ class Index:
         code = int(self.space[number])
         return self.space_names[code] if code >= 0 else None
 
+    def may_see(self, number: int, groups: frozenset[str] | None) -> bool:
+        """Whether a reader in ``groups`` may see page ``number`` (the rule of :meth:`visible`, one page)."""
+        row = self.page_groups
+        codes = row.indices[row.indptr[number] : row.indptr[number + 1]]
+        return codes.size == 0 or any(self.group_names[int(code)] in (groups or ()) for code in codes)
+
     def visible(self, groups: frozenset[str] | None) -> np.ndarray:
         """Pages a reader in ``groups`` may see: public ones and those sharing a group (None: public only)."""
         mask = self.public.copy()

@@ -53,6 +53,16 @@ def is_pseudonym(user: str) -> bool:
     return user.startswith(PREFIX) and len(body) == 32 and all(c in "0123456789abcdef" for c in body)
 
 
+def stored_id(key: bytes | None, user: str) -> str:
+    """The id ``user``'s history is stored under: its pseudonym under ``key``, or ``user`` without a key.
+
+    >>> key = b"0123456789abcdef"
+    >>> stored_id(None, "ines"), stored_id(key, "ines") == pseudonym(key, "ines")
+    ('ines', True)
+    """
+    return user if key is None else pseudonym(key, user)
+
+
 def new_key(path: str | Path) -> bytes:
     """Write a new random key to ``path`` (hex text, mode 0600) and return it.
 

@@ -79,10 +79,10 @@ class EvaluationData:
         return int(self.pages.size)
 
 
-def _fingerprint(pages, adjacency, users, viewed, times, teams) -> str:
-    digest = hashlib.sha256()
-    digest.update("\0".join(map(str, pages.tolist())).encode())
-    for array in (adjacency.indptr, adjacency.indices, adjacency.data, users, viewed, times):
+def _fingerprint(graph_fingerprint: str, users, viewed, times, teams) -> str:
+    """The graph's own fingerprint (pages and links, already hashed by load_graph) and the views."""
+    digest = hashlib.sha256(graph_fingerprint.encode())
+    for array in (users, viewed, times):
         digest.update(np.ascontiguousarray(array).tobytes())
     if teams is not None:
         digest.update(np.ascontiguousarray(teams).tobytes())
@@ -121,7 +121,7 @@ def load_data(store: Store) -> EvaluationData:
         store=str(store.path), pages=graph.pages, adjacency=adjacency, users=users, viewed=dense,
         times=times, space=space.astype(np.int64).ravel(), space_names=tuple(map(str, space_names)),
         teams=teams, team_names=team_names,
-        fingerprint=_fingerprint(graph.pages, adjacency, users, dense, times, teams), counts=counts,
+        fingerprint=_fingerprint(graph.fingerprint, users, dense, times, teams), counts=counts,
     )
 
 
