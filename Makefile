@@ -17,7 +17,8 @@ demo: $(STAMP)
 	$(BIN)/rankrec demo --workdir $(DEMO_DIR)
 
 test: $(STAMP)
-	$(BIN)/python -m ruff check rankrec api tests
+	$(BIN)/python -m ruff check rankrec api tests tools
+	$(BIN)/python -m ruff format --check rankrec api tests tools
 	$(BIN)/python -m pytest --cov --cov-report=term:skip-covered --cov-fail-under=85 rankrec api tests
 
 bench: $(STAMP)
@@ -27,7 +28,8 @@ serve: $(STAMP)
 	$(BIN)/rankrec serve --workdir $(DEMO_DIR)
 
 lint: $(STAMP)
-	$(BIN)/python -m ruff check rankrec api tests
+	$(BIN)/python -m ruff check rankrec api tests tools
+	$(BIN)/python -m ruff format --check rankrec api tests tools
 
 clean:
 	rm -rf $(VENV) build .pytest_cache .coverage

@@ -116,14 +116,20 @@ def show_evaluation(store, folder: Path, out: TextIO) -> None:
     evaluation = run_evaluation(data, make_split(data, "temporal"), samples=500)
     write_report(evaluation, folder)
     queries = len(evaluation.split.queries)
-    out.write(f"\nOffline evaluation (temporal split: the last 20% of the time span is test, {queries} "
-              "readers; nDCG@10 with per-user bootstrap 95% interval):\n")
+    out.write(
+        f"\nOffline evaluation (temporal split: the last 20% of the time span is test, {queries} "
+        "readers; nDCG@10 with per-user bootstrap 95% interval):\n"
+    )
     for name, scores in evaluation.methods.items():
         low, high = scores.ci95["ndcg@10"]
         out.write(f"  {name:<15} {scores.means['ndcg@10']:.3f}  [{low:.3f}, {high:.3f}]\n")
     found = evaluation.comparison["metrics"]["ndcg@10"]
     configuration = ", ".join(f"{key} {value:g}" for key, value in evaluation.configuration.as_dict().items())
-    out.write(f"rankrec ({configuration}, chosen on a validation split) minus {evaluation.best_baseline}: "
-              f"{found['difference']:+.3f} [{found['ci95'][0]:+.3f}, {found['ci95'][1]:+.3f}]\n")
-    out.write(f"The full report is in {folder} (report.md, results.json, plots; "
-              f"`rankrec evaluate --wiki {store.path} --report DIR` makes it again).\n")
+    out.write(
+        f"rankrec ({configuration}, chosen on a validation split) minus {evaluation.best_baseline}: "
+        f"{found['difference']:+.3f} [{found['ci95'][0]:+.3f}, {found['ci95'][1]:+.3f}]\n"
+    )
+    out.write(
+        f"The full report is in {folder} (report.md, results.json, plots; "
+        f"`rankrec evaluate --wiki {store.path} --report DIR` makes it again).\n"
+    )

@@ -137,8 +137,10 @@ class CutoffOutsideSpan(RankrecError):
         super().__init__(str(self))
 
     def __str__(self) -> str:
-        return (f"cutoff {_iso(self.cutoff)} lies outside the views, which run from {_iso(self.first)} "
-                f"to {_iso(self.last)}")
+        return (
+            f"cutoff {_iso(self.cutoff)} lies outside the views, which run from {_iso(self.first)} "
+            f"to {_iso(self.last)}"
+        )
 
     def __reduce__(self):
         return (type(self), (self.cutoff, self.first, self.last))

@@ -54,8 +54,22 @@ def test_lists_are_the_same_with_the_key_as_without(stores, capsys):
     for wiki, extra in ((plain, []), (keyed, ["--pseudonym-key", str(key_file)])):
         index = str(wiki.parent / "index")
         assert main(["recommend", user, "--index", index, "--format", "json", *extra]) == 0
-        assert main(["related", "--viewer", user, _first_page(index), "--index", index, "--format", "json",
-                     *extra]) == 0
+        assert (
+            main(
+                [
+                    "related",
+                    "--viewer",
+                    user,
+                    _first_page(index),
+                    "--index",
+                    index,
+                    "--format",
+                    "json",
+                    *extra,
+                ]
+            )
+            == 0
+        )
         assert main(["landing", "field-sales", "--index", index, "--format", "json"]) == 0
         outputs.append(capsys.readouterr().out)
     assert outputs[0] == outputs[1]

@@ -36,7 +36,7 @@ SESSION_GAP = 0.5  # the --gap that makes each path its own session
 def _rows(path: Path, *, header: bool) -> list[list[str]]:
     text = path.read_text(encoding="utf-8")
     lines = [line for line in text.splitlines() if line and not line.startswith("#")]
-    return [line.split("\t") for line in lines[1 if header else 0:]]
+    return [line.split("\t") for line in lines[1 if header else 0 :]]
 
 
 def _spaces(categories: Path) -> dict[str, str]:
@@ -73,8 +73,9 @@ def write_files(data: Path, out: Path) -> dict[str, Path]:
     with files["pages"].open("w", encoding="utf-8", newline="") as handle:
         writer = csv.writer(handle, lineterminator="\n")
         writer.writerow(["id", "title", "space"])
-        writer.writerows([article, unquote(article).replace("_", " "), spaces.get(article, "")]
-                         for article in articles)
+        writer.writerows(
+            [article, unquote(article).replace("_", " "), spaces.get(article, "")] for article in articles
+        )
     with files["edges"].open("w", encoding="utf-8") as handle:
         handle.write("source\ttarget\n")
         links = _rows(data / "links.tsv", header=True)
@@ -104,19 +105,29 @@ def prepare(data: Path, out: Path) -> Path:
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--data", type=Path, default=Path("../shared/data/wikispeedia"),
-                        help="the Wikispeedia folder (articles, categories, links, paths_unfinished .tsv)")
-    parser.add_argument("--out", type=Path, default=Path("build/wikispeedia"),
-                        help="where the files and the store go")
+    parser.add_argument(
+        "--data",
+        type=Path,
+        default=Path("../shared/data/wikispeedia"),
+        help="the Wikispeedia folder (articles, categories, links, paths_unfinished .tsv)",
+    )
+    parser.add_argument(
+        "--out", type=Path, default=Path("build/wikispeedia"), help="where the files and the store go"
+    )
     args = parser.parse_args(argv)
-    missing = [name for name in ("articles.tsv", "categories.tsv", "links.tsv", "paths_unfinished.tsv")
-               if not (args.data / name).is_file()]
+    missing = [
+        name
+        for name in ("articles.tsv", "categories.tsv", "links.tsv", "paths_unfinished.tsv")
+        if not (args.data / name).is_file()
+    ]
     if missing:
         print(f"wikispeedia: {args.data} lacks {', '.join(missing)}", file=sys.stderr)
         return 2
     wiki = prepare(args.data, args.out)
-    print(f"store written to {wiki}; evaluate with\n  rankrec evaluate --wiki {wiki} --report "
-          f"{args.out / 'report'} --split sessions --gap {SESSION_GAP}")
+    print(
+        f"store written to {wiki}; evaluate with\n  rankrec evaluate --wiki {wiki} --report "
+        f"{args.out / 'report'} --split sessions --gap {SESSION_GAP}"
+    )
     return 0
 
 

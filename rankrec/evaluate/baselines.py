@@ -172,9 +172,9 @@ def _fill_from_orders(
     todo = todo[np.argsort(width[todo], kind="stable")]
     start = 0
     while start < todo.size:
-        ahead = width[todo[start:start + _CHUNK_ELEMENTS]]  # ascending
+        ahead = width[todo[start : start + _CHUNK_ELEMENTS]]  # ascending
         fits = int(np.count_nonzero(np.arange(1, ahead.size + 1) * np.maximum(ahead, 1) <= _CHUNK_ELEMENTS))
-        chunk = todo[start:start + max(1, fits)]
+        chunk = todo[start : start + max(1, fits)]
         span = int(width[chunk].max())
         candidates = orders[group[chunk], :span]
         cells = chunk[:, None] * excluded.shape[1] + candidates
@@ -279,7 +279,7 @@ class RandomPages:
         dense_rows = np.flatnonzero(~((2 * allowed >= size) & (allowed > 2 * k)))
         per_chunk = max(1, _CHUNK_ELEMENTS // size)
         for start in range(0, dense_rows.size, per_chunk):
-            chunk = dense_rows[start:start + per_chunk]
+            chunk = dense_rows[start : start + per_chunk]
             noise = rng.random((chunk.size, size))
             block = sp.csr_array(excluded[chunk])
             noise[np.repeat(np.arange(chunk.size), np.diff(block.indptr)), block.indices] = np.inf
@@ -327,8 +327,9 @@ class OutLinks:
         links = check_adjacency(self.adjacency, split)
         links.data[:] = 1.0
         popularity = sp.diags_array(1.0 + training_counts(split.train))
-        return _ranked_product(_seeds(split, 1, last_only=True), sp.csr_array(links @ popularity),
-                               excluded_pages(split), k)
+        return _ranked_product(
+            _seeds(split, 1, last_only=True), sp.csr_array(links @ popularity), excluded_pages(split), k
+        )
 
 
 @dataclass(frozen=True)
@@ -349,8 +350,9 @@ class CoVisitation:
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
         k = check_count("k", k)
-        gap = check_positive("gap", self.gap if self.gap is not None else split.settings.get(
-            "gap", SESSION_GAP_SECONDS))
+        gap = check_positive(
+            "gap", self.gap if self.gap is not None else split.settings.get("gap", SESSION_GAP_SECONDS)
+        )
         cosine = covisitation(split.train, gap=gap, max_session_pages=self.max_session_pages)
         if self.neighbours is not None:
             cosine = _strongest(cosine, check_count("neighbours", self.neighbours))
@@ -395,8 +397,9 @@ def check_recommendations(split: Split, lists, k: int) -> np.ndarray:
     excluded page. Returns them as int64; ValueError names the first broken rule."""
     array = np.asarray(lists)
     if array.shape != (len(split.queries), k) or (array.size and array.dtype.kind not in "iu"):
-        raise ValueError(f"lists must be integers of shape {(len(split.queries), k)!r}; got "
-                         f"{array.dtype} {array.shape!r}")
+        raise ValueError(
+            f"lists must be integers of shape {(len(split.queries), k)!r}; got {array.dtype} {array.shape!r}"
+        )
     array = array.astype(np.int64)
     if array.size and (array.min() < -1 or array.max() >= split.size):
         raise ValueError(f"lists hold pages outside [-1, {split.size}): {array.min()!r}..{array.max()!r}")

@@ -53,13 +53,15 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
 
     out = out or sys.stdout
     try:  # settings first, so that a bad value costs no reading
-        start = Configuration(damping=args.damping, half_life_days=args.half_life, blend=args.blend,
-                              lift=args.lift)
+        start = Configuration(
+            damping=args.damping, half_life_days=args.half_life, blend=args.blend, lift=args.lift
+        )
         grid = None
         if not args.no_sweep:
             defaults = Grid()
             grid = Grid(
-                damping=args.grid_damping or defaults.damping, lift=args.grid_lift or defaults.lift,
+                damping=args.grid_damping or defaults.damping,
+                lift=args.grid_lift or defaults.lift,
                 half_life_days=args.grid_half_life or defaults.half_life_days,
                 blend=args.grid_blend or defaults.blend,
             )
@@ -67,24 +69,43 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
             if getattr(args, name) < 1:
                 raise ValueError(f"--{name} must be at least 1; got {getattr(args, name)!r}")
         if not 0 < args.test_share < 1 or args.gap <= 0:
-            raise ValueError(f"--test-share must lie in (0, 1) and --gap be positive; got "
-                             f"{args.test_share!r} and {args.gap!r}")
+            raise ValueError(
+                f"--test-share must lie in (0, 1) and --gap be positive; got "
+                f"{args.test_share!r} and {args.gap!r}"
+            )
     except ValueError as error:
         print(f"rankrec evaluate: {error}", file=sys.stderr)
         return EXIT_USAGE
     with open_store(args.wiki) as store:
         data = load_data(store)
-    split = make_split(data, args.split, cutoff=args.cutoff, test_share=args.test_share, gap=args.gap,
-                       n=args.last, prefix=args.prefix)
+    split = make_split(
+        data,
+        args.split,
+        cutoff=args.cutoff,
+        test_share=args.test_share,
+        gap=args.gap,
+        n=args.last,
+        prefix=args.prefix,
+    )
     bar = _bar(None)
     try:
+
         def progress(description: str, done: int, total: int) -> None:
             bar.total = total
             bar.set_description(description[:40], refresh=False)
             bar.update(done - bar.n)
 
-        evaluation = run_evaluation(data, split, grid=grid, start=start, ks=args.k, samples=args.samples,
-                                    seed=args.seed, workers=args.workers, progress=progress)
+        evaluation = run_evaluation(
+            data,
+            split,
+            grid=grid,
+            start=start,
+            ks=args.k,
+            samples=args.samples,
+            seed=args.seed,
+            workers=args.workers,
+            progress=progress,
+        )
     finally:
         bar.close()
     write_report(evaluation, args.report)
@@ -107,8 +128,10 @@ def _summary(evaluation, out) -> None:
     out.write(f"rankrec configuration: {shown_configuration}\n")
     if found is not None:
         low, high = found["ci95"]
-        out.write(f"rankrec − {evaluation.best_baseline} (best baseline), ndcg@{k}: "
-                  f"{found['difference']:+.4f}, 95% interval [{low:+.4f}, {high:+.4f}]\n")
+        out.write(
+            f"rankrec − {evaluation.best_baseline} (best baseline), ndcg@{k}: "
+            f"{found['difference']:+.4f}, 95% interval [{low:+.4f}, {high:+.4f}]\n"
+        )
 
 
 def register(commands) -> None:
@@ -127,38 +150,77 @@ def register(commands) -> None:
     command.add_argument("--wiki", required=True, metavar="WIKI.db", help="the wiki store")
     command.add_argument("--report", required=True, metavar="DIR", help="the report folder to (re)place")
     command.add_argument(
-        "--split", default="temporal", choices=("temporal", "last-n", "sessions"),
+        "--split",
+        default="temporal",
+        choices=("temporal", "last-n", "sessions"),
         help="temporal: each reader's new pages after a global cutoff (default); last-n: each reader's "
-             "last N views; sessions: given a session's first page(s), the pages it goes on to",
+        "last N views; sessions: given a session's first page(s), the pages it goes on to",
     )
     command.add_argument(
-        "--cutoff", type=_cutoff, metavar="ISO-DATE",
+        "--cutoff",
+        type=_cutoff,
+        metavar="ISO-DATE",
         help="start of the test period (default: the last --test-share of the time span)",
     )
-    command.add_argument("--test-share", type=float, default=0.2, metavar="S",
-                         help="share of the time span that is test when no cutoff is given (0.2)")
-    command.add_argument("--gap", type=float, default=SESSION_GAP_SECONDS, metavar="SECONDS",
-                         help="inactivity that ends a session, in seconds (1800)")
-    command.add_argument("--prefix", type=int, default=1, metavar="P",
-                         help="sessions: pages of each session given as the query (1)")
-    command.add_argument("--last", type=int, default=1, metavar="N",
-                         help="last-n: views held out per reader (1)")
-    command.add_argument("-k", type=_ks, default=(1, 3, 5, 10, 20), metavar="K,K,...",
-                         help="list lengths to score (default 1,3,5,10,20; the headline is 10 when listed)")
-    command.add_argument("--seed", type=int, default=0,
-                         help="seed of the random baseline and the bootstrap (0)")
+    command.add_argument(
+        "--test-share",
+        type=float,
+        default=0.2,
+        metavar="S",
+        help="share of the time span that is test when no cutoff is given (0.2)",
+    )
+    command.add_argument(
+        "--gap",
+        type=float,
+        default=SESSION_GAP_SECONDS,
+        metavar="SECONDS",
+        help="inactivity that ends a session, in seconds (1800)",
+    )
+    command.add_argument(
+        "--prefix",
+        type=int,
+        default=1,
+        metavar="P",
+        help="sessions: pages of each session given as the query (1)",
+    )
+    command.add_argument(
+        "--last", type=int, default=1, metavar="N", help="last-n: views held out per reader (1)"
+    )
+    command.add_argument(
+        "-k",
+        type=_ks,
+        default=(1, 3, 5, 10, 20),
+        metavar="K,K,...",
+        help="list lengths to score (default 1,3,5,10,20; the headline is 10 when listed)",
+    )
+    command.add_argument(
+        "--seed", type=int, default=0, help="seed of the random baseline and the bootstrap (0)"
+    )
     command.add_argument("--samples", type=int, default=1000, metavar="B", help="bootstrap resamples (1000)")
-    command.add_argument("--workers", type=int, default=1, metavar="N",
-                         help="threads of the power iteration (1)")
+    command.add_argument(
+        "--workers", type=int, default=1, metavar="N", help="threads of the power iteration (1)"
+    )
     settings = command.add_argument_group("rankrec's settings (the sweeps start from these)")
-    settings.add_argument("--damping", type=float, default=0.85,
-                          help="probability of following a link (0.85)")
-    settings.add_argument("--half-life", type=float, default=30.0, metavar="DAYS",
-                          help="half-life of a view in a reader's profile (30 days)")
-    settings.add_argument("--blend", type=float, default=0.3, metavar="W",
-                          help="share of a page's row given to observed navigation (0.3)")
-    settings.add_argument("--lift", type=float, default=0.5, metavar="B",
-                          help="rank by score / global^B (0.5)")
+    settings.add_argument(
+        "--damping", type=float, default=0.85, help="probability of following a link (0.85)"
+    )
+    settings.add_argument(
+        "--half-life",
+        type=float,
+        default=30.0,
+        metavar="DAYS",
+        help="half-life of a view in a reader's profile (30 days)",
+    )
+    settings.add_argument(
+        "--blend",
+        type=float,
+        default=0.3,
+        metavar="W",
+        help="share of a page's row given to observed navigation (0.3)",
+    )
+    settings.add_argument(
+        "--lift", type=float, default=0.5, metavar="B", help="rank by score / global^B (0.5)"
+    )
     settings.add_argument("--no-sweep", action="store_true", help="use these settings as they are")
     grid = command.add_argument_group("sweep grids (comma-separated values)")
     grid.add_argument("--grid-damping", type=_numbers, metavar="V,V,...", help="default 0.5,0.7,0.85,0.95")

@@ -112,8 +112,13 @@ def restart_matrix(split: Split, *, half_life_days: float) -> tuple[sp.csr_matri
         known = np.isin(train.users, sorted_users)
         local = np.searchsorted(sorted_users, train.users[known])
         profiles = profile_matrix(
-            local, train.pages[known], train.times[known], split.size, now=float(now),
-            half_life_days=half_life_days, user_count=sorted_users.size,
+            local,
+            train.pages[known],
+            train.times[known],
+            split.size,
+            now=float(now),
+            half_life_days=half_life_days,
+            user_count=sorted_users.size,
         )
         blocks.append(profiles[np.searchsorted(sorted_users, users)])
         order.append(chosen)
@@ -211,6 +216,7 @@ class PersonalisedPageRank:
     name: str = "rankrec"
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
-        found = rankrec_lists(split, self.adjacency, k, self.configuration, gap=self.gap, tol=self.tol,
-                              workers=self.workers)
+        found = rankrec_lists(
+            split, self.adjacency, k, self.configuration, gap=self.gap, tol=self.tol, workers=self.workers
+        )
         return found[float(self.configuration.lift)]

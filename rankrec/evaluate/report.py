@@ -30,9 +30,16 @@ from .run import Evaluation
 
 PLOTTED = ("ndcg", "ndcg_graded", "recall", "hit_rate", "precision", "map")
 LABELS = {
-    "ndcg": "nDCG (binary)", "ndcg_graded": "nDCG (graded)", "recall": "recall", "hit_rate": "hit rate",
-    "precision": "precision", "map": "MAP", "mrr": "MRR", "coverage": "catalogue coverage",
-    "novelty": "novelty (bits)", "intra_list_diversity": "distinct spaces per page",
+    "ndcg": "nDCG (binary)",
+    "ndcg_graded": "nDCG (graded)",
+    "recall": "recall",
+    "hit_rate": "hit rate",
+    "precision": "precision",
+    "map": "MAP",
+    "mrr": "MRR",
+    "coverage": "catalogue coverage",
+    "novelty": "novelty (bits)",
+    "intra_list_diversity": "distinct spaces per page",
     "unvisited_share": "share never visited",
 }
 ACCURACY = ("ndcg", "ndcg_graded", "recall", "hit_rate", "precision", "map")
@@ -63,19 +70,30 @@ def results(evaluation: Evaluation) -> dict:
     sweeps = []
     if evaluation.choice is not None:
         for sweep in evaluation.choice.sweeps:
-            sweeps.append({"rows": sweep.row_name, "columns": sweep.column_name, "row_values": sweep.rows,
-                           "column_values": sweep.columns, evaluation.choice.metric: sweep.scores,
-                           "fixed": dict(sweep.fixed)})
-    return _clean({
-        "settings": {**evaluation.settings, "rankrec_version": __version__},
-        "methods": methods,
-        "best_baseline": evaluation.best_baseline,
-        "comparison": evaluation.comparison,
-        "sweeps": sweeps,
-        "validation": evaluation.validation_scores,
-        "seconds": {**evaluation.seconds, **{f"test {name}": scores.seconds
-                                             for name, scores in evaluation.methods.items()}},
-    })
+            sweeps.append(
+                {
+                    "rows": sweep.row_name,
+                    "columns": sweep.column_name,
+                    "row_values": sweep.rows,
+                    "column_values": sweep.columns,
+                    evaluation.choice.metric: sweep.scores,
+                    "fixed": dict(sweep.fixed),
+                }
+            )
+    return _clean(
+        {
+            "settings": {**evaluation.settings, "rankrec_version": __version__},
+            "methods": methods,
+            "best_baseline": evaluation.best_baseline,
+            "comparison": evaluation.comparison,
+            "sweeps": sweeps,
+            "validation": evaluation.validation_scores,
+            "seconds": {
+                **evaluation.seconds,
+                **{f"test {name}": scores.seconds for name, scores in evaluation.methods.items()},
+            },
+        }
+    )
 
 
 def write_report(evaluation: Evaluation, folder: str | Path) -> Path:
@@ -149,9 +167,15 @@ def _plot_sweep(evaluation: Evaluation, sweep, staging: Path) -> str:
     for row, row_value in enumerate(sweep.rows):
         for column, column_value in enumerate(sweep.columns):
             chosen = row_value == best_row and column_value == best_column
-            ax.text(column, row, f"{sweep.scores[row, column]:.3f}", ha="center", va="center",
-                    color="red" if chosen else "black" if bright[row, column] else "white",
-                    fontweight="bold" if chosen else "normal")
+            ax.text(
+                column,
+                row,
+                f"{sweep.scores[row, column]:.3f}",
+                ha="center",
+                va="center",
+                color="red" if chosen else "black" if bright[row, column] else "white",
+                fontweight="bold" if chosen else "normal",
+            )
     figure.colorbar(image, ax=ax, label=f"validation {evaluation.choice.metric}")
     fixed = ", ".join(f"{name.replace('_', ' ')} {value:g}" for name, value in sweep.fixed.items())
     ax.set_title(f"{sweep.row_name} × {sweep.column_name} ({fixed})".replace("_", " "), fontsize=10)
@@ -234,9 +258,12 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
         f"({data['views_outside_the_graph']:,} views of pages outside the graph left out).",
         "## Task",
         f"Split **{split['name']}** ({_split_settings(split)}).\n\n- test split: {_counts(counts['test'])}"
-        + ("" if counts["validation"] is None else
-           f"\n- validation split (carved from the training part by the same rule): "
-           f"{_counts(counts['validation'])}"),
+        + (
+            ""
+            if counts["validation"] is None
+            else f"\n- validation split (carved from the training part by the same rule): "
+            f"{_counts(counts['validation'])}"
+        ),
         "Every method answers the same queries of the same split, learns from its training views only, "
         "and may not list the excluded pages (the pages a reader read in training, or a session's own first "
         "pages). Metrics are over the full catalogue (no sampled negatives).",
@@ -245,24 +272,40 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
     if settings["grid"] is None:
         blocks.append("No sweep was run: the configuration is the one given.")
     else:
-        blocks.append(f"Chosen by {settings['chosen_by']} (validation {evaluation.choice.metric} "
-                      f"{evaluation.choice.score:.3f}); the test split played no part.")
+        blocks.append(
+            f"Chosen by {settings['chosen_by']} (validation {evaluation.choice.metric} "
+            f"{evaluation.choice.score:.3f}); the test split played no part."
+        )
     configuration = settings["rankrec"]
     names = ("damping", "half_life_days", "blend", "lift")
-    blocks.append(_table(["damping", "half-life (days)", "navigation blend", "lift exponent"],
-                         [[f"{configuration[name]:g}" for name in names]]))
+    blocks.append(
+        _table(
+            ["damping", "half-life (days)", "navigation blend", "lift exponent"],
+            [[f"{configuration[name]:g}" for name in names]],
+        )
+    )
     if evaluation.choice is not None and evaluation.choice.notes:
         blocks.append(" ".join(f"Note: {note}." for note in evaluation.choice.notes))
     blocks += [
         f"## Results on the test split (k = {k})",
         "Mean over queries, with the per-user bootstrap 95% interval "
         f"({settings['bootstrap']['samples']:,} resamples of users).",
-        _table(["method", *(f"{LABELS[m]}@{k}" for m in ACCURACY), "MRR"],
-               [[name, *(_with_interval(methods[name], f"{m}@{k}") for m in ACCURACY),
-                 _with_interval(methods[name], "mrr")] for name in methods]),
+        _table(
+            ["method", *(f"{LABELS[m]}@{k}" for m in ACCURACY), "MRR"],
+            [
+                [
+                    name,
+                    *(_with_interval(methods[name], f"{m}@{k}") for m in ACCURACY),
+                    _with_interval(methods[name], "mrr"),
+                ]
+                for name in methods
+            ],
+        ),
         "Beyond accuracy (coverage is one number for the catalogue: no interval):",
-        _table(["method", *(f"{LABELS[m]}@{k}" for m in BEYOND)],
-               [[name, *(_with_interval(methods[name], f"{m}@{k}") for m in BEYOND)] for name in methods]),
+        _table(
+            ["method", *(f"{LABELS[m]}@{k}" for m in BEYOND)],
+            [[name, *(_with_interval(methods[name], f"{m}@{k}") for m in BEYOND)] for name in methods],
+        ),
     ]
     comparison = content["comparison"]
     best = comparison["rankrec_vs"]
@@ -273,27 +316,44 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
         f"The best baseline is the one with the highest {comparison['best_baseline_chosen_on']}"
         + (f" (validation: {validation})" if validation else "")
         + ". Differences are rankrec minus the baseline, paired by query, users resampled whole.",
-        _table(header, [
-            [metric, _number(found["rankrec"]), _number(found[best]), f"{found['difference']:+.3f}",
-             f"[{found['ci95'][0]:+.3f}, {found['ci95'][1]:+.3f}]", f"{found['share_rankrec_better']:.2f}"]
-            for metric, found in comparison["metrics"].items()]),
+        _table(
+            header,
+            [
+                [
+                    metric,
+                    _number(found["rankrec"]),
+                    _number(found[best]),
+                    f"{found['difference']:+.3f}",
+                    f"[{found['ci95'][0]:+.3f}, {found['ci95'][1]:+.3f}]",
+                    f"{found['share_rankrec_better']:.2f}",
+                ]
+                for metric, found in comparison["metrics"].items()
+            ],
+        ),
         "**" + _verdict(comparison) + "**",
         "Against every baseline:",
-        _table(["baseline", f"rankrec − baseline, nDCG@{k}", f"rankrec − baseline, hit rate@{k}"],
-               [[baseline, _interval_cell(found.get(f"ndcg@{k}")), _interval_cell(found.get(f"hit_rate@{k}"))]
-                for baseline, found in comparison["against_every_baseline"].items()]),
+        _table(
+            ["baseline", f"rankrec − baseline, nDCG@{k}", f"rankrec − baseline, hit rate@{k}"],
+            [
+                [baseline, _interval_cell(found.get(f"ndcg@{k}")), _interval_cell(found.get(f"hit_rate@{k}"))]
+                for baseline, found in comparison["against_every_baseline"].items()
+            ],
+        ),
     ]
     if content["sweeps"]:
         blocks.append("## Sweeps (validation split)")
         metric = evaluation.choice.metric
         for sweep in content["sweeps"]:
             fixed = ", ".join(f"{key.replace('_', ' ')} {value:g}" for key, value in sweep["fixed"].items())
-            blocks.append(f"Validation {metric}, {sweep['rows'].replace('_', ' ')} (rows) × "
-                          f"{sweep['columns'].replace('_', ' ')} (columns), with {fixed}:")
+            blocks.append(
+                f"Validation {metric}, {sweep['rows'].replace('_', ' ')} (rows) × "
+                f"{sweep['columns'].replace('_', ' ')} (columns), with {fixed}:"
+            )
             header = [f"{sweep['rows']} \\ {sweep['columns']}", *(f"{v:g}" for v in sweep["column_values"])]
             lines = zip(sweep["row_values"], sweep[metric], strict=True)
-            blocks.append(_table(header, [[f"{value:g}", *(_number(cell) for cell in line)]
-                                          for value, line in lines]))
+            blocks.append(
+                _table(header, [[f"{value:g}", *(_number(cell) for cell in line)] for value, line in lines])
+            )
     blocks += ["## Plots", *(f"![{name}]({name})" for name in plots), "## Definitions", DEFINITIONS]
     return "\n\n".join(block.rstrip("\n") for block in blocks) + "\n"
 

@@ -98,13 +98,18 @@ def load_data(store: Store) -> EvaluationData:
     dense = dense_numbers(graph.row_ids, viewed)
     inside = dense >= 0
     if not inside.any():
-        raise InputError(store.path, None, "the wiki store holds no views of its pages; import view events "
-                         "first (rankrec import VIEWS.csv --wiki ...)")
+        raise InputError(
+            store.path,
+            None,
+            "the wiki store holds no views of its pages; import view events "
+            "first (rankrec import VIEWS.csv --wiki ...)",
+        )
     rows = store.connection.execute("SELECT id, space FROM pages WHERE present = 1 ORDER BY id").fetchall()
     names = ["(none)" if row[1] is None else str(row[1]) for row in rows]
     space_names, space = np.unique(np.array(names, dtype=object), return_inverse=True)
     memberships = store.connection.execute(
-        "SELECT user_id, name FROM memberships WHERE kind = 'team' ORDER BY name, user_id").fetchall()
+        "SELECT user_id, name FROM memberships WHERE kind = 'team' ORDER BY name, user_id"
+    ).fetchall()
     teams, team_names = None, ()
     if memberships:
         team_names = tuple(sorted({name for _, name in memberships}))
@@ -114,20 +119,40 @@ def load_data(store: Store) -> EvaluationData:
             teams[user] = team_names.index(name)
     users, dense, times = users[inside], dense[inside], times[inside]
     adjacency = sp.csr_matrix(graph.adjacency)
-    counts = {"pages": graph.size, "links": int(adjacency.nnz), "views": int(inside.sum()),
-              "views_outside_the_graph": int((~inside).sum()), "users": int(np.unique(users).size),
-              "spaces": len(space_names), "teams": len(team_names)}
+    counts = {
+        "pages": graph.size,
+        "links": int(adjacency.nnz),
+        "views": int(inside.sum()),
+        "views_outside_the_graph": int((~inside).sum()),
+        "users": int(np.unique(users).size),
+        "spaces": len(space_names),
+        "teams": len(team_names),
+    }
     return EvaluationData(
-        store=str(store.path), pages=graph.pages, adjacency=adjacency, users=users, viewed=dense,
-        times=times, space=space.astype(np.int64).ravel(), space_names=tuple(map(str, space_names)),
-        teams=teams, team_names=team_names,
-        fingerprint=_fingerprint(graph.fingerprint, users, dense, times, teams), counts=counts,
+        store=str(store.path),
+        pages=graph.pages,
+        adjacency=adjacency,
+        users=users,
+        viewed=dense,
+        times=times,
+        space=space.astype(np.int64).ravel(),
+        space_names=tuple(map(str, space_names)),
+        teams=teams,
+        team_names=team_names,
+        fingerprint=_fingerprint(graph.fingerprint, users, dense, times, teams),
+        counts=counts,
     )
 
 
 def make_split(
-    data: EvaluationData, kind: str = "temporal", *, cutoff: float | None = None, test_share: float = 0.2,
-    gap: float = SESSION_GAP_SECONDS, n: int = 1, prefix: int = 1,
+    data: EvaluationData,
+    kind: str = "temporal",
+    *,
+    cutoff: float | None = None,
+    test_share: float = 0.2,
+    gap: float = SESSION_GAP_SECONDS,
+    n: int = 1,
+    prefix: int = 1,
 ) -> Split:
     """The test split of ``kind`` (graded gains: binary metrics count any held-out view, graded nDCG their
     number). ``cutoff`` (Unix seconds) must lie inside the views' span (CutoffOutsideSpan); for ``last-n``
@@ -142,8 +167,9 @@ def make_split(
     if kind == "temporal":
         split = temporal_split(*views, test_share=test_share, cutoff=cutoff, gains="graded")
     elif kind == "sessions":
-        split = session_split(*views, gap=gap, test_share=test_share, cutoff=cutoff, prefix=prefix,
-                              gains="graded")
+        split = session_split(
+            *views, gap=gap, test_share=test_share, cutoff=cutoff, prefix=prefix, gains="graded"
+        )
     else:
         share = test_share if cutoff is None else (last - cutoff) / (last - first)
         split = last_n_split(*views, n=n, test_share=share, gains="graded")
@@ -197,8 +223,9 @@ class Evaluation:
 
 
 def _scores(lists: np.ndarray, split: Split, ks, popularity, data, visited) -> tuple[dict, dict]:
-    per_query = evaluate_lists(lists, split.relevant, ks=ks, popularity=popularity,
-                               space_of_page=data.space, visited=visited)
+    per_query = evaluate_lists(
+        lists, split.relevant, ks=ks, popularity=popularity, space_of_page=data.space, visited=visited
+    )
     for k in ks:
         per_query[f"ndcg_graded@{k}"] = ndcg(lists, split.relevant, k, gains="graded")
     catalogue = {f"coverage@{k}": coverage(lists, split.size, k=k) for k in ks}
@@ -251,14 +278,24 @@ def run_evaluation(
     validation_scores = {}
     if validation is not None:
         for method in methods:
-            validation_scores[method.name] = mean_metric(method.recommend(validation, headline), validation,
-                                                         headline)
+            validation_scores[method.name] = mean_metric(
+                method.recommend(validation, headline), validation, headline
+            )
             advance(f"validation: {method.name}")
     choice = None
     configuration = start
     if grid is not None:
-        choice = choose_configuration(split, data.adjacency, grid=grid, start=start, k=headline, tol=tol,
-                                      workers=workers, validation=validation, progress=advance)
+        choice = choose_configuration(
+            split,
+            data.adjacency,
+            grid=grid,
+            start=start,
+            k=headline,
+            tol=tol,
+            workers=workers,
+            validation=validation,
+            progress=advance,
+        )
         configuration = choice.configuration
         validation_scores["rankrec"] = choice.score
     seconds = {"validation": time.perf_counter() - started}
@@ -278,26 +315,34 @@ def run_evaluation(
         for index, (name, values) in enumerate(sorted(scores.per_query.items())):
             if np.isfinite(values).any():
                 rng = np.random.default_rng([seed, number, index])
-                scores.ci95[name] = list(bootstrap_ci(values, samples=samples, level=LEVEL, seed=rng,
-                                                      groups=split.queries.users))
+                scores.ci95[name] = list(
+                    bootstrap_ci(values, samples=samples, level=LEVEL, seed=rng, groups=split.queries.users)
+                )
     advance("bootstrap intervals")
     chosen_on = "validation" if validation_scores else "test"
-    ranking = validation_scores if validation_scores else {
-        name: scores.means[f"ndcg@{headline}"] for name, scores in scored.items()}
+    ranking = (
+        validation_scores
+        if validation_scores
+        else {name: scores.means[f"ndcg@{headline}"] for name, scores in scored.items()}
+    )
     candidates = [method.name for method in methods]
     best = max(candidates, key=lambda name: (_finite(ranking.get(name)), -candidates.index(name)))
-    comparison = _comparison(scored, best, candidates, headline, samples, seed, chosen_on,
-                             split.queries.users)
+    comparison = _comparison(
+        scored, best, candidates, headline, samples, seed, chosen_on, split.queries.users
+    )
     seconds["total"] = time.perf_counter() - started
     settings = {
         "split": {"name": split.name, **dict(split.settings)},
-        "counts": {"test": dict(split.counts), "validation": None if validation is None else
-                   dict(validation.counts)},
+        "counts": {
+            "test": dict(split.counts),
+            "validation": None if validation is None else dict(validation.counts),
+        },
         "ks": list(ks),
         "headline_k": headline,
         "bootstrap": {"samples": samples, "level": LEVEL, "seed": seed, "unit": "user"},
-        "grid": None if grid is None else {name: list(getattr(grid, name)) for name in
-                                           ("damping", "lift", "half_life_days", "blend")},
+        "grid": None
+        if grid is None
+        else {name: list(getattr(grid, name)) for name in ("damping", "lift", "half_life_days", "blend")},
         "start": start.as_dict(),
         "rankrec": configuration.as_dict(),
         "chosen_by": None if grid is None else f"mean ndcg@{headline} on the validation split",
@@ -305,8 +350,9 @@ def run_evaluation(
         "data": {"store": data.store, "fingerprint": data.fingerprint, **data.counts},
     }
     advance("comparison")
-    return Evaluation(settings, split, scored, validation_scores, best, comparison, choice, configuration,
-                      seconds)
+    return Evaluation(
+        settings, split, scored, validation_scores, best, comparison, choice, configuration, seconds
+    )
 
 
 def _finite(value) -> float:
@@ -317,8 +363,12 @@ def _paired(a: np.ndarray, b: np.ndarray, samples: int, rng, users: np.ndarray) 
     if not (np.isfinite(a) & np.isfinite(b)).any():
         return None
     result = paired_difference(a, b, samples=samples, level=LEVEL, seed=rng, groups=users)
-    return {"difference": result.mean_difference, "ci95": [result.low, result.high],
-            "share_rankrec_better": result.share_a_better, "queries": result.users}
+    return {
+        "difference": result.mean_difference,
+        "ci95": [result.low, result.high],
+        "share_rankrec_better": result.share_a_better,
+        "queries": result.users,
+    }
 
 
 def _comparison(scored, best, candidates, k, samples, seed, chosen_on, users) -> dict:
@@ -331,17 +381,24 @@ def _comparison(scored, best, candidates, k, samples, seed, chosen_on, users) ->
         rng = np.random.default_rng([seed, 1000, index])
         found = _paired(ours[name], scored[best].per_query[name], samples, rng, users)
         if found is not None:
-            metrics[name] = {"rankrec": scored["rankrec"].means[name], best: scored[best].means[name],
-                             **found}
+            metrics[name] = {
+                "rankrec": scored["rankrec"].means[name],
+                best: scored[best].means[name],
+                **found,
+            }
     every = {}
     for number, baseline in enumerate(candidates):
         every[baseline] = {}
         for index, name in enumerate((f"ndcg@{k}", f"hit_rate@{k}")):
             rng = np.random.default_rng([seed, 2000 + number, index])
-            every[baseline][name] = _paired(ours[name], scored[baseline].per_query[name], samples, rng,
-                                            users)
-    return {"rankrec_vs": best, "best_baseline_chosen_on": f"{chosen_on} ndcg@{k}", "level": LEVEL,
-            "metrics": metrics, "against_every_baseline": every}
+            every[baseline][name] = _paired(ours[name], scored[baseline].per_query[name], samples, rng, users)
+    return {
+        "rankrec_vs": best,
+        "best_baseline_chosen_on": f"{chosen_on} ndcg@{k}",
+        "level": LEVEL,
+        "metrics": metrics,
+        "against_every_baseline": every,
+    }
 
 
 def open_store(path: str | Path) -> Store:

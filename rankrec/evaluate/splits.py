@@ -193,9 +193,7 @@ def session_numbers(users: np.ndarray, times: np.ndarray, gap: float = SESSION_G
 
 
 def _relevance(rows, pages, size: int, queries: int, gains: str) -> sp.csr_array:
-    matrix = sp.csr_array(
-        (np.ones(rows.size), (rows, pages)), shape=(queries, size), dtype=np.float64
-    )
+    matrix = sp.csr_array((np.ones(rows.size), (rows, pages)), shape=(queries, size), dtype=np.float64)
     matrix.sum_duplicates()
     matrix.sort_indices()
     if gains == "binary":
@@ -214,8 +212,22 @@ def _member(keys: np.ndarray, sorted_keys: np.ndarray) -> np.ndarray:
 
 
 def _user_task(
-    name, users, pages, times, size, train, test, *, cutoff, train_until, query_time, new_only, gains,
-    min_train_views, settings, unused,
+    name,
+    users,
+    pages,
+    times,
+    size,
+    train,
+    test,
+    *,
+    cutoff,
+    train_until,
+    query_time,
+    new_only,
+    gains,
+    min_train_views,
+    settings,
+    unused,
 ) -> Split:
     """Shared tail of the user tasks: ``train``/``test`` are masks over the sorted views."""
     codes, compact = np.unique(users, return_inverse=True)
@@ -259,8 +271,16 @@ def _user_task(
 
 
 def temporal_split(
-    users, pages, times, size: int, *, test_share: float = 0.2, cutoff: float | None = None,
-    min_train_views: int = 1, new_only: bool = True, gains: str = "binary",
+    users,
+    pages,
+    times,
+    size: int,
+    *,
+    test_share: float = 0.2,
+    cutoff: float | None = None,
+    min_train_views: int = 1,
+    new_only: bool = True,
+    gains: str = "binary",
 ) -> Split:
     """Global temporal cutoff: train on every view before it, predict each user's pages after it.
 
@@ -294,18 +314,44 @@ def temporal_split(
     users, pages, times, size = _checked(users, pages, times, size)
     cutoff = _default_cutoff(times, test_share, cutoff)
     train = times < cutoff
-    settings = {"test_share": test_share, "cutoff": cutoff, "min_train_views": min_train_views,
-                "new_only": bool(new_only), "gains": gains}
+    settings = {
+        "test_share": test_share,
+        "cutoff": cutoff,
+        "min_train_views": min_train_views,
+        "new_only": bool(new_only),
+        "gains": gains,
+    }
     return _user_task(
-        "temporal", users, pages, times, size, train, ~train, cutoff=cutoff, train_until=cutoff,
-        query_time=None, new_only=bool(new_only), gains=gains, min_train_views=min_train_views,
-        settings=settings, unused=0,
+        "temporal",
+        users,
+        pages,
+        times,
+        size,
+        train,
+        ~train,
+        cutoff=cutoff,
+        train_until=cutoff,
+        query_time=None,
+        new_only=bool(new_only),
+        gains=gains,
+        min_train_views=min_train_views,
+        settings=settings,
+        unused=0,
     )
 
 
 def last_n_split(
-    users, pages, times, size: int, *, n: int = 1, test_share: float | None = 0.2, global_cap: bool = True,
-    min_train_views: int = 1, new_only: bool = True, gains: str = "binary",
+    users,
+    pages,
+    times,
+    size: int,
+    *,
+    n: int = 1,
+    test_share: float | None = 0.2,
+    global_cap: bool = True,
+    min_train_views: int = 1,
+    new_only: bool = True,
+    gains: str = "binary",
 ) -> Split:
     """Hold out each test user's last ``n`` views.
 
@@ -350,18 +396,44 @@ def last_n_split(
         query_time = np.full(codes.size, np.inf)
         np.minimum.at(query_time, compact[held], times[held])
     unused = int((~train & ~held).sum())
-    settings = {"n": n, "test_share": test_share, "global_cap": bool(global_cap),
-                "min_train_views": min_train_views, "new_only": bool(new_only), "gains": gains}
+    settings = {
+        "n": n,
+        "test_share": test_share,
+        "global_cap": bool(global_cap),
+        "min_train_views": min_train_views,
+        "new_only": bool(new_only),
+        "gains": gains,
+    }
     return _user_task(
-        "last-n", users, pages, times, size, train, held, cutoff=cutoff, train_until=train_until,
-        query_time=query_time, new_only=bool(new_only), gains=gains, min_train_views=min_train_views,
-        settings=settings, unused=unused,
+        "last-n",
+        users,
+        pages,
+        times,
+        size,
+        train,
+        held,
+        cutoff=cutoff,
+        train_until=train_until,
+        query_time=query_time,
+        new_only=bool(new_only),
+        gains=gains,
+        min_train_views=min_train_views,
+        settings=settings,
+        unused=unused,
     )
 
 
 def session_split(
-    users, pages, times, size: int, *, gap: float = SESSION_GAP_SECONDS, test_share: float = 0.2,
-    cutoff: float | None = None, prefix: int = 1, gains: str = "binary",
+    users,
+    pages,
+    times,
+    size: int,
+    *,
+    gap: float = SESSION_GAP_SECONDS,
+    test_share: float = 0.2,
+    cutoff: float | None = None,
+    prefix: int = 1,
+    gains: str = "binary",
 ) -> Split:
     """Next pages of a session: given its first ``prefix`` views, predict the distinct pages it goes on to.
 
@@ -482,18 +554,22 @@ def assert_no_leakage(split: Split) -> None:
     """
     train, held = split.train, split.held_out
     if len(train) and not train.times.max() < split.train_until:
-        raise ValueError(f"split {split.name!r} leaks: a training view at {train.times.max()!r} is not "
-                         f"before train_until={split.train_until!r}")
+        raise ValueError(
+            f"split {split.name!r} leaks: a training view at {train.times.max()!r} is not "
+            f"before train_until={split.train_until!r}"
+        )
     for label, values in (("held-out view", held.times), ("query", split.queries.times)):
         if values.size and np.isfinite(split.train_until) and values.min() < split.train_until:
-            raise ValueError(f"split {split.name!r} leaks: a {label} at {values.min()!r} precedes "
-                             f"train_until={split.train_until!r}")
+            raise ValueError(
+                f"split {split.name!r} leaks: a {label} at {values.min()!r} precedes "
+                f"train_until={split.train_until!r}"
+            )
     if len(train) and len(held):
         codes, compact = np.unique(np.concatenate([train.users, held.users]), return_inverse=True)
         latest = np.full(codes.size, -np.inf)
         np.maximum.at(latest, compact[: len(train)], train.times)
         earliest = np.full(codes.size, np.inf)
-        np.minimum.at(earliest, compact[len(train):], held.times)
+        np.minimum.at(earliest, compact[len(train) :], held.times)
         if (latest > earliest).any():
             user = int(codes[np.argmax(latest > earliest)])
             raise ValueError(
@@ -501,8 +577,10 @@ def assert_no_leakage(split: Split) -> None:
             )
     relevant = split.relevant
     if relevant.shape != (len(split.queries), split.size):
-        raise ValueError(f"split {split.name!r}: relevant has shape {relevant.shape!r}, expected "
-                         f"{(len(split.queries), split.size)!r}")
+        raise ValueError(
+            f"split {split.name!r}: relevant has shape {relevant.shape!r}, expected "
+            f"{(len(split.queries), split.size)!r}"
+        )
     if int(np.asarray(relevant.sum()).round()) > len(held) or (len(held) and relevant.nnz == 0):
         raise ValueError(f"split {split.name!r}: relevant does not match the {len(held)!r} held-out views")
     overlap = relevant.multiply(excluded_pages(split))

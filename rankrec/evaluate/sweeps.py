@@ -95,21 +95,39 @@ def validation_split(split: Split) -> Split:
     train, settings = split.train, dict(split.settings)
     arguments = (train.users, train.pages, train.times, train.size)
     if split.name == "temporal":
-        made = temporal_split(*arguments, test_share=settings["test_share"],
-                              min_train_views=settings["min_train_views"], new_only=settings["new_only"],
-                              gains=settings["gains"])
+        made = temporal_split(
+            *arguments,
+            test_share=settings["test_share"],
+            min_train_views=settings["min_train_views"],
+            new_only=settings["new_only"],
+            gains=settings["gains"],
+        )
     elif split.name == "last-n":
-        made = last_n_split(*arguments, n=settings["n"], test_share=settings["test_share"],
-                            global_cap=settings["global_cap"], min_train_views=settings["min_train_views"],
-                            new_only=settings["new_only"], gains=settings["gains"])
+        made = last_n_split(
+            *arguments,
+            n=settings["n"],
+            test_share=settings["test_share"],
+            global_cap=settings["global_cap"],
+            min_train_views=settings["min_train_views"],
+            new_only=settings["new_only"],
+            gains=settings["gains"],
+        )
     elif split.name == "sessions":
-        made = session_split(*arguments, gap=settings["gap"], test_share=settings["test_share"],
-                             prefix=settings["prefix"], gains=settings["gains"])
+        made = session_split(
+            *arguments,
+            gap=settings["gap"],
+            test_share=settings["test_share"],
+            prefix=settings["prefix"],
+            gains=settings["gains"],
+        )
     else:
         raise ValueError(f"split.name must be 'temporal', 'last-n' or 'sessions'; got {split.name!r}")
     if len(made.queries) == 0:
-        raise NothingToEvaluate("validation", split.name, "the training part is too short or too sparse; "
-                                "choose a later cutoff or skip the sweeps")
+        raise NothingToEvaluate(
+            "validation",
+            split.name,
+            "the training part is too short or too sparse; choose a later cutoff or skip the sweeps",
+        )
     return made
 
 
@@ -145,8 +163,9 @@ def choose_configuration(
     tried: list[tuple[float, Configuration]] = []
 
     def solve(configuration: Configuration, lifts) -> dict[float, float]:
-        found = rankrec_lists(validation, adjacency, k, configuration, lifts=lifts, gap=gap, tol=tol,
-                              workers=workers)
+        found = rankrec_lists(
+            validation, adjacency, k, configuration, lifts=lifts, gap=gap, tol=tol, workers=workers
+        )
         scores = {lift: mean_metric(lists, validation, k) for lift, lists in found.items()}
         for lift, score in scores.items():
             tried.append((score, replace(configuration, lift=lift)))
@@ -158,8 +177,14 @@ def choose_configuration(
     for row, damping in enumerate(grid.damping):
         scores = solve(replace(start, damping=damping), grid.lift)
         first[row] = [scores[lift] for lift in grid.lift]
-    damping_sweep = Sweep("damping", "lift", grid.damping, grid.lift, first, MappingProxyType(
-        {"half_life_days": start.half_life_days, "blend": start.blend}))
+    damping_sweep = Sweep(
+        "damping",
+        "lift",
+        grid.damping,
+        grid.lift,
+        first,
+        MappingProxyType({"half_life_days": start.half_life_days, "blend": start.blend}),
+    )
     damping, lift, _ = damping_sweep.best()
     notes = []
     half_lives = grid.half_life_days
@@ -171,8 +196,14 @@ def choose_configuration(
         for column, blend in enumerate(grid.blend):
             configuration = Configuration(damping=damping, half_life_days=half_life, blend=blend, lift=lift)
             second[row, column] = solve(configuration, (lift,))[lift]
-    history_sweep = Sweep("half_life_days", "blend", half_lives, grid.blend, second, MappingProxyType(
-        {"damping": damping, "lift": lift}))
+    history_sweep = Sweep(
+        "half_life_days",
+        "blend",
+        half_lives,
+        grid.blend,
+        second,
+        MappingProxyType({"damping": damping, "lift": lift}),
+    )
     finite = [(score, position) for position, (score, _) in enumerate(tried) if np.isfinite(score)]
     if not finite:
         raise NothingToEvaluate("validation", split.name, f"no configuration has a defined {metric}")

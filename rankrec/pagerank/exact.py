@@ -50,7 +50,7 @@ def solve_exact(
     else:
         patch = restart_columns if dangling == "restart" else np.full((n, 1), 1.0 / n)
         solutions = _solve(system, np.hstack([(1.0 - damping) * restart_columns, patch]))
-        base, spread = solutions[:, : restart_columns.shape[1]], solutions[:, restart_columns.shape[1]:]
+        base, spread = solutions[:, : restart_columns.shape[1]], solutions[:, restart_columns.shape[1] :]
         indicator = graph.dangling.astype(np.float64)
         scale = damping * (indicator @ base) / (1.0 - damping * (indicator @ spread))
         vectors = base + spread * scale

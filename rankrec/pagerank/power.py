@@ -118,7 +118,16 @@ def personalized_pagerank(
     padded = _padded(distributions.reshape(transition.n, k), dtype)
     del distributions  # the float64 copy is not needed while iterating
     vectors, iterations, residuals = _iterate(
-        transition, padded, k, damping, tol, max_iter, None if leaky else dangling, dtype, callback, workers,
+        transition,
+        padded,
+        k,
+        damping,
+        tol,
+        max_iter,
+        None if leaky else dangling,
+        dtype,
+        callback,
+        workers,
         extrapolate,
     )
     if not leaky:
@@ -161,7 +170,7 @@ def _aligned_zeros(rows: int, width: int, dtype: type) -> np.ndarray:
     spare = 64 // itemsize
     buffer = np.zeros(rows * width + spare, dtype=dtype)
     skip = (-buffer.ctypes.data % 64) // itemsize
-    return buffer[skip: skip + rows * width].reshape(rows, width)
+    return buffer[skip : skip + rows * width].reshape(rows, width)
 
 
 def _padded(distributions: np.ndarray, dtype: type) -> np.ndarray:
@@ -257,9 +266,18 @@ def _iterate(transition, restart, k, damping, tol, max_iter, dangling, dtype, ca
                         else:
                             shift = damping * mass / n
                     _kernels.BLOCK_STEPS[lanes](
-                        backward.indptr, backward.indices, data, current.ravel(), restart.ravel(),
-                        coef.astype(dtype), shift.astype(dtype), dtype(damping), bounds, following.ravel(),
-                        changes, width,
+                        backward.indptr,
+                        backward.indices,
+                        data,
+                        current.ravel(),
+                        restart.ravel(),
+                        coef.astype(dtype),
+                        shift.astype(dtype),
+                        dtype(damping),
+                        bounds,
+                        following.ravel(),
+                        changes,
+                        width,
                     )
                     current, following = following, current
                     iteration += 1

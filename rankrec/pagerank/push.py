@@ -85,16 +85,25 @@ def push(
     count = 0
     try:
         count, pushes, converged = _kernels.forward_push(
-            forward.indptr, forward.indices, forward.data, graph.out_degree, seed_pages, seed_weights,
-            damping, epsilon, max_pushes, workspace,
+            forward.indptr,
+            forward.indices,
+            forward.data,
+            graph.out_degree,
+            seed_pages,
+            seed_weights,
+            damping,
+            epsilon,
+            max_pushes,
+            workspace,
         )
         touched = workspace[3][:count].astype(np.int64)
         residual = hot[2 * touched]
         values = estimate[touched] + (1.0 - damping) * residual
         unaccounted = damping * float(residual.sum())
         if refine and count:
-            unaccounted -= _refine(graph, hot, touched, residual, values, seed_pages, seed_weights, damping,
-                                   min(refine, count))
+            unaccounted -= _refine(
+                graph, hot, touched, residual, values, seed_pages, seed_weights, damping, min(refine, count)
+            )
     finally:
         _clear(workspace, count)
         graph.return_workspace(workspace)

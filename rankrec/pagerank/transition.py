@@ -100,8 +100,17 @@ def prepare(adjacency: object) -> Transition:
     forward = _index32(matrix)
     backward = _index32(sp.csr_array(matrix.T))
     backward.sort_indices()
-    for array in (forward.data, forward.indices, forward.indptr, backward.data, backward.indices,
-                  backward.indptr, dangling, out_degree, out_weight):
+    for array in (
+        forward.data,
+        forward.indices,
+        forward.indptr,
+        backward.data,
+        backward.indices,
+        backward.indptr,
+        dangling,
+        out_degree,
+        out_weight,
+    ):
         array.flags.writeable = False
     return Transition(forward, backward, dangling, out_degree, out_weight)
 

@@ -44,7 +44,7 @@ def space_topics(space: np.ndarray) -> np.ndarray:
     while len(groups) < TOPICS:
         groups.sort(key=len)
         largest = groups.pop()
-        groups += [largest[: largest.size // 2], largest[largest.size // 2:]]
+        groups += [largest[: largest.size // 2], largest[largest.size // 2 :]]
     restarts = np.zeros((space.size, TOPICS))
     for column, members in enumerate(sorted(groups, key=lambda g: int(g[0]))[:TOPICS]):
         restarts[members, column] = 1.0 / members.size
@@ -133,14 +133,17 @@ def bench_graph(name, adjacency, restarts, args):
 
     rows = []
     ours_topics, result = _median_time(lambda: ours(np.float32, restarts), args.repeats)
-    rows.append(("rankrec block float32, 16 together", ours_topics, _l1(result.vectors, reference),
-                 result.iterations))
+    rows.append(
+        ("rankrec block float32, 16 together", ours_topics, _l1(result.vectors, reference), result.iterations)
+    )
     seconds, result = _median_time(lambda: ours(np.float64, restarts), args.repeats)
-    rows.append(("rankrec block float64, 16 together", seconds, _l1(result.vectors, reference),
-                 result.iterations))
+    rows.append(
+        ("rankrec block float64, 16 together", seconds, _l1(result.vectors, reference), result.iterations)
+    )
     ours_global, result = _median_time(lambda: ours(np.float32, None), args.repeats)
-    rows.append(("rankrec global float32", ours_global, _l1(result.vectors, reference_global),
-                 result.iterations))
+    rows.append(
+        ("rankrec global float32", ours_global, _l1(result.vectors, reference_global), result.iterations)
+    )
     edges = np.column_stack(adjacency.nonzero()).tolist()
     for peer, (global_run, topic_run) in _peers(adjacency, edges, restarts, pages).items():
         with warnings.catch_warnings():
@@ -150,8 +153,9 @@ def bench_graph(name, adjacency, restarts, args):
             seconds, value = _median_time(
                 lambda run=topic_run: [run(j) for j in range(TOPICS)], args.peer_repeats
             )
-            rows.append((f"{peer} 16 topics looped", seconds, _l1(np.column_stack(value), reference),
-                         ours_topics))
+            rows.append(
+                (f"{peer} 16 topics looped", seconds, _l1(np.column_stack(value), reference), ours_topics)
+            )
     print(f"  {'method':<40} {'median s':>9} {'peer/rankrec':>12} {'max L1 to ref':>14}")
     for label, seconds, distance, extra in rows:
         ratio = f"{seconds / extra:10.1f}x" if label[:7] != "rankrec" else f"{extra:>6} iter"
@@ -164,11 +168,13 @@ def bench_graph(name, adjacency, restarts, args):
     backward = transition.backward
     csr = backward.data.nbytes + backward.indices.nbytes + backward.indptr.nbytes
     basis = pages * TOPICS * 4
-    print(f"  memory of the float32 16-topic solve: CSR (held before the call) {csr / 2**20:.0f} MiB + "
-          f"peak traced allocations {peak / 2**20:.0f} MiB = {(csr + peak) / 2**20:.0f} MiB; "
-          f"target < 2 x (CSR + float32 basis {basis / 2**20:.0f} MiB) = "
-          f"{2 * (csr + basis) / 2**20:.0f} MiB; "
-          f"process peak RSS so far {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**10:.0f} MiB")
+    print(
+        f"  memory of the float32 16-topic solve: CSR (held before the call) {csr / 2**20:.0f} MiB + "
+        f"peak traced allocations {peak / 2**20:.0f} MiB = {(csr + peak) / 2**20:.0f} MiB; "
+        f"target < 2 x (CSR + float32 basis {basis / 2**20:.0f} MiB) = "
+        f"{2 * (csr + basis) / 2**20:.0f} MiB; "
+        f"process peak RSS so far {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**10:.0f} MiB"
+    )
     bench_push(transition, adjacency, edges, args)
 
 
@@ -199,10 +205,12 @@ def bench_push(transition, adjacency, edges, args):
             # the push never overestimates and misses at most the residual mass per page
             certified.append(pages.size == 21 and scores[19] > scores[20] + result.residual_mass)
         times_ms = np.array(times) * 1e3
-        print(f"  rankrec push (epsilon {epsilon:g}, refine {refine}), {seeds.size} seeds: "
-              f"median {np.median(times_ms):.1f} ms, "
-              f"p95 {np.percentile(times_ms, 95):.1f} ms, mean top-20 overlap {np.mean(overlaps):.3f}, "
-              f"median residual bound {np.median(bounds):.3f}, top-20 certified {np.mean(certified):.0%}")
+        print(
+            f"  rankrec push (epsilon {epsilon:g}, refine {refine}), {seeds.size} seeds: "
+            f"median {np.median(times_ms):.1f} ms, "
+            f"p95 {np.percentile(times_ms, 95):.1f} ms, mean top-20 overlap {np.mean(overlaps):.3f}, "
+            f"median residual bound {np.median(bounds):.3f}, top-20 certified {np.mean(certified):.0%}"
+        )
     try:
         import igraph
     except ImportError:
@@ -216,8 +224,10 @@ def bench_push(transition, adjacency, edges, args):
         times.append(time.perf_counter() - start)
         overlaps.append(len(best & set(np.argsort(-scores, kind="stable")[:20].tolist())) / 20)
     times_ms = np.array(times) * 1e3
-    print(f"  igraph per seed, {count} seeds: median {np.median(times_ms):.1f} ms, "
-          f"p95 {np.percentile(times_ms, 95):.1f} ms, mean top-20 overlap {np.mean(overlaps):.3f}")
+    print(
+        f"  igraph per seed, {count} seeds: median {np.median(times_ms):.1f} ms, "
+        f"p95 {np.percentile(times_ms, 95):.1f} ms, mean top-20 overlap {np.mean(overlaps):.3f}"
+    )
 
 
 def _wikispeedia():
@@ -255,6 +265,7 @@ def main(argv=None) -> None:
     print(f"\n(invented wiki built in {time.perf_counter() - start:.1f} s)")
     bench_graph("invented wiki (rankrec synth)", adjacency, space_topics(space), args)
     print(f"load average at end: {_load()}")
+
 
 if __name__ == "__main__":
     main()

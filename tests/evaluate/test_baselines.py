@@ -240,8 +240,9 @@ def test_every_method_sees_the_same_split_and_never_its_answers(task):
     assert (split.relevant != again.relevant).nnz == 0  # deterministic: a rerun gives the same task
     before = [array.copy() for array in (split.train.pages, split.queries.pages, split.relevant.data)]
     blind = dataclasses.replace(
-        split, relevant=sp.csr_array(split.relevant.shape), held_out=Views(*(np.zeros(0, t) for t in
-                                                                           (int, int, float)), size)
+        split,
+        relevant=sp.csr_array(split.relevant.shape),
+        held_out=Views(*(np.zeros(0, t) for t in (int, int, float)), size),
     )
     dummy = _Dummy()
     for method in [*_methods(size, 10), dummy]:
@@ -263,8 +264,9 @@ def test_changing_the_test_period_changes_no_baseline_list(seed):
     shuffled[later] = np.random.default_rng(seed).integers(0, size, int(later.sum()))
     first = temporal_split(users, pages, times, size, cutoff=cutoff)
     second = temporal_split(users, shuffled, times, size, cutoff=cutoff)
-    common, rows_first, rows_second = np.intersect1d(first.queries.users, second.queries.users,
-                                                     return_indices=True)
+    common, rows_first, rows_second = np.intersect1d(
+        first.queries.users, second.queries.users, return_indices=True
+    )
     for method in _methods(size, 0):
         if method.name == "random":
             continue  # its draws depend on the number of queries, not on the test period

@@ -32,8 +32,10 @@ def _reference_selection(vector, overall, eligible, k, lift):
     """The documented rule with Python's sorted(): positive scores by score / global^lift, then the other
     eligible pages by global PageRank, ties to the lower page."""
     pages = range(len(vector))
-    scored = sorted((p for p in pages if eligible[p] and vector[p] > 0),
-                    key=lambda p: (-(vector[p] / overall[p] ** lift), p))
+    scored = sorted(
+        (p for p in pages if eligible[p] and vector[p] > 0),
+        key=lambda p: (-(vector[p] / overall[p] ** lift), p),
+    )
     rest = sorted((p for p in pages if eligible[p] and not vector[p] > 0), key=lambda p: (-overall[p], p))
     chosen = (scored + rest)[:k]
     return chosen + [-1] * (k - len(chosen))
@@ -93,8 +95,14 @@ def test_user_restarts_are_the_reading_profiles_at_the_cutoff():
     for query in (0, len(split.queries) // 2, len(split.queries) - 1):
         user = split.queries.users[query]
         mine = train.users == user
-        profile = profile_matrix(np.zeros(int(mine.sum()), np.int64), train.pages[mine], train.times[mine],
-                                 split.size, now=split.cutoff, half_life_days=2.0)
+        profile = profile_matrix(
+            np.zeros(int(mine.sum()), np.int64),
+            train.pages[mine],
+            train.times[mine],
+            split.size,
+            now=split.cutoff,
+            half_life_days=2.0,
+        )
         assert np.allclose(restarts[row_of[query]].toarray(), profile.toarray())
     assert SECONDS_PER_DAY == 86_400.0
 
@@ -124,15 +132,17 @@ def test_lists_match_networkx_personalised_pagerank():
     excluded = excluded_pages(split).toarray() > 0
     for query in range(len(split.queries)):
         restart = restarts[row_of[query]].toarray().ravel()
-        personal = nx.pagerank(directed, alpha=0.8, personalization=dict(enumerate(restart)), tol=1e-14,
-                               max_iter=10_000)
+        personal = nx.pagerank(
+            directed, alpha=0.8, personalization=dict(enumerate(restart)), tol=1e-14, max_iter=10_000
+        )
         vector = np.array([personal[p] for p in range(split.size)])
         for lift in (0.0, 0.5):
             scores = vector / overall**lift
             expected = found[lift][query]
             # same pages up to near ties (the two solvers differ by ~1e-12)
-            best = sorted((p for p in range(split.size) if not excluded[query, p]),
-                          key=lambda p: -scores[p])[:6]
+            best = sorted((p for p in range(split.size) if not excluded[query, p]), key=lambda p: -scores[p])[
+                :6
+            ]
             assert np.allclose(np.sort(scores[expected]), np.sort(scores[best]), rtol=1e-8)
 
 
@@ -147,8 +157,9 @@ def test_method_lists_pass_the_baselines_checks_and_ignore_the_test_period():
     method = PersonalisedPageRank(adjacency)
     a = check_recommendations(first, method.recommend(first, 8), 8)
     b = check_recommendations(second, method.recommend(second, 8), 8)
-    common, rows_first, rows_second = np.intersect1d(first.queries.users, second.queries.users,
-                                                     return_indices=True)
+    common, rows_first, rows_second = np.intersect1d(
+        first.queries.users, second.queries.users, return_indices=True
+    )
     assert common.size > 5 and np.array_equal(a[rows_first], b[rows_second])
 
 

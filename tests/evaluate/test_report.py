@@ -47,9 +47,19 @@ def test_results_json_has_the_shape_the_issue_fixes(demo):
     assert results["settings"]["data"]["fingerprint"] == data.fingerprint
     assert results["settings"]["rankrec"] == results["methods"]["rankrec"]["configuration"]
     for name, entry in results["methods"].items():
-        for metric in ("ndcg@10", "recall@10", "hit_rate@10", "precision@10", "map@10", "mrr",
-                       "ndcg_graded@10", "coverage@10", "novelty@10", "intra_list_diversity@10",
-                       "unvisited_share@10"):
+        for metric in (
+            "ndcg@10",
+            "recall@10",
+            "hit_rate@10",
+            "precision@10",
+            "map@10",
+            "mrr",
+            "ndcg_graded@10",
+            "coverage@10",
+            "novelty@10",
+            "intra_list_diversity@10",
+            "unvisited_share@10",
+        ):
             assert metric in entry, (name, metric)
         for metric, (low, high) in entry["ci95"].items():
             assert low <= entry[metric] + 1e-12 and entry[metric] <= high + 1e-12, (name, metric)
@@ -58,8 +68,9 @@ def test_results_json_has_the_shape_the_issue_fixes(demo):
         assert entry["ndcg@10"] == pytest.approx(float(np.nanmean(values)))
     found = results["comparison"]["metrics"]["ndcg@10"]
     best = results["best_baseline"]
-    assert found["difference"] == pytest.approx(results["methods"]["rankrec"]["ndcg@10"]
-                                                - results["methods"][best]["ndcg@10"])
+    assert found["difference"] == pytest.approx(
+        results["methods"]["rankrec"]["ndcg@10"] - results["methods"][best]["ndcg@10"]
+    )
     assert found["ci95"][0] <= found["difference"] <= found["ci95"][1]
     # the best baseline is the validation winner, as the JSON says
     assert results["validation"][best] == max(results["validation"][n] for n in BASELINES)
@@ -74,8 +85,12 @@ def test_report_md_and_plots_are_readable_without_the_json(demo):
         assert f"| {name} |" in text
     assert "95%" in text and "## Sweeps" in text and evaluation.best_baseline in text
     plots = sorted(path.name for path in report.glob("*.png"))
-    assert plots == ["metrics_by_k.png", "ndcg_intervals.png", "sweep_damping_lift.png",
-                     "sweep_half_life_days_blend.png"]
+    assert plots == [
+        "metrics_by_k.png",
+        "ndcg_intervals.png",
+        "sweep_damping_lift.png",
+        "sweep_half_life_days_blend.png",
+    ]
     for name in plots:
         assert f"]({name})" in text
         image = imread(report / name)  # a real PNG that matplotlib reads back
@@ -85,8 +100,15 @@ def test_report_md_and_plots_are_readable_without_the_json(demo):
 def test_every_method_and_rankrec_see_the_same_splits(demo, monkeypatch):
     _, _, data, split, _, _ = demo
     seen: dict[str, list] = {}
-    classes = [run_module.RandomPages, run_module.MostRead, run_module.GlobalPageRank, run_module.OutLinks,
-               run_module.CoVisitation, run_module.TeamMostRead, PersonalisedPageRank]
+    classes = [
+        run_module.RandomPages,
+        run_module.MostRead,
+        run_module.GlobalPageRank,
+        run_module.OutLinks,
+        run_module.CoVisitation,
+        run_module.TeamMostRead,
+        PersonalisedPageRank,
+    ]
     for cls in classes:
         original = cls.recommend
 
@@ -103,8 +125,9 @@ def test_every_method_and_rankrec_see_the_same_splits(demo, monkeypatch):
         return original_lists(given, *args, **kwargs)
 
     monkeypatch.setattr(sweeps_module, "rankrec_lists", recording_lists)
-    run_evaluation(data, split, grid=Grid(damping=(0.85,), lift=(0.5,), half_life_days=(30.0,),
-                                          blend=(0.3,)), samples=50)
+    run_evaluation(
+        data, split, grid=Grid(damping=(0.85,), lift=(0.5,), half_life_days=(30.0,), blend=(0.3,)), samples=50
+    )
     assert set(seen) == BASELINES | {"rankrec"}
     validation = sweep_splits[0]
     assert all(given is validation for given in sweep_splits)
@@ -118,8 +141,25 @@ def test_every_method_and_rankrec_see_the_same_splits(demo, monkeypatch):
 def test_cli_writes_the_report_and_prints_a_summary(demo, capsys):
     folder, wiki, *_ = demo
     target = folder / "cli-report"
-    code = main(["evaluate", "--wiki", str(wiki), "--report", str(target), "--split", "sessions",
-                 "--samples", "100", "--grid-damping", "0.85", "--grid-lift", "0,0.5", "--grid-blend", "0.3"])
+    code = main(
+        [
+            "evaluate",
+            "--wiki",
+            str(wiki),
+            "--report",
+            str(target),
+            "--split",
+            "sessions",
+            "--samples",
+            "100",
+            "--grid-damping",
+            "0.85",
+            "--grid-lift",
+            "0,0.5",
+            "--grid-blend",
+            "0.3",
+        ]
+    )
     out = capsys.readouterr().out
     assert code == 0 and "report written to" in out and "rankrec" in out
     results = json.loads((target / "results.json").read_text())

@@ -221,8 +221,11 @@ def _views_with_distinctive_test_pages(draw):
     users = draw(st.lists(st.integers(0, 5), min_size=count, max_size=count))
     times = draw(st.lists(st.floats(0.0, 1000.0), min_size=count, max_size=count))
     pages = draw(st.lists(st.integers(0, 9), min_size=count, max_size=count))
-    late = draw(st.lists(st.tuples(st.integers(0, 5), st.integers(10, 14), st.floats(0.0, 1.0)),
-                         min_size=1, max_size=20))
+    late = draw(
+        st.lists(
+            st.tuples(st.integers(0, 5), st.integers(10, 14), st.floats(0.0, 1.0)), min_size=1, max_size=20
+        )
+    )
     for user, page, share in late:
         users.append(user)
         pages.append(page)

@@ -31,7 +31,11 @@ def test_percentile_interval_agrees_with_scipy_bootstrap():
     sample = rng.exponential(0.4, size=200)  # skewed, like per-user metric values
     low, high = bootstrap_ci(sample, samples=5000, level=0.9, seed=1)
     reference = stats.bootstrap(
-        (sample,), np.mean, n_resamples=5000, confidence_level=0.9, method="percentile",
+        (sample,),
+        np.mean,
+        n_resamples=5000,
+        confidence_level=0.9,
+        method="percentile",
         rng=np.random.default_rng(2),
     ).confidence_interval
     standard_error = sample.std(ddof=1) / np.sqrt(sample.size)
@@ -47,8 +51,12 @@ def test_paired_interval_agrees_with_scipy_paired_bootstrap():
     b = np.clip(a + rng.normal(-0.02, 0.05, size=300), 0, 1)
     result = paired_difference(a, b, samples=5000, level=0.95, seed=3)
     reference = stats.bootstrap(
-        (a, b), lambda x, y, axis=-1: x.mean(axis=axis) - y.mean(axis=axis), paired=True,
-        n_resamples=5000, method="percentile", rng=np.random.default_rng(4),
+        (a, b),
+        lambda x, y, axis=-1: x.mean(axis=axis) - y.mean(axis=axis),
+        paired=True,
+        n_resamples=5000,
+        method="percentile",
+        rng=np.random.default_rng(4),
     ).confidence_interval
     standard_error = (a - b).std(ddof=1) / np.sqrt(a.size)
     assert result.low == pytest.approx(reference.low, abs=0.25 * standard_error)

@@ -33,8 +33,10 @@ def test_validation_split_is_made_of_training_views_only(kind):
     assert validation.name == split.name and dict(validation.settings).keys() == dict(split.settings).keys()
     assert_no_leakage(validation)
     # every view the validation split holds (training or held out) is a training view of the test split
-    train = {(int(u), int(p), float(t)) for u, p, t in zip(split.train.users, split.train.pages,
-                                                          split.train.times, strict=True)}
+    train = {
+        (int(u), int(p), float(t))
+        for u, p, t in zip(split.train.users, split.train.pages, split.train.times, strict=True)
+    }
     for part in (validation.train, validation.held_out):
         seen = zip(part.users, part.pages, part.times, strict=True)
         assert {(int(u), int(p), float(t)) for u, p, t in seen} <= train
@@ -74,8 +76,9 @@ def test_the_choice_is_the_best_cell_and_its_score_is_recomputable():
 def test_session_task_does_not_sweep_half_life():
     views = _random_views(8, views=900, span=20_000.0)
     split = _splits("sessions", views)
-    choice = choose_configuration(split, _random_graph(views[3], 8), grid=SMALL,
-                                  start=Configuration(half_life_days=30.0))
+    choice = choose_configuration(
+        split, _random_graph(views[3], 8), grid=SMALL, start=Configuration(half_life_days=30.0)
+    )
     assert choice.sweeps[1].rows == (30.0,) and choice.notes
 
 

@@ -47,7 +47,8 @@ def test_wikispeedia_next_pages_report(tmp_path, record_property):
     results = json.loads((tmp_path / "report" / "results.json").read_text())
     assert {"settings", "methods", "best_baseline", "comparison"} <= set(results)
     assert {"rankrec", "random", "most-read", "pagerank", "out-links", "co-visitation"} <= set(
-        results["methods"])
+        results["methods"]
+    )
     assert "team-most-read" not in results["methods"]  # the dataset has no teams
     ours, random = results["methods"]["rankrec"], results["methods"]["random"]
     # personalised PageRank beats random: its whole interval lies above random's

@@ -51,9 +51,11 @@ def test_parallel_solves_from_two_threads_agree_with_a_serial_solve(transition):
     restart = _restarts(transition.n, 16, seed=3)
     serial = personalized_pagerank(transition, restart, tol=1e-10, workers=1).vectors
     with ThreadPoolExecutor(max_workers=4) as pool:
-        results = list(pool.map(
-            lambda _: personalized_pagerank(transition, restart, tol=1e-10, workers=2).vectors, range(8)
-        ))
+        results = list(
+            pool.map(
+                lambda _: personalized_pagerank(transition, restart, tol=1e-10, workers=2).vectors, range(8)
+            )
+        )
     for vectors in results:
         assert np.abs(vectors - serial).sum(axis=0).max() < 1e-12
 

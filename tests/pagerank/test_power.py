@@ -80,8 +80,14 @@ def test_two_closed_components_converge_at_rate_damping():
     restart = np.zeros(12)
     restart[[0, 5]] = 0.5
     seen = []
-    result = personalized_pagerank(graph, restart, damping=damping, tol=tol, extrapolate=False,
-                                   callback=lambda step, residuals: seen.append(residuals[0]))
+    result = personalized_pagerank(
+        graph,
+        restart,
+        damping=damping,
+        tol=tol,
+        extrapolate=False,
+        callback=lambda step, residuals: seen.append(residuals[0]),
+    )
     expected = math.log(tol / 2) / math.log(damping)
     assert abs(result.iterations - expected) <= 1.0
     np.testing.assert_allclose(seen[:20], 2 * damping ** np.arange(1, 21), rtol=1e-9)
@@ -157,6 +163,7 @@ def _power(dangling, dtype=np.float64):
     def solve(graph, restarts):
         tol = 1e-10 if dtype == np.float64 else 1e-6
         return personalized_pagerank(graph, restarts, tol=tol, dangling=dangling, dtype=dtype).vectors
+
     return solve
 
 
@@ -168,6 +175,7 @@ def _leaky_combined(graph, restarts):
 def _exact(dangling):
     def solve(graph, restarts):
         return solve_exact(graph, restarts, dangling=dangling).vectors
+
     return solve
 
 
@@ -225,10 +233,27 @@ def test_contract(solve, prepared, graph, restarts):
         (lambda g: push(g, {1: -1.0}), ValueError, "seeds weights"),
         (lambda g: combine(np.ones((N, 2)), [1.0]), ValueError, r"weights must have shape \(2,\)"),
     ],
-    ids=["non-square", "negative", "nan", "dense", "zero-restart", "zero-column", "negative-restart",
-         "restart-shape", "damping", "tol", "max-iter", "dangling", "dtype", "callback", "float32-tol",
-         "seed-range",
-         "seed-float", "seed-weight", "combine-shape"],
+    ids=[
+        "non-square",
+        "negative",
+        "nan",
+        "dense",
+        "zero-restart",
+        "zero-column",
+        "negative-restart",
+        "restart-shape",
+        "damping",
+        "tol",
+        "max-iter",
+        "dangling",
+        "dtype",
+        "callback",
+        "float32-tol",
+        "seed-range",
+        "seed-float",
+        "seed-weight",
+        "combine-shape",
+    ],
 )
 def test_bad_input_names_the_parameter(call, error, match, graph):
     with pytest.raises(error, match=match):

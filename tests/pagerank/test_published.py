@@ -36,10 +36,38 @@ def _adjacency(n: int, links: list[tuple[int, int]]) -> sp.csr_array:
 
 # English Wikipedia, article "PageRank", figure of an 11-page network (pages A..K), damping 0.85; page A
 # has no out-links and spreads uniformly over all pages. Links and rounded percentages from memory.
-WIKIPEDIA_LINKS = ["BC", "CB", "DA", "DB", "EB", "ED", "EF", "FB", "FE",
-                   "GB", "GE", "HB", "HE", "IB", "IE", "JE", "KE"]
-WIKIPEDIA_PERCENT = {"A": 3.3, "B": 38.4, "C": 34.3, "D": 3.9, "E": 8.1, "F": 3.9,
-                     "G": 1.6, "H": 1.6, "I": 1.6, "J": 1.6, "K": 1.6}
+WIKIPEDIA_LINKS = [
+    "BC",
+    "CB",
+    "DA",
+    "DB",
+    "EB",
+    "ED",
+    "EF",
+    "FB",
+    "FE",
+    "GB",
+    "GE",
+    "HB",
+    "HE",
+    "IB",
+    "IE",
+    "JE",
+    "KE",
+]
+WIKIPEDIA_PERCENT = {
+    "A": 3.3,
+    "B": 38.4,
+    "C": 34.3,
+    "D": 3.9,
+    "E": 8.1,
+    "F": 3.9,
+    "G": 1.6,
+    "H": 1.6,
+    "I": 1.6,
+    "J": 1.6,
+    "K": 1.6,
+}
 
 
 def test_wikipedia_figure_percentages():
@@ -71,7 +99,7 @@ def test_langville_meyer_six_pages():
     exact = np.array([float(v) for v in _exact_uniform_patch(6, links, Fraction(9, 10))])
     published = np.array(LANGVILLE_MEYER_VECTOR)
     digits = np.array([5, 5, 5, 4, 3, 4])  # decimals printed for each entry
-    assert np.all(np.abs(exact - published) <= 0.5 * 10.0 ** -digits + 1e-12)
+    assert np.all(np.abs(exact - published) <= 0.5 * 10.0**-digits + 1e-12)
     result = personalized_pagerank(_adjacency(6, links), damping=0.9, tol=1e-13, dangling="uniform")
     assert result.converged
     np.testing.assert_allclose(result.vectors, exact, rtol=0, atol=1e-12)

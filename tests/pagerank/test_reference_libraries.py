@@ -64,8 +64,14 @@ def test_networkx(wikispeedia, networkx_graph, exact, topic, dangling):
     n = transition.n
     personalization = {i: float(w) for i, w in enumerate(restart) if w > 0} if topic else None
     uniform = {i: 1.0 for i in range(n)} if dangling == "uniform" else None
-    theirs = nx.pagerank(networkx_graph, alpha=0.85, personalization=personalization, dangling=uniform,
-                         tol=1e-15, max_iter=1000)
+    theirs = nx.pagerank(
+        networkx_graph,
+        alpha=0.85,
+        personalization=personalization,
+        dangling=uniform,
+        tol=1e-15,
+        max_iter=1000,
+    )
     expected = np.array([theirs[i] for i in range(n)])
     ours = _ours(transition, restart if topic else None, dangling)
     assert _l1(ours, expected) < 1e-6
