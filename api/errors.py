@@ -1,7 +1,9 @@
 """Errors the service answers with: JSON ``{"error": {"code": ..., "message": ...}}``, never a traceback.
 
-Route code raises :class:`ApiError`; :func:`install_error_handlers` turns it, request-validation
-failures and any unexpected exception into that shape. Codes are stable strings clients may match on.
+Route code raises :class:`ApiError`, or lets a rankrec error (:class:`rankrec.errors.RankrecError`)
+through; :func:`install_error_handlers` turns them, request-validation failures and any unexpected
+exception into that shape, library errors by :func:`from_library`. Codes are stable strings clients
+may match on.
 """
 
 from __future__ import annotations
@@ -77,6 +79,12 @@ def error_body(code: str, message: str, details: dict[str, Any] | None = None) -
     return {"error": error}
 
 
+def _answer(error: ApiError) -> JSONResponse:
+    return JSONResponse(
+        error_body(error.code, error.message, error.details), status_code=error.status, headers=error.headers
+    )
+
+
 _HTTP_CODES = {
     401: "unauthorised",
     403: "forbidden",
@@ -93,11 +101,11 @@ def install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(ApiError)
     async def _api_error(request: Request, error: ApiError) -> JSONResponse:
-        return JSONResponse(
-            error_body(error.code, error.message, error.details),
-            status_code=error.status,
-            headers=error.headers,
-        )
+        return _answer(error)
+
+    @app.exception_handler(RankrecError)
+    async def _library_error(request: Request, error: RankrecError) -> JSONResponse:
+        return _answer(from_library(error))
 
     @app.exception_handler(RequestValidationError)
     async def _invalid(request: Request, error: RequestValidationError) -> JSONResponse:

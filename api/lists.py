@@ -4,6 +4,7 @@ Each route parses, asks the library (:mod:`rankrec.recommend`) and formats; the 
 here is *who may see what*: every list is filtered by the viewer's access groups (no viewer, or a
 viewer the store does not know: pages visible to everyone only), a page the viewer may not see is
 answered like an unknown page, and a personal list is served only for its own viewer or an admin.
+Library errors are answered by the app's one handler (:func:`api.errors.from_library`).
 """
 
 from __future__ import annotations
@@ -13,16 +14,15 @@ import dataclasses
 from fastapi import APIRouter, Path, Query, Request
 from starlette.concurrency import run_in_threadpool
 
-from rankrec.errors import RankrecError, UnknownPage, UnknownUser
+from rankrec.errors import UnknownPage, UnknownUser
 from rankrec.index import Index
 from rankrec.recommend import landing, reader_from_store, recommend, related, team_from_store
 
 from .auth import ReaderCaller
-from .errors import ApiError, from_library
+from .errors import ApiError
 from .live import Loaded
 from .models import ListResponse, PageMatch, PageSearchResponse, error_responses
 
-TEAM_MIN_READERS = 5  # as `rankrec landing`; not a request option, so no caller can lower it
 SEARCH_SCAN = 5_000  # page ids looked at per search at most (restricted ones are skipped)
 
 _viewer = Query(
@@ -56,9 +56,9 @@ def _seed(index: Index, page: str, groups: frozenset[str] | None) -> int:
         number = index.page_number(page)
     except UnknownPage as error:
         visible = [name for name in error.suggestions if index.may_see(index.page_number(name), groups)]
-        raise from_library(UnknownPage(page, visible)) from None
+        raise UnknownPage(page, visible) from None
     if not index.may_see(number, groups):
-        raise from_library(UnknownPage(page))
+        raise UnknownPage(page)
     return number
 
 
@@ -102,18 +102,15 @@ def make_router(max_k: int) -> APIRouter:
         loaded = loaded_index(request)
         reader = None if viewer is None else await run_in_threadpool(_reader, request, loaded, viewer)
         number = _seed(loaded.index, page, None if reader is None else reader.groups)
-        try:
-            result = related(
-                loaded.index,
-                number,
-                reader=reader,
-                k=k,
-                exclude_linked=exclude_linked,
-                lift=lift,
-                per_space=per_space,
-            )
-        except RankrecError as error:
-            raise from_library(error) from None
+        result = related(
+            loaded.index,
+            number,
+            reader=reader,
+            k=k,
+            exclude_linked=exclude_linked,
+            lift=lift,
+            per_space=per_space,
+        )
         return _answer(result, loaded, page, None if reader is None else viewer)
 
     @router.get(
@@ -140,13 +137,11 @@ def make_router(max_k: int) -> APIRouter:
         service = request.app.state.service
         try:
             reader = reader_from_store(service.read_store(loaded.wiki), loaded.index, service.user_id(user))
-            result = recommend(
-                loaded.index, reader, k=k, exclude_read=not include_read, lift=lift, per_space=per_space
-            )
-        except RankrecError as error:
-            if isinstance(error, UnknownUser):
-                raise ApiError(404, "unknown_user", f"unknown user {user!r}") from None
-            raise from_library(error) from None
+        except UnknownUser:  # named as requested: the store may hold the id as a pseudonym
+            raise UnknownUser(user) from None
+        result = recommend(
+            loaded.index, reader, k=k, exclude_read=not include_read, lift=lift, per_space=per_space
+        )
         return _answer(result, loaded, user, user)
 
     @router.get(
@@ -167,15 +162,10 @@ def make_router(max_k: int) -> APIRouter:
         loaded = loaded_index(request)
         service = request.app.state.service
         reader = _reader(request, loaded, viewer)
-        try:
-            found = team_from_store(
-                service.read_store(loaded.wiki), loaded.index, team, min_readers=TEAM_MIN_READERS
-            )
-            audience = loaded.index.visible(None if reader is None else reader.groups)
-            found = dataclasses.replace(found, visible=found.visible & audience)
-            result = landing(loaded.index, found, k=k, lift=lift, per_space=per_space)
-        except RankrecError as error:
-            raise from_library(error) from None
+        found = team_from_store(service.read_store(loaded.wiki), loaded.index, team)
+        audience = loaded.index.visible(None if reader is None else reader.groups)
+        found = dataclasses.replace(found, visible=found.visible & audience)
+        result = landing(loaded.index, found, k=k, lift=lift, per_space=per_space)
         return _answer(result, loaded, team, None if reader is None else viewer)
 
     @router.get(

@@ -137,7 +137,7 @@ class IndexResponse(BaseModel):
             "examples": [
                 {
                     "index": ".index.20260401T061154-ab12cd34",
-                    "format_version": 1,
+                    "format_version": 2,
                     "fingerprint": "3f2a9c",
                     "created": "2026-04-01T06:11:54Z",
                     "damping": 0.85,
@@ -147,7 +147,8 @@ class IndexResponse(BaseModel):
                     "topics": "spaces",
                     "counts": {"pages": 300, "links": 2138},
                     "store": "wiki.db",
-                    "precompute": {"method": "power", "view_share": None, "epsilon": 1e-5},
+                    "precompute": {"method": "power", "view_share": None, "pages": "all"},
+                    "configuration": {"damping": 0.85, "lift": 0.5, "navigation_weight": 0.3},
                     "versions": {"rankrec": "0.1.0"},
                 }
             ]
@@ -165,6 +166,7 @@ class IndexResponse(BaseModel):
     counts: dict[str, int]
     store: str
     precompute: dict
+    configuration: dict
     versions: dict
 
 

@@ -64,7 +64,8 @@ def health(request: Request):
 )
 def index_manifest(request: Request, caller: ReaderCaller) -> IndexResponse:
     loaded = loaded_index(request)
-    manifest = asdict(loaded.index.manifest)
+    found = loaded.index.manifest
+    manifest = asdict(found) | {"damping": found.damping, "tol": found.tol, "lift": found.lift}
     wanted = set(IndexResponse.model_fields) - {"index", "store"}
     return IndexResponse(
         index=loaded.folder.name,

@@ -2,8 +2,8 @@
 
 ``POST /v1/views`` appends a batch of views to the store in one transaction and answers only
 after the commit is on disk (SQLite WAL with ``synchronous=FULL``, :meth:`rankrec.store.Store.
-append_views`). Timestamps follow the views reader's rules (:func:`rankrec.sources._fields.
-parse_timestamp`); one bad record, or a page the wiki does not hold, refuses the whole batch with
+append_views`). Each record is checked as the views reader checks it (:func:`rankrec.sources.
+check_view`); one bad record, or a page the wiki does not hold, refuses the whole batch with
 422 ``invalid_view`` naming the record's index. Every write goes through one connection guarded
 by a lock (SQLite allows one writer at a time). With a pseudonym key configured, user ids are
 stored as their keyed pseudonyms (:func:`api.service.Service.user_id`).
@@ -12,6 +12,7 @@ stored as their keyed pseudonyms (:func:`api.service.Service.user_id`).
 from __future__ import annotations
 
 import asyncio
+import dataclasses
 import logging
 import sqlite3
 import threading
@@ -28,10 +29,9 @@ from fastapi.routing import APIRoute
 from prometheus_client import Counter
 from pydantic import BaseModel, ConfigDict, Field, StrictFloat, StrictInt, StrictStr
 
-from rankrec.errors import UnknownPage
+from rankrec.errors import InputError, UnknownPage
 from rankrec.privacy import retention_cutoff
-from rankrec.sources._fields import FieldError, parse_dwell, parse_id, parse_timestamp
-from rankrec.sources.records import Origin, ViewRecord
+from rankrec.sources import Origin, ViewRecord, check_view
 from rankrec.store import Store
 
 from .auth import Caller, require_admin, require_reader
@@ -231,13 +231,12 @@ def _records(views: list[ViewIn], user_id: Callable[[str], str]) -> list[ViewRec
     records = []
     for number, view in enumerate(views):
         try:
-            user = parse_id(view.user, "user id")
-            page = parse_id(view.page, "page id")
-            timestamp = parse_timestamp(view.timestamp, now)
-            dwell = parse_dwell(view.dwell)
-        except FieldError as error:
-            raise _invalid(number, str(error)) from None
-        records.append(ViewRecord(user_id(user), page, timestamp, Origin(_ORIGIN, number), dwell))
+            record = check_view(
+                view.user, view.page, view.timestamp, view.dwell, origin=Origin(_ORIGIN, number), now=now
+            )
+        except InputError as error:  # answered with the record's index, not as a library error
+            raise _invalid(number, error.reason) from None
+        records.append(dataclasses.replace(record, user=user_id(record.user)))
     return records
 
 

@@ -7,8 +7,10 @@ files again from those settings.
 
 from __future__ import annotations
 
+import argparse
 import json
 import shutil
+import sys
 from pathlib import Path
 from typing import TextIO
 
@@ -63,37 +65,40 @@ def run_demo(workdir: Path, out: TextIO) -> None:
     out.write(f"Imported the invented demo wiki into {wiki}\n\n")
     with Store(wiki, create=False) as store:
         print_mapping(wiki_stats(store, worst=5), "table", out)
-        show_lists(store, workdir / "index", out)
-        show_evaluation(store, workdir / "report", out)
+        settings = show_evaluation(store, workdir / "report", out)
+        show_lists(store, workdir / "index", settings, out)
 
 
 def _demo_choices(store) -> tuple[list[str], str, str]:
     """Two much-read pages of different spaces, the busiest reader, the largest team (ties by name)."""
-    pages = store.connection.execute(
-        "SELECT page, space FROM views JOIN pages ON pages.id = page_id WHERE archived = 0 "
-        "AND NOT EXISTS (SELECT 1 FROM page_groups WHERE page_groups.page_id = pages.id) "
-        "GROUP BY pages.id ORDER BY count(*) DESC, page"
-    ).fetchall()
+    from collections import Counter
+
+    pages = store.most_viewed_public_pages()
     first = pages[0]
     second = next((row for row in pages if row[1] != first[1]), pages[1])
-    reader = store.scalar(
-        "SELECT user FROM views JOIN users ON users.id = user_id "
-        "GROUP BY user_id ORDER BY count(*) DESC, user"
-    )
-    team = store.scalar(
-        "SELECT name FROM memberships WHERE kind = 'team' GROUP BY name ORDER BY count(*) DESC, name"
-    )
+    reader = store.most_active_user()
+    sizes = Counter(name for _, name in store.memberships("team"))
+    team = max(sorted(sizes), key=sizes.__getitem__)  # the first of the largest, by name
     return [first[0], second[0]], reader, team
 
 
-def show_lists(store, folder: Path, out: TextIO) -> None:
-    """Build the index into ``folder`` and print related pages, a personal list and a landing ordering."""
+def show_lists(store, folder: Path, settings: Path, out: TextIO) -> None:
+    """Build the index into ``folder`` with the evaluated ``settings`` (a settings.json) and print related
+    pages, a personal list and a landing ordering from it."""
     from ._output import print_rows
-    from .index import build_index, load_index
+    from .build import build_index
+    from .configuration import read_settings
+    from .index import load_index
     from .recommend import landing, reader_from_store, recommend, related, team_from_store
 
-    build_index(store, folder)
+    chosen = read_settings(settings)
+    source = {"kind": "file", "path": str(settings.resolve()), "chosen_on": chosen.chosen_on}
+    build_index(store, folder, chosen.configuration, settings_source=source)
     index = load_index(folder)
+    out.write(
+        f"\nBuilt the index with the evaluated settings ({settings}: {_shown(index.configuration)}); "
+        "every list below is served from it.\n"
+    )
     pages, user, team = _demo_choices(store)
     for page in pages:
         out.write(f"\nRelated to {page} (pages visible to everyone):\n")
@@ -107,8 +112,14 @@ def show_lists(store, folder: Path, out: TextIO) -> None:
     out.write(f"\nThe index is in {folder} (try `rankrec related PAGE --index {folder}`).\n")
 
 
-def show_evaluation(store, folder: Path, out: TextIO) -> None:
-    """Evaluate rankrec against the baselines on the demo's own history and print a short summary."""
+def _shown(configuration) -> str:
+    names = ("damping", "lift", "navigation_weight", "half_life_days")
+    return ", ".join(f"{name} {getattr(configuration, name):g}" for name in names)
+
+
+def show_evaluation(store, folder: Path, out: TextIO) -> Path:
+    """Evaluate rankrec against the baselines on the demo's own history, print a short summary and return
+    the settings file the evaluation chose (``folder/settings.json``)."""
     from .evaluate.report import write_report
     from .evaluate.run import load_data, make_split, run_evaluation
 
@@ -124,12 +135,27 @@ def show_evaluation(store, folder: Path, out: TextIO) -> None:
         low, high = scores.ci95["ndcg@10"]
         out.write(f"  {name:<15} {scores.means['ndcg@10']:.3f}  [{low:.3f}, {high:.3f}]\n")
     found = evaluation.comparison["metrics"]["ndcg@10"]
-    configuration = ", ".join(f"{key} {value:g}" for key, value in evaluation.configuration.as_dict().items())
+    configuration = _shown(evaluation.configuration)
     out.write(
         f"rankrec ({configuration}, chosen on a validation split) minus {evaluation.best_baseline}: "
         f"{found['difference']:+.3f} [{found['ci95'][0]:+.3f}, {found['ci95'][1]:+.3f}]\n"
     )
     out.write(
-        f"The full report is in {folder} (report.md, results.json, plots; "
+        f"The full report is in {folder} (report.md, results.json, settings.json, plots; "
         f"`rankrec evaluate --wiki {store.path} --report DIR` makes it again).\n"
     )
+    return Path(folder) / "settings.json"
+
+
+def register(commands) -> None:
+    """Add the ``demo`` sub-command to an ``argparse`` sub-parsers object."""
+    demo = commands.add_parser(
+        "demo", help="import the bundled invented wiki and show what rankrec makes of it"
+    )
+    demo.add_argument("--workdir", default="build/demo", metavar="DIR", help="where the demo store goes")
+    demo.set_defaults(run=_cmd_demo)
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    run_demo(Path(args.workdir), out=sys.stdout)
+    return 0

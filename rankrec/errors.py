@@ -34,6 +34,14 @@ class InputError(RankrecError):
         return (type(self), (self.file, self.line, self.reason))
 
 
+class UsageError(RankrecError, ValueError):
+    """A command-line option or combination of options that cannot be used; ``str(error)`` says why.
+
+    >>> str(UsageError("give --index and --tokens, or --workdir"))
+    'give --index and --tokens, or --workdir'
+    """
+
+
 class UnknownName(RankrecError):
     """A page, user or team id that the store does not hold, with the closest existing ids."""
 

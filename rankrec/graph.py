@@ -1,42 +1,19 @@
-"""The link graph of a wiki store as arrays: dense page numbering, CSR weights, dangling mask.
-
-Optionally each page's row blends its links with observed navigation: consecutive views of
-one reader within a session (views at most ``gap`` seconds apart), counted over a time window
-the caller gives. Pure data: nothing here reads anything but the store.
+"""The link graph of a wiki store as arrays: dense page numbering, CSR weights, dangling mask; and the
+pieces that blend observed navigation into it (consecutive views of one reader within a session, views
+at most ``gap`` seconds apart). Pure data: nothing here reads anything but the store.
 """
 
 from __future__ import annotations
 
 import hashlib
-import json
 from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
 import scipy.sparse as sp
 
-from ._validation import check_fraction, check_positive
 from .errors import UnknownPage
 from .store import Store
-
-
-@dataclass(frozen=True)
-class Navigation:
-    """How to blend observed navigation into the link matrix.
-
-    ``weight`` is the share of a page's row given to its navigation row (when it has one);
-    ``gap`` the longest pause, in seconds, inside one session (30 minutes: common practice in
-    web analytics); ``since``/``until`` the time window of views to count (Unix seconds).
-    """
-
-    weight: float = 0.3
-    gap: float = 1800.0
-    since: float | None = None
-    until: float | None = None
-
-    def __post_init__(self) -> None:
-        check_fraction("weight", self.weight)
-        check_positive("gap", self.gap)
 
 
 @dataclass(frozen=True, eq=False)
@@ -49,7 +26,6 @@ class WikiGraph:
     pages: np.ndarray
     adjacency: sp.csr_matrix
     row_ids: np.ndarray
-    navigation: Navigation | None = None
     fingerprint: str = field(default="")
 
     @property
@@ -65,7 +41,7 @@ class WikiGraph:
     def _positions(self) -> dict[str, int]:
         return {page: index for index, page in enumerate(self.pages.tolist())}
 
-    def index_of(self, page: str) -> int:
+    def page_number(self, page: str) -> int:
         """Dense number of ``page``; UnknownPage (with close ids) when the wiki lacks it."""
         try:
             return self._positions[page]
@@ -75,16 +51,15 @@ class WikiGraph:
             close = difflib.get_close_matches(page, self._positions, n=3, cutoff=0.5)
             raise UnknownPage(page, close) from None
 
-    def indices_of(self, pages) -> np.ndarray:
-        return np.fromiter((self.index_of(page) for page in pages), dtype=np.int64)
+    def page_numbers(self, pages) -> np.ndarray:
+        return np.fromiter((self.page_number(page) for page in pages), dtype=np.int64)
 
 
-def _fingerprint(pages: np.ndarray, adjacency: sp.csr_matrix, navigation: Navigation | None) -> str:
+def fingerprint(pages: np.ndarray, adjacency: sp.csr_matrix) -> str:
     digest = hashlib.sha256()
     digest.update("\0".join(pages.tolist()).encode())
     for array in (adjacency.indptr, adjacency.indices, adjacency.data):
         digest.update(np.ascontiguousarray(array).tobytes())
-    digest.update(json.dumps(None if navigation is None else vars(navigation), sort_keys=True).encode())
     return digest.hexdigest()[:16]
 
 
@@ -148,8 +123,12 @@ def dense_numbers(row_ids: np.ndarray, wanted: np.ndarray) -> np.ndarray:
     return np.where(row_ids[position] == wanted, position, -1)
 
 
-def load_graph(store: Store, *, navigation: Navigation | None = None) -> WikiGraph:
-    """The graph of the pages the store holds (links between present pages only)."""
+def load_graph(store: Store) -> WikiGraph:
+    """The link graph of the pages the store holds (links between present pages only).
+
+    Observed navigation is blended in by the build (:func:`rankrec.build.navigation_matrix`, with
+    :func:`navigation_counts` and :func:`blend_navigation`), from the configuration's settings.
+    """
     row_ids, pages = store.present_pages()
     size = row_ids.size
     sources, targets, weights = store.link_arrays()
@@ -158,22 +137,10 @@ def load_graph(store: Store, *, navigation: Navigation | None = None) -> WikiGra
     adjacency = sp.csr_matrix((weights, (rows, columns)), shape=(size, size), dtype=np.float64)
     adjacency.sum_duplicates()
     adjacency.sort_indices()
-    if navigation is not None:
-        users, viewed, times = store.view_arrays()
-        window = np.ones(times.size, dtype=bool)
-        if navigation.since is not None:
-            window &= times >= navigation.since
-        if navigation.until is not None:
-            window &= times < navigation.until
-        users, viewed, times = users[window], viewed[window], times[window]
-        dense = dense_numbers(row_ids, viewed)
-        counts = navigation_counts(users, dense, times, size, gap=navigation.gap)
-        adjacency = blend_navigation(adjacency, counts, navigation.weight)
     page_array = np.array(pages, dtype=object)
     return WikiGraph(
         pages=page_array,
         adjacency=adjacency,
         row_ids=row_ids,
-        navigation=navigation,
-        fingerprint=_fingerprint(page_array, adjacency, navigation),
+        fingerprint=fingerprint(page_array, adjacency),
     )

@@ -267,29 +267,20 @@ class Profiles:
         return self.matrix[self.row_of(user)].toarray().ravel()
 
 
-def _views_with_dwell(store: Store) -> tuple[np.ndarray, ...]:
-    cursor = store.connection.execute("SELECT user_id, page_id, timestamp, dwell FROM views")
-    blocks = []
-    while chunk := cursor.fetchmany(500_000):
-        blocks.append(np.array(chunk, dtype=np.float64).reshape(-1, 4))  # NULL dwell -> NaN
-    table = np.concatenate(blocks) if blocks else np.zeros((0, 4))
-    return table[:, 0].astype(np.int64), table[:, 1].astype(np.int64), table[:, 2], table[:, 3]
-
-
 def load_profiles(store: Store, graph: WikiGraph, *, now: float | None = None, **options) -> Profiles:
     """Profiles of all the store's users over ``graph``'s pages (options: see :func:`profile_matrix`).
 
     ``now`` defaults to the latest view in the store. Views of pages outside the graph are
     skipped; users without eligible views keep an empty row.
     """
-    user_rows = store.connection.execute("SELECT id, user FROM users ORDER BY id").fetchall()
-    user_ids = np.fromiter((row[0] for row in user_rows), dtype=np.int64, count=len(user_rows))
-    if now is None:
-        now = store.scalar("SELECT max(timestamp) FROM views")
-    if options.get("dwell_weighting"):
-        viewers, viewed, times, dwell = _views_with_dwell(store)
-    else:
-        (viewers, viewed, times), dwell = store.view_arrays(), None
+    with store.reading():  # one snapshot: a user arriving meanwhile waits for the next call
+        user_ids, users = store.users()
+        if now is None:
+            now = store.latest_view_time()
+        if options.get("dwell_weighting"):
+            viewers, viewed, times, dwell = store.view_arrays(with_dwell=True)
+        else:
+            (viewers, viewed, times), dwell = store.view_arrays(), None
     if now is None:  # no views at all
         matrix = sp.csr_matrix((user_ids.size, graph.size), dtype=np.float64)
     else:
@@ -303,30 +294,74 @@ def load_profiles(store: Store, graph: WikiGraph, *, now: float | None = None, *
             user_count=user_ids.size,
             **options,
         )
-    return Profiles(matrix=matrix, users=tuple(row[1] for row in user_rows), now=now)
+    return Profiles(matrix=matrix, users=tuple(users), now=now)
 
 
 def team_members(store: Store, team: str) -> tuple[str, ...]:
     """User ids of ``team``'s members, sorted; UnknownTeam (with close names) when there is none."""
-    rows = store.connection.execute(
-        "SELECT users.user FROM memberships JOIN users ON users.id = memberships.user_id "
-        "WHERE kind = 'team' AND name = ? ORDER BY users.user",
-        (team,),
-    ).fetchall()
-    if not rows:
-        teams = [
-            row[0]
-            for row in store.connection.execute("SELECT DISTINCT name FROM memberships WHERE kind = 'team'")
-        ]
-        raise UnknownTeam(team, difflib.get_close_matches(team, teams, n=3, cutoff=0.5))
-    return tuple(row[0] for row in rows)
+    members = store.members_of("team", team)
+    if not members:
+        raise UnknownTeam(team, difflib.get_close_matches(team, store.names_of("team"), n=3, cutoff=0.5))
+    return members
 
 
 def user_groups(store: Store, user: str) -> frozenset[str]:
     """Access groups ``user`` belongs to (empty for a user the store does not know)."""
-    rows = store.connection.execute(
-        "SELECT name FROM memberships JOIN users ON users.id = memberships.user_id "
-        "WHERE kind = 'group' AND users.user = ?",
-        (user,),
-    ).fetchall()
-    return frozenset(row[0] for row in rows)
+    row = store.user_row(user)
+    return frozenset() if row is None else store.groups_of_users([row])[row]
+
+
+# -- the one profile path ---------------------------------------------------------------------------
+@dataclass(frozen=True, eq=False)
+class ViewLog:
+    """Reading history in the graph's numbering, ordered by reader, then time.
+
+    ``users`` are reader codes (the store's user row ids), ``pages`` dense page numbers (-1: a page
+    outside the graph), ``times`` Unix seconds.
+    """
+
+    users: np.ndarray
+    pages: np.ndarray
+    times: np.ndarray
+
+    def __post_init__(self) -> None:
+        users = np.asarray(self.users, dtype=np.int64)
+        pages = np.asarray(self.pages, dtype=np.int64)
+        times = np.asarray(self.times, dtype=np.float64)
+        if not users.shape == pages.shape == times.shape or users.ndim != 1:
+            raise ValueError(
+                f"users, pages and times must be 1-D of one length; got {users.shape}, "
+                f"{pages.shape}, {times.shape}"
+            )
+        order = np.lexsort((times, users))
+        for name, values in (("users", users), ("pages", pages), ("times", times)):
+            object.__setattr__(self, name, values[order])
+
+    @property
+    def latest(self) -> float | None:
+        return float(self.times.max()) if self.times.size else None
+
+    def counts(self, size: int) -> np.ndarray:
+        """Views per page (views outside the graph left out)."""
+        inside = self.pages >= 0
+        return np.bincount(self.pages[inside], minlength=size).astype(np.int64)
+
+
+def reader_profiles(views: ViewLog, size: int, configuration, *, now: float) -> tuple:
+    """Every reader's restart distribution at ``now`` (rows) and the reader code of each row.
+
+    The one profile function: team vectors at build time and readers at request time
+    (:mod:`rankrec.recommend.audience`) both come from :func:`rankrec.profiles.profile_matrix` with the
+    configuration's :meth:`~rankrec.configuration.Configuration.profile_options`.
+    """
+    codes, rows = np.unique(views.users, return_inverse=True)
+    matrix = profile_matrix(
+        rows.ravel(),
+        views.pages,
+        views.times,
+        size,
+        now=now,
+        user_count=codes.size,
+        **configuration.profile_options(),
+    )
+    return matrix, codes

@@ -12,6 +12,7 @@ from ._validation import check_count
 from .errors import InputError, UnknownTopic
 from .graph import WikiGraph, load_graph
 from .pagerank import PageRankResult, personalized_pagerank, prepare
+from .recommend.select import top_k
 from .store import Store
 from .topics import store_topics
 
@@ -26,24 +27,6 @@ class Ranking:
     solve: PageRankResult
 
 
-def top_k(vector: np.ndarray, k: int, exclude: np.ndarray | None = None) -> np.ndarray:
-    """Indices of the ``k`` largest entries, best first; ties go to the lower index.
-
-    >>> top_k(np.array([0.1, 0.4, 0.4, 0.05]), 2).tolist()
-    [1, 2]
-    """
-    scores = np.asarray(vector, dtype=np.float64)
-    if exclude is not None and exclude.size:
-        scores = scores.copy()
-        scores[exclude] = -np.inf
-    k = min(k, int(np.count_nonzero(np.isfinite(scores))))
-    if k <= 0:
-        return np.zeros(0, dtype=np.int64)
-    candidates = np.argpartition(-scores, k - 1)[:k] if k < scores.size else np.arange(scores.size)
-    order = np.lexsort((candidates, -scores[candidates]))
-    return candidates[order]
-
-
 def restart_from(
     store: Store, graph: WikiGraph, *, pages: Sequence[str] = (), spaces: Sequence[str] = (), tags=()
 ) -> np.ndarray | None:
@@ -52,7 +35,7 @@ def restart_from(
     None (global PageRank) when nothing is named. Unknown pages raise UnknownPage, unknown
     spaces or tags UnknownTopic, each with the closest existing names.
     """
-    chosen = [graph.indices_of(pages)]
+    chosen = [graph.page_numbers(pages)]
     for kind, names in (("spaces", spaces), ("tags", tags)):
         if not names:
             continue

@@ -16,6 +16,8 @@ import os
 import sys
 from pathlib import Path
 
+from .errors import UsageError
+
 FACTORY = "api.app:app_from_environment"
 DEMO_TOKEN_NAME = "demo-admin"
 
@@ -75,9 +77,8 @@ def _cmd_token_add(args: argparse.Namespace) -> int:
 
     try:
         token = add_token(Path(args.tokens), args.name, args.role)
-    except ValueError as error:
-        print(f"rankrec token: {error}", file=sys.stderr)
-        return 2
+    except ValueError as error:  # a bad or taken name
+        raise UsageError(str(error)) from None
     print(token)
     print(f"(shown once; {args.tokens} keeps only its hash)", file=sys.stderr)
     return 0
@@ -87,8 +88,8 @@ def _demo_layout(workdir: Path) -> tuple[Path, Path, Path]:
     """The demo's store, index and tokens; imports and indexes the demo wiki when its index is missing."""
     wiki, index, tokens = workdir / "wiki.db", workdir / "index", workdir / "tokens.json"
     if not (index / "manifest.json").is_file():
+        from .build import build_index
         from .demo import import_demo
-        from .index import build_index
         from .store import Store
 
         print(f"no index in {workdir}: importing and indexing the demo wiki first", file=sys.stderr)
@@ -104,18 +105,18 @@ def _demo_layout(workdir: Path) -> tuple[Path, Path, Path]:
 
 
 def serve_settings(args: argparse.Namespace) -> dict[str, str]:
-    """The ``RANKREC_SERVE_*`` variables for these arguments (ValueError for a bad combination)."""
+    """The ``RANKREC_SERVE_*`` variables for these arguments (UsageError for a bad combination)."""
     if args.workdir is not None:
         wiki, index, tokens = _demo_layout(Path(args.workdir))
         wiki = Path(args.wiki) if args.wiki else wiki
         index = Path(args.index) if args.index else index
         tokens = Path(args.tokens) if args.tokens else tokens
     elif args.index is None or args.tokens is None:
-        raise ValueError("give --index and --tokens, or --workdir")
+        raise UsageError("give --index and --tokens, or --workdir")
     else:
         wiki, index, tokens = (args.wiki and Path(args.wiki)), Path(args.index), Path(args.tokens)
     if not tokens.is_file():
-        raise ValueError(
+        raise UsageError(
             f"no tokens file {str(tokens)!r}; make one with `rankrec token add NAME --role admin`"
         )
     key = None
@@ -127,9 +128,9 @@ def serve_settings(args: argparse.Namespace) -> dict[str, str]:
             new_key(key)
             print(f"made a new pseudonym key in {key}; keep it apart from the store", file=sys.stderr)
     if args.retention_days is not None and args.retention_days < 1:
-        raise ValueError(f"--retention-days must be at least 1; got {args.retention_days!r}")
+        raise UsageError(f"--retention-days must be at least 1; got {args.retention_days!r}")
     if args.watch_seconds < 0:
-        raise ValueError(f"--watch-seconds must not be negative; got {args.watch_seconds!r}")
+        raise UsageError(f"--watch-seconds must not be negative; got {args.watch_seconds!r}")
     values = {
         "index": _absolute(index),  # the link itself, not its target: swaps must stay visible
         "wiki": _absolute(wiki),
@@ -151,11 +152,7 @@ def _absolute(path: Path | None) -> Path | None:
 def _cmd_serve(args: argparse.Namespace) -> int:
     import uvicorn
 
-    try:
-        environment = serve_settings(args)
-    except ValueError as error:
-        print(f"rankrec serve: {error}", file=sys.stderr)
-        return 2
+    environment = serve_settings(args)
     os.environ.update(environment)
     print(f"serving on http://{args.host}:{args.port}/ (preview: /preview, API: /docs)", file=sys.stderr)
     uvicorn.run(FACTORY, factory=True, host=args.host, port=args.port, log_level="info")

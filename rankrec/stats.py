@@ -35,9 +35,15 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
     >>> summary["pages"], summary["dangling"], summary["largest_scc"]
     (0, 0, 0)
     """
-    summary: dict = store.counts()
-    ids, _ = store.present_pages()
-    sources, targets, _ = store.link_arrays()
+    with store.reading():
+        summary: dict = store.counts()
+        ids, _ = store.present_pages()
+        sources, targets, _ = store.link_arrays()
+        archived = sum(archived for _, _, archived in store.page_table())
+        restricted = len({page for page, _ in store.page_group_pairs()})
+        users, pages, times = store.view_arrays()
+        worst_targets = store.unresolved_targets(worst)
+        worst_sources = store.pages_with_unresolved_links(worst)
     n = ids.size
     rows = np.searchsorted(ids, sources)
     columns = np.searchsorted(ids, targets)
@@ -49,16 +55,12 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         summary["largest_scc"] = int(np.bincount(labels).max())
     else:
         summary["largest_scc"] = 0
-    summary["archived"] = store.scalar("SELECT count(*) FROM pages WHERE present = 1 AND archived = 1")
-    summary["restricted"] = store.scalar(
-        "SELECT count(DISTINCT page_id) FROM page_groups JOIN pages ON pages.id = page_id WHERE present = 1"
-    )
-    users, pages, times = store.view_arrays()
+    summary["archived"] = archived
+    summary["restricted"] = restricted
     summary["views_per_user"] = _spread(np.unique(users, return_counts=True)[1])
     summary["views_per_page"] = _spread(np.unique(pages, return_counts=True)[1])
-    summary["views_of_missing_pages"] = store.scalar(
-        "SELECT count(*) FROM views JOIN pages ON pages.id = page_id WHERE present = 0"
-    )
+    # every view names a page row (foreign key), so a view of no present page is of a missing one
+    summary["views_of_missing_pages"] = int(np.count_nonzero(~np.isin(pages, ids)))
     first = float(times.min()) if times.size else None
     last = float(times.max()) if times.size else None
     summary["time_span"] = {
@@ -67,20 +69,7 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         "days": round((last - first) / 86400, 1) if times.size else 0.0,
     }
     summary["worst_unresolved_targets"] = [
-        {"target": target, "links": count}
-        for target, count in store.connection.execute(
-            "SELECT t.page, count(*) AS n FROM links JOIN pages AS t ON t.id = links.target_id "
-            "WHERE t.present = 0 GROUP BY t.id ORDER BY n DESC, t.page LIMIT ?",
-            (worst,),
-        )
+        {"target": target, "links": count} for target, count in worst_targets
     ]
-    summary["pages_with_most_unresolved"] = [
-        {"page": page, "links": count}
-        for page, count in store.connection.execute(
-            "SELECT s.page, count(*) AS n FROM links JOIN pages AS t ON t.id = links.target_id "
-            "JOIN pages AS s ON s.id = links.source_id WHERE t.present = 0 "
-            "GROUP BY s.id ORDER BY n DESC, s.page LIMIT ?",
-            (worst,),
-        )
-    ]
+    summary["pages_with_most_unresolved"] = [{"page": page, "links": count} for page, count in worst_sources]
     return summary

@@ -4,19 +4,19 @@ Pages are numbered by SQLite row ids. A page that is only *referred to* (a link 
 viewed page that no source has described) is kept as a row with ``present = 0``, so links to
 pages that do not exist are counted and reported instead of being dropped, and a later import
 that brings the page makes them resolve. Imports run inside :meth:`Store.transaction`: all of
-it or nothing.
+it or nothing. This module and :mod:`rankrec._store_reads` (the named read methods ``Store``
+inherits) hold all of the project's SQL; reads that build something from several of those
+methods run inside :meth:`Store.reading`, one snapshot.
 """
 
 from __future__ import annotations
 
-import itertools
 import sqlite3
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
-import numpy as np
-
+from ._store_reads import StoreReads
 from .errors import InputError, UnknownPage
 
 SCHEMA_VERSION = 1
@@ -73,7 +73,7 @@ CREATE TABLE IF NOT EXISTS imports (
 """
 
 
-class Store:
+class Store(StoreReads):
     """An open wiki store. Use as a context manager, or call :meth:`close`.
 
     >>> with Store(":memory:") as store:
@@ -128,6 +128,33 @@ class Store:
         """Everything inside goes in together or not at all (also on KeyboardInterrupt)."""
         self.connection.execute("BEGIN IMMEDIATE")
         try:
+            yield self
+        except BaseException:
+            self.connection.execute("ROLLBACK")
+            self._page_ids.clear()
+            self._user_ids.clear()
+            raise
+        self.connection.execute("COMMIT")
+
+    @contextmanager
+    def reading(self) -> Iterator[Store]:
+        """Every read inside sees one snapshot: writes committed meanwhile wait for the next block.
+
+        Opens one read transaction, and takes its snapshot on entry (SQLite in WAL mode gives every
+        SELECT of a transaction the same snapshot); ends it on exit. Inside a reading block
+        already, or inside :meth:`transaction`, it adds nothing: the outer transaction is the
+        snapshot. Do not write inside a reading block.
+
+        >>> with Store(":memory:") as store, store.reading():
+        ...     store.connection.in_transaction
+        True
+        """
+        if self.connection.in_transaction:
+            yield self
+            return
+        self.connection.execute("BEGIN")
+        try:
+            self.connection.execute("SELECT count(*) FROM meta").fetchone()  # the snapshot starts here
             yield self
         except BaseException:
             self.connection.execute("ROLLBACK")
@@ -312,58 +339,3 @@ class Store:
                 self.connection.execute("DELETE FROM users WHERE id = ?", (row[0],))
                 self._user_ids.pop(user, None)
         return deleted
-
-    # -- reads -----------------------------------------------------------------------------------
-    def scalar(self, sql: str, parameters: tuple = ()):
-        return self.connection.execute(sql, parameters).fetchone()[0]
-
-    def counts(self) -> dict[str, int]:
-        """Sizes of the snapshot: pages, links, unresolved links, views, users, teams, groups."""
-        return {
-            "pages": self.scalar("SELECT count(*) FROM pages WHERE present = 1"),
-            "links": self.scalar(
-                "SELECT count(*) FROM links JOIN pages AS t ON t.id = links.target_id "
-                "JOIN pages AS s ON s.id = links.source_id WHERE t.present = 1 AND s.present = 1"
-            ),
-            "unresolved_links": self.scalar(
-                "SELECT count(*) FROM links JOIN pages AS t ON t.id = links.target_id WHERE t.present = 0"
-            ),
-            "views": self.scalar("SELECT count(*) FROM views"),
-            "users": self.scalar("SELECT count(*) FROM users"),
-            "teams": self.scalar("SELECT count(DISTINCT name) FROM memberships WHERE kind = 'team'"),
-            "groups": self.scalar(
-                "SELECT count(*) FROM (SELECT name FROM memberships WHERE kind = 'group' "
-                "UNION SELECT name FROM page_groups)"
-            ),
-        }
-
-    def present_pages(self) -> tuple[np.ndarray, list[str]]:
-        """Row ids (ascending) and page ids of the pages the wiki holds."""
-        rows = self.connection.execute("SELECT id, page FROM pages WHERE present = 1 ORDER BY id").fetchall()
-        ids = np.fromiter((row[0] for row in rows), dtype=np.int64, count=len(rows))
-        return ids, [row[1] for row in rows]
-
-    def _columns(self, sql: str, count: int, width: int) -> np.ndarray:
-        """A query's rows as a (count, width) float64 array, read without a list of tuples."""
-        cursor = self.connection.execute(sql)
-        flat = np.fromiter(itertools.chain.from_iterable(cursor), dtype=np.float64, count=count * width)
-        return flat.reshape(count, width)
-
-    def link_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Row ids of source and target, and weight, of every link between present pages."""
-        count = self.scalar("SELECT count(*) FROM links")
-        table = self._columns("SELECT source_id, target_id, weight FROM links", count, 3)
-        sources, targets = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64)
-        top = self.scalar("SELECT coalesce(max(id), 0) FROM pages")
-        present = np.zeros(top + 1, dtype=bool)
-        present[self.present_pages()[0]] = True
-        keep = present[sources] & present[targets]
-        return sources[keep], targets[keep], table[keep, 2]
-
-    def view_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """User row id, page row id and timestamp of every view, ordered by user then time."""
-        count = self.scalar("SELECT count(*) FROM views")
-        table = self._columns(
-            "SELECT user_id, page_id, timestamp FROM views ORDER BY user_id, timestamp", count, 3
-        )
-        return table[:, 0].astype(np.int64), table[:, 1].astype(np.int64), table[:, 2]

@@ -13,19 +13,14 @@ import numpy as np
 from .graph import WikiGraph, dense_numbers
 from .store import Store
 
-_QUERIES = {
-    "spaces": "SELECT space, id FROM pages WHERE present = 1 AND archived = 0 AND space IS NOT NULL",
-    "tags": "SELECT tag, pages.id FROM page_tags JOIN pages ON pages.id = page_id "
-    "WHERE present = 1 AND archived = 0",
-}
 _PREFIX = {"spaces": "space", "tags": "tag"}
 
 
 def store_topics(store: Store, graph: WikiGraph, kind: str, *, min_pages: int = 1) -> dict[str, np.ndarray]:
     """``{"space:NAME" or "tag:NAME": sorted dense page numbers}`` for topics with >= min_pages pages."""
-    if kind not in _QUERIES:
-        raise ValueError(f"kind must be one of {', '.join(map(repr, _QUERIES))}; got {kind!r}")
-    rows = store.connection.execute(_QUERIES[kind]).fetchall()
+    if kind not in _PREFIX:
+        raise ValueError(f"kind must be one of {', '.join(map(repr, _PREFIX))}; got {kind!r}")
+    rows = store.topic_pairs(kind)
     if not rows:
         return {}
     names = np.array([row[0] for row in rows], dtype=object)
@@ -51,11 +46,7 @@ def topic_of_pages(graph: WikiGraph, topics: dict[str, np.ndarray]) -> np.ndarra
 
 def _page_texts(store: Store, graph: WikiGraph) -> tuple[np.ndarray, list[str]]:
     """Dense numbers and "title space tags" text of the graph's pages that are not archived."""
-    rows = store.connection.execute(
-        "SELECT pages.id, coalesce(title, ''), coalesce(space, ''), coalesce(group_concat(tag, ' '), '') "
-        "FROM pages LEFT JOIN page_tags ON page_tags.page_id = pages.id "
-        "WHERE present = 1 AND archived = 0 GROUP BY pages.id ORDER BY pages.id"
-    ).fetchall()
+    rows = store.page_texts()
     dense = dense_numbers(graph.row_ids, np.array([row[0] for row in rows], dtype=np.int64))
     texts = [" ".join(part.replace("-", " ").replace("_", " ") for part in row[1:]) for row in rows]
     keep = np.flatnonzero(dense >= 0)

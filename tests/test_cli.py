@@ -64,3 +64,32 @@ def test_help_explains_every_command(capsys):
     text = capsys.readouterr().out
     for command in ("import", "stats", "synth", "demo"):
         assert command in text
+
+
+def test_commands_are_listed_in_their_usual_order(capsys):
+    with pytest.raises(SystemExit):
+        main(["--help"])
+    text = capsys.readouterr().out
+    commands = [line.split()[0] for line in text.splitlines() if line.startswith("    ") and line[4] != " "]
+    expected = ["import", "stats", "rank", "build", "related", "recommend", "landing"]
+    assert commands == [*expected, "synth", "demo", "evaluate", "serve", "token"]
+
+
+@pytest.mark.parametrize(
+    ("argv", "message"),
+    [
+        (["synth", "--pages", "0", "--out", "{tmp}/wiki"], "rankrec synth: pages must be"),
+        (
+            ["serve", "--tokens", "{tmp}/tokens.json"],
+            "rankrec serve: give --index and --tokens, or --workdir",
+        ),
+        (["token", "add", "-bad name", "--role", "reader", "--tokens", "{tmp}/t.json"], "rankrec token: "),
+    ],
+    ids=["synth", "serve", "token"],
+)
+def test_usage_errors_of_every_command_module_are_one_line_and_exit_2(tmp_path, capsys, argv, message):
+    # the one error mapping (cli.main) answers for commands that live in other modules too
+    assert main([part.replace("{tmp}", str(tmp_path)) for part in argv]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith(message) and err.count("\n") == 1, err
+    assert not (tmp_path / "wiki").exists() and not (tmp_path / "t.json").exists()

@@ -8,7 +8,7 @@ import pytest
 import scipy.sparse as sp
 
 from rankrec.errors import UnknownPage
-from rankrec.graph import Navigation, blend_navigation, load_graph, navigation_counts
+from rankrec.graph import blend_navigation, load_graph, navigation_counts
 from rankrec.sources.records import Origin, PageRecord
 from rankrec.store import Store
 
@@ -41,9 +41,9 @@ def test_graph_matches_a_networkx_digraph_of_the_same_links(tmp_path):
 def test_unknown_page_suggests_close_ids(tmp_path):
     with _store(tmp_path, ["ops/backup", "ops/restore"], []) as store:
         graph = load_graph(store)
-    assert graph.index_of("ops/restore") == 1
+    assert graph.page_number("ops/restore") == 1
     with pytest.raises(UnknownPage) as caught:
-        graph.index_of("ops/backups")
+        graph.page_number("ops/backups")
     assert caught.value.suggestions[0] == "ops/backup"
 
 
@@ -64,27 +64,3 @@ def test_blend_mixes_rows_and_keeps_rows_without_navigation():
     np.testing.assert_allclose(blended[0], [0, 0.75, 0.25])  # 3/4 links, 1/4 navigation
     np.testing.assert_allclose(blended[1], [1, 0, 0])  # no links: navigation only
     np.testing.assert_allclose(blended[2], [1, 1, 0])  # no navigation: links as they were
-
-
-def test_navigation_window_and_fingerprint(tmp_path):
-    views = [
-        ("u", "a", 0.0, None),
-        ("u", "c", 60.0, None),
-        ("u", "a", 10_000.0, None),
-        ("u", "b", 10_060, None),
-    ]
-    with _store(tmp_path, ["a", "b", "c"], [("a", "b", 1.0)], views) as store:
-        plain = load_graph(store)
-        early = load_graph(store, navigation=Navigation(weight=0.5, until=5_000))
-        late = load_graph(store, navigation=Navigation(weight=0.5, since=5_000))
-        again = load_graph(store)
-    np.testing.assert_allclose(early.adjacency.toarray()[0], [0, 0.5, 0.5])  # a->c seen early
-    np.testing.assert_allclose(late.adjacency.toarray()[0], [0, 1.0, 0])  # only a->b seen late
-    assert plain.fingerprint == again.fingerprint
-    assert len({plain.fingerprint, early.fingerprint, late.fingerprint}) == 3
-
-
-@pytest.mark.parametrize(("weight", "error"), [(1.5, ValueError), (-0.1, ValueError), ("x", TypeError)])
-def test_navigation_weight_is_checked(weight, error):
-    with pytest.raises(error, match="weight"):
-        Navigation(weight=weight)

@@ -11,14 +11,18 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from rankrec.build import build_index
+from rankrec.configuration import Configuration
 from rankrec.errors import StaleIndex, UnknownPage
 from rankrec.graph import load_graph
-from rankrec.index import build_index, load_index
+from rankrec.index import load_index
 from rankrec.pagerank import solve_exact
+from rankrec.recommend.candidates import page_candidates
 from rankrec.sources.records import Origin, PageRecord
 from rankrec.store import Store
 
 DAY = 86_400.0
+LINKS_ONLY = Configuration(lift=0.5, navigation_weight=0.0)  # lists of the link graph alone
 
 
 def make_wiki(
@@ -88,7 +92,7 @@ def built(tmp_path_factory):
     folder = tmp_path_factory.mktemp("index")
     wiki = make_wiki(folder / "wiki.db")
     with Store(wiki) as store:
-        build_index(store, folder / "index", hubs=5, k_related=20, lift=0.5, tol=1e-10)
+        build_index(store, folder / "index", LINKS_ONLY.with_values(tol=1e-10), hubs=5, k_related=20)
         graph = load_graph(store)
     return folder, graph, load_index(folder / "index")
 
@@ -165,7 +169,7 @@ def test_precomputed_lists_are_the_exact_top_candidates(built):
     _, graph, index = built
     for seed in range(0, graph.size, 7):
         expected, exact, ranked = _exact_top(graph, index, seed, 20, 0.5)
-        found = index.seed_candidates(seed)
+        found = page_candidates(index, seed)
         assert np.allclose(found["scores"], exact[found["pages"]], rtol=1e-5, atol=1e-9)
         gaps = np.abs(np.diff(ranked[expected])) > 1e-6
         agree = found["pages"][: expected.size] == expected
@@ -177,11 +181,17 @@ def test_push_built_lists_agree_with_power_built_ones(tmp_path, built):
     with Store(folder / "wiki.db") as store:
         pushed = load_index(
             build_index(
-                store, tmp_path / "pushed", hubs=0, topics="spaces", k_related=20, method="push", epsilon=1e-9
+                store,
+                tmp_path / "pushed",
+                LINKS_ONLY.with_values(related_epsilon=1e-9),
+                hubs=0,
+                topics="spaces",
+                k_related=20,
+                method="push",
             )
         )
     for seed in range(0, graph.size, 5):
-        a, b = index.seed_candidates(seed), pushed.seed_candidates(seed)
+        a, b = page_candidates(index, seed), page_candidates(pushed, seed)
         assert a["pages"][:5].tolist() == b["pages"][:5].tolist()
         assert np.allclose(a["scores"], b["scores"], atol=1e-6)
 
@@ -189,7 +199,9 @@ def test_push_built_lists_agree_with_power_built_ones(tmp_path, built):
 def test_share_of_views_precomputes_the_most_viewed_pages(tmp_path, built):
     folder, graph, index = built
     with Store(folder / "wiki.db") as store:
-        partial = load_index(build_index(store, tmp_path / "partial", hubs=2, k_related=20, view_share=0.5))
+        partial = load_index(
+            build_index(store, tmp_path / "partial", LINKS_ONLY, hubs=2, k_related=20, view_share=0.5)
+        )
         counts = np.zeros(graph.size)
         for page_id, count in store.connection.execute(
             "SELECT page_id, count(*) FROM views GROUP BY page_id"
@@ -200,9 +212,9 @@ def test_share_of_views_precomputes_the_most_viewed_pages(tmp_path, built):
     assert counts[chosen].min() >= counts[np.setdiff1d(np.arange(graph.size), chosen)].max()
     assert partial.manifest.counts["precomputed"] == chosen.size < graph.size
     missing = int(np.setdiff1d(np.arange(graph.size), chosen)[0])
-    first = partial.seed_candidates(missing)  # computed now by push, then cached
-    assert partial.seed_candidates(missing) is first
-    assert first["pages"][:5].tolist() == index.seed_candidates(missing)["pages"][:5].tolist()
+    first = page_candidates(partial, missing)  # computed now (by the build's method), then cached
+    assert page_candidates(partial, missing) is first
+    assert first["pages"][:5].tolist() == page_candidates(index, missing)["pages"][:5].tolist()
 
 
 def test_workers_give_the_same_lists(tmp_path, built):
@@ -212,11 +224,10 @@ def test_workers_give_the_same_lists(tmp_path, built):
             build_index(
                 store,
                 tmp_path / "parallel",
+                LINKS_ONLY.with_values(tol=1e-10, related_epsilon=1e-8),
                 hubs=5,
                 k_related=20,
-                tol=1e-10,
                 method="push",
-                epsilon=1e-8,
                 workers=2,
             )
         )
@@ -224,11 +235,10 @@ def test_workers_give_the_same_lists(tmp_path, built):
             build_index(
                 store,
                 tmp_path / "serial",
+                LINKS_ONLY.with_values(tol=1e-10, related_epsilon=1e-8),
                 hubs=5,
                 k_related=20,
-                tol=1e-10,
                 method="push",
-                epsilon=1e-8,
                 workers=1,
             )
         )
@@ -266,7 +276,7 @@ def test_stale_format_and_fingerprint_are_refused(tmp_path):
 _CRASH = """
 import os, sys
 import numpy as np
-from rankrec.index import build_index
+from rankrec.build import build_index
 from rankrec.store import Store
 limit, written = int(sys.argv[3]), [0]
 real_save = np.save
@@ -297,7 +307,7 @@ def test_an_interrupted_build_leaves_the_old_index(tmp_path, monkeypatch, how):
         store.log_import("more", "edges", 1, 0)
     half = arrays // 2
     if how == "exception":
-        import rankrec.index as module
+        import rankrec.index as module  # writes the tables
 
         real_save, written = np.save, [0]
 

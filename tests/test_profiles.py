@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import pickle
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -264,7 +265,7 @@ def test_load_profiles_from_a_store(store):
     assert profiles.users == ("ida.halvard", "ove.brandt", "mira.lund")
     assert profiles.matrix.shape == (3, graph.size)
     ida = profiles.restart("ida.halvard")
-    backup, restore = graph.index_of("ops/backup"), graph.index_of("ops/restore")
+    backup, restore = graph.page_number("ops/backup"), graph.page_number("ops/restore")
     np.testing.assert_allclose([ida[backup], ida[restore]], [1 / 3, 2 / 3], rtol=1e-12)  # one half-life
     assert profiles.restart("mira.lund").sum() == 0
     with pytest.raises(UnknownUser) as caught:
@@ -276,9 +277,9 @@ def test_load_profiles_with_dwell_and_an_earlier_cutoff(store):
     graph = load_graph(store)
     weighted = load_profiles(store, graph, repeat="none", dwell_weighting=True, half_life_days=1e9)
     ida = weighted.restart("ida.halvard")
-    np.testing.assert_allclose(ida[graph.index_of("ops/backup")], 10 / 11, rtol=1e-6)  # 10 min vs 1 min
+    np.testing.assert_allclose(ida[graph.page_number("ops/backup")], 10 / 11, rtol=1e-6)  # 10 min vs 1 min
     earlier = load_profiles(store, graph, now=NOW - 2 * DAY)
-    np.testing.assert_allclose(earlier.restart("ida.halvard")[graph.index_of("ops/backup")], 1.0)
+    np.testing.assert_allclose(earlier.restart("ida.halvard")[graph.page_number("ops/backup")], 1.0)
     assert earlier.restart("ove.brandt").sum() == 0 and earlier.now == NOW - 2 * DAY
 
 
@@ -295,3 +296,25 @@ def test_team_members_and_user_groups(store):
     np.testing.assert_allclose(restart.sum(), 1.0)
     with pytest.raises(GroupTooSmall):
         team_restart(profiles, team_members(store, "calibration"), team="calibration")
+
+
+def test_a_user_arriving_during_load_profiles_waits_for_the_next_call(tmp_path):
+    # Regression: users and views were read in two queries, so a user whose first view was
+    # stored between them had a view but no row ("users must be dense numbers >= 0; got -1").
+    path = tmp_path / "wiki.db"
+
+    class Racing(Store):
+        def users(self):
+            found = super().users()
+            with Store(path) as writer:  # another connection commits between the two reads
+                writer.append_views([SimpleNamespace(user="new.reader", page="ops/backup", timestamp=NOW)])
+            return found
+
+    with Store(path) as setup, setup.transaction():
+        setup.put_page(PageRecord(page="ops/backup", title="Backup", origin=Origin("t")))
+        setup.put_views([("ida.halvard", "ops/backup", NOW - DAY, None)])
+    with Racing(path) as store:
+        graph = load_graph(store)
+        profiles = load_profiles(store, graph)
+        assert profiles.users == ("ida.halvard",) and profiles.now == NOW - DAY
+        assert load_profiles(store, graph).users == ("ida.halvard", "new.reader")  # seen next time

@@ -11,10 +11,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from rankrec.build import build_index
+from rankrec.configuration import Configuration
 from rankrec.errors import GroupTooSmall, UnknownTeam, UnknownUser
-from rankrec.explain import NO_LINK, VIA_PAGE, contributions
 from rankrec.graph import load_graph
-from rankrec.index import build_index, load_index
+from rankrec.index import load_index
 from rankrec.pagerank import solve_exact
 from rankrec.recommend import (
     changes_since,
@@ -25,6 +26,7 @@ from rankrec.recommend import (
     related,
     team_from_store,
 )
+from rankrec.recommend.explain import NO_LINK, VIA_PAGE, contributions
 from rankrec.store import Store
 from tests.test_index import make_wiki
 
@@ -66,7 +68,15 @@ def test_no_list_holds_a_page_its_audience_may_not_see_and_lists_are_full(
             views=6,
         )
         with Store(wiki) as store:
-            index = load_index(build_index(store, Path(scratch) / "index", hubs=3, k_related=8, tol=1e-8))
+            index = load_index(
+                build_index(
+                    store,
+                    Path(scratch) / "index",
+                    Configuration(tol=1e-8, navigation_weight=0.0),
+                    hubs=3,
+                    k_related=8,
+                )
+            )
             users = [row[0] for row in store.connection.execute("SELECT user FROM users ORDER BY user")]
             readers = [None, *(reader_from_store(store, index, user) for user in users[:3])]
             team = team_from_store(store, index, "team0", min_readers=1)
@@ -115,7 +125,7 @@ def test_no_list_holds_a_page_its_audience_may_not_see_and_lists_are_full(
                     index.pages[seed_page],
                     reader=reader,
                     k=k,
-                    blend=0.5,
+                    personal_share=0.5,
                     exclude_read=True,
                     per_space=per_space,
                 )
@@ -139,7 +149,13 @@ def wiki(tmp_path_factory):
         restricted=0.2,
     )
     with Store(path) as store:
-        build_index(store, folder / "index", hubs=4, k_related=25, tol=1e-10, lift=0.5)
+        build_index(
+            store,
+            folder / "index",
+            Configuration(tol=1e-10, lift=0.5, navigation_weight=0.0),
+            hubs=4,
+            k_related=25,
+        )
         graph = load_graph(store)
     return path, graph, load_index(folder / "index")
 
@@ -288,7 +304,7 @@ def test_blend_one_follows_the_reader(wiki):
     path, graph, index = wiki
     with Store(path) as store:
         reader = reader_from_store(store, index, "user02")
-    blended = related(index, index.pages[7], reader=reader, k=5, blend=1.0, lift=0.0)
+    blended = related(index, index.pages[7], reader=reader, k=5, personal_share=1.0, lift=0.0)
     personal = recommend(index, reader, k=6, lift=0.0, exclude_read=False)
     expected = [item.page for item in personal.items if item.page != index.pages[7]][:5]
     assert [item.page for item in blended.items] == expected
@@ -312,7 +328,14 @@ def test_team_vectors_stored_at_build_match_the_exact_solve(wiki, tmp_path):
     path, graph, index = wiki
     with Store(path) as store:
         team = team_from_store(store, index, "team1")
-        fresh = load_index(build_index(store, tmp_path / "no-teams", hubs=4, team_min_readers=100))
+        fresh = load_index(
+            build_index(
+                store,
+                tmp_path / "no-teams",
+                Configuration(team_min_readers=100, navigation_weight=0.0),
+                hubs=4,
+            )
+        )
     exact = solve_exact(graph.adjacency, team.restart, damping=0.85).vectors
     stored = index.team_vector("team1")
     assert index.manifest.counts["teams"] == 2 and fresh.manifest.counts["teams"] == 0

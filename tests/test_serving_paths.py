@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 
 from rankrec.index import StringTable, _save_strings, load_index
 from rankrec.recommend import related
-from rankrec.recommend.lists import select_pages
+from rankrec.recommend.select import select_pages
 from tests.evaluate.test_method import _reference_selection
 from tests.test_recommend import wiki  # noqa: F401 (module fixture: an 80-page built index)
 

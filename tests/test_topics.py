@@ -5,8 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from rankrec.build import build_index
 from rankrec.graph import load_graph
-from rankrec.index import build_index, load_index
+from rankrec.index import load_index
 from rankrec.sources.records import Origin, PageRecord
 from rankrec.store import Store
 from rankrec.topics import text_topics
@@ -47,7 +48,7 @@ def test_nmf_recovers_a_planted_partition(tmp_path):
         words = name.split(":", 2)[2].split("+")
         assert set(words) <= set(PUMPS if labels == {0} else LEDGER)
         groups.append(set(members.tolist()))
-    everyone = set(range(graph.size)) - {graph.index_of("p004"), graph.index_of("p007")}
+    everyone = set(range(graph.size)) - {graph.page_number("p004"), graph.page_number("p007")}
     assert groups[0] | groups[1] == everyone and not groups[0] & groups[1]  # archived pages left out
 
 

@@ -3,8 +3,8 @@
 - :mod:`.metrics`: hit rate, precision, recall, AP (MAP), reciprocal rank (MRR), DCG, nDCG, coverage, novelty,
   intra-list diversity and unvisited share, plus :func:`evaluate_lists` for all of them at once.
 - :mod:`.statistics`: :func:`bootstrap_ci` and the paired :func:`paired_difference`.
-- :mod:`.splits`: :func:`temporal_split`, :func:`last_n_split`, :func:`session_split` (each a :class:`Split`),
-  the shared :func:`excluded_pages` and :func:`assert_no_leakage`.
+- :mod:`.splits`: :func:`temporal_split`, :func:`last_n_split`, :func:`session_split`, each a :class:`Split`;
+  :mod:`.tasks` holds that type and the shared :func:`excluded_pages` and :func:`assert_no_leakage`.
 - :mod:`.baselines`: random, most-read, global PageRank, out-links, co-visitation and team-most-read
   recommenders, each with ``recommend(split, k)``, and :func:`check_recommendations`.
 - :mod:`.method`: rankrec itself behind that interface (:class:`PersonalisedPageRank`, :func:`rankrec_lists`).

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 
-from ..sources._fields import FieldError, parse_timestamp
+from ..errors import UsageError
+from ..sources import FieldError, parse_timestamp
 from .splits import SESSION_GAP_SECONDS
-
-EXIT_USAGE = 2  # as rankrec.cli: bad input or usage
 
 
 def _cutoff(text: str) -> float:
@@ -46,15 +46,18 @@ def _bar(total: int):
 
 def evaluate(args: argparse.Namespace, out=None) -> int:
     """Run ``rankrec evaluate``; prints the headline table and where the report is."""
-    from .method import Configuration
+    from ..configuration import Configuration
     from .report import write_report
     from .run import load_data, make_split, open_store, run_evaluation
     from .sweeps import Grid
 
     out = out or sys.stdout
-    try:  # settings first, so that a bad value costs no reading
+    try:  # settings first, so that a bad value costs no reading (the library checks its own)
         start = Configuration(
-            damping=args.damping, half_life_days=args.half_life, blend=args.blend, lift=args.lift
+            damping=args.damping,
+            half_life_days=args.half_life,
+            navigation_weight=args.navigation_weight,
+            lift=args.lift,
         )
         grid = None
         if not args.no_sweep:
@@ -63,19 +66,17 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
                 damping=args.grid_damping or defaults.damping,
                 lift=args.grid_lift or defaults.lift,
                 half_life_days=args.grid_half_life or defaults.half_life_days,
-                blend=args.grid_blend or defaults.blend,
-            )
-        for name in ("samples", "workers", "prefix", "last"):
-            if getattr(args, name) < 1:
-                raise ValueError(f"--{name} must be at least 1; got {getattr(args, name)!r}")
-        if not 0 < args.test_share < 1 or args.gap <= 0:
-            raise ValueError(
-                f"--test-share must lie in (0, 1) and --gap be positive; got "
-                f"{args.test_share!r} and {args.gap!r}"
+                navigation_weight=args.grid_navigation_weight or defaults.navigation_weight,
             )
     except ValueError as error:
-        print(f"rankrec evaluate: {error}", file=sys.stderr)
-        return EXIT_USAGE
+        raise UsageError(str(error)) from None
+    for name in ("samples", "workers", "prefix", "last"):
+        if getattr(args, name) < 1:
+            raise UsageError(f"--{name} must be at least 1; got {getattr(args, name)!r}")
+    if not 0 < args.test_share < 1 or args.gap <= 0:
+        raise UsageError(
+            f"--test-share must lie in (0, 1) and --gap be positive; got {args.test_share!r} and {args.gap!r}"
+        )
     with open_store(args.wiki) as store:
         data = load_data(store)
     split = make_split(
@@ -110,7 +111,11 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
         bar.close()
     write_report(evaluation, args.report)
     _summary(evaluation, out)
-    out.write(f"report written to {args.report} (report.md, results.json, plots)\n")
+    out.write(f"report written to {args.report} (report.md, results.json, settings.json, plots)\n")
+    settings = Path(args.report) / "settings.json"
+    out.write(
+        f"serve what was evaluated: rankrec build --wiki {args.wiki} --index DIR --settings {settings}\n"
+    )
     return 0
 
 
@@ -123,8 +128,11 @@ def _summary(evaluation, out) -> None:
         cells = ("-" if scores.means.get(m) is None else f"{scores.means[m]:.4f}" for m in shown)
         out.write(f"{name:<{width}}  " + "  ".join(f"{cell:>11}" for cell in cells) + "\n")
     found = evaluation.comparison["metrics"].get(f"ndcg@{k}")
-    configuration = evaluation.configuration.as_dict()
-    shown_configuration = ", ".join(f"{key} {value:g}" for key, value in configuration.items())
+    configuration = evaluation.configuration
+    shown_configuration = ", ".join(
+        f"{name} {getattr(configuration, name):g}"
+        for name in ("damping", "lift", "navigation_weight", "half_life_days")
+    )
     out.write(f"rankrec configuration: {shown_configuration}\n")
     if found is not None:
         low, high = found["ci95"]
@@ -212,7 +220,7 @@ def register(commands) -> None:
         help="half-life of a view in a reader's profile (30 days)",
     )
     settings.add_argument(
-        "--blend",
+        "--navigation-weight",
         type=float,
         default=0.3,
         metavar="W",
@@ -226,5 +234,7 @@ def register(commands) -> None:
     grid.add_argument("--grid-damping", type=_numbers, metavar="V,V,...", help="default 0.5,0.7,0.85,0.95")
     grid.add_argument("--grid-lift", type=_numbers, metavar="V,V,...", help="default 0,0.25,0.5,0.75,1")
     grid.add_argument("--grid-half-life", type=_numbers, metavar="V,V,...", help="default 7,30,90,365 (days)")
-    grid.add_argument("--grid-blend", type=_numbers, metavar="V,V,...", help="default 0,0.3,0.6,0.9")
+    grid.add_argument(
+        "--grid-navigation-weight", type=_numbers, metavar="V,V,...", help="default 0,0.3,0.6,0.9"
+    )
     command.set_defaults(run=evaluate)

@@ -26,6 +26,7 @@ from matplotlib.figure import Figure
 
 from .. import __version__
 from .._atomic import publish_folder
+from ..configuration import Settings, write_settings
 from .run import Evaluation
 
 PLOTTED = ("ndcg", "ndcg_graded", "recall", "hit_rate", "precision", "map")
@@ -66,7 +67,7 @@ def results(evaluation: Evaluation) -> dict:
     methods = {}
     for name, scores in evaluation.methods.items():
         methods[name] = {**scores.means, "ci95": dict(scores.ci95)}
-    methods["rankrec"]["configuration"] = evaluation.configuration.as_dict()
+    methods["rankrec"]["configuration"] = evaluation.configuration.to_dict()
     sweeps = []
     if evaluation.choice is not None:
         for sweep in evaluation.choice.sweeps:
@@ -109,8 +110,23 @@ def write_report(evaluation: Evaluation, folder: str | Path) -> Path:
         if evaluation.choice is not None:
             plots += [_plot_sweep(evaluation, sweep, staging) for sweep in evaluation.choice.sweeps]
         (staging / "report.md").write_text(markdown(evaluation, content, plots), encoding="utf-8")
+        write_settings(staging / "settings.json", chosen_settings(evaluation))
 
     return publish_folder(Path(folder), write)
+
+
+def chosen_settings(evaluation: Evaluation) -> Settings:
+    """The configuration the evaluation chose (or was given), with the data it was chosen on:
+    ``rankrec build --settings REPORT/settings.json`` builds the index with it."""
+    settings = evaluation.settings
+    chosen_on = {
+        "store": settings["data"]["store"],
+        "fingerprint": settings["data"]["fingerprint"],
+        "split": settings["split"],
+        "chosen_by": settings["chosen_by"] or "given (no sweep)",
+        "validation_score": None if evaluation.choice is None else evaluation.choice.score,
+    }
+    return Settings(evaluation.configuration, chosen_on)
 
 
 # -- plots ------------------------------------------------------------------------------------------
@@ -276,11 +292,15 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
             f"Chosen by {settings['chosen_by']} (validation {evaluation.choice.metric} "
             f"{evaluation.choice.score:.3f}); the test split played no part."
         )
+    blocks.append(
+        "`settings.json` beside this report holds the whole configuration; "
+        "`rankrec build --settings settings.json` serves the lists that were evaluated here."
+    )
     configuration = settings["rankrec"]
-    names = ("damping", "half_life_days", "blend", "lift")
+    names = ("damping", "half_life_days", "navigation_weight", "lift")
     blocks.append(
         _table(
-            ["damping", "half-life (days)", "navigation blend", "lift exponent"],
+            ["damping", "half-life (days)", "navigation weight", "lift exponent"],
             [[f"{configuration[name]:g}" for name in names]],
         )
     )

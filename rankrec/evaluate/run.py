@@ -26,8 +26,9 @@ import numpy as np
 import scipy.sparse as sp
 
 from .._validation import check_choice, check_count, check_fraction, check_positive
+from ..build import Evidence, read_evidence
+from ..configuration import Configuration
 from ..errors import CutoffOutsideSpan, InputError, NothingToEvaluate
-from ..graph import dense_numbers, load_graph
 from ..store import Store
 from .baselines import (
     CoVisitation,
@@ -39,11 +40,11 @@ from .baselines import (
     check_recommendations,
     training_counts,
 )
-from .method import Configuration, PersonalisedPageRank
+from .method import PersonalisedPageRank
 from .metrics import coverage, evaluate_lists, ndcg
 from .splits import SESSION_GAP_SECONDS, Split, last_n_split, session_split, temporal_split, training_pages
 from .statistics import bootstrap_ci, paired_difference
-from .sweeps import Choice, Grid, choose_configuration, mean_metric, validation_split
+from .sweeps import GRID_NAMES, Choice, Grid, choose_configuration, mean_metric, validation_split
 
 SPLITS = ("temporal", "last-n", "sessions")
 DEFAULT_KS = (1, 3, 5, 10, 20)
@@ -73,6 +74,7 @@ class EvaluationData:
     team_names: tuple[str, ...]
     fingerprint: str
     counts: dict = field(default_factory=dict)
+    evidence: Evidence | None = None  # the store as a build reads it (rankrec's lists are built from it)
 
     @property
     def size(self) -> int:
@@ -89,14 +91,12 @@ def _fingerprint(graph_fingerprint: str, users, viewed, times, teams) -> str:
     return digest.hexdigest()[:16]
 
 
-def load_data(store: Store) -> EvaluationData:
-    """Read ``store`` for an evaluation; InputError when it holds fewer than two pages or no views."""
-    graph = load_graph(store)
-    if graph.size < 2:
-        raise InputError(store.path, None, "the wiki store holds fewer than two pages; import some first")
-    users, viewed, times = store.view_arrays()
-    dense = dense_numbers(graph.row_ids, viewed)
-    inside = dense >= 0
+def load_data(store: Store, *, topics: str = "spaces") -> EvaluationData:
+    """Read ``store`` for an evaluation (:func:`rankrec.build.read_evidence`: one snapshot, what a build
+    reads); InputError when it holds fewer than two pages or no views."""
+    evidence = read_evidence(store, topics=topics)
+    graph, views = evidence.graph, evidence.views
+    inside = views.pages >= 0
     if not inside.any():
         raise InputError(
             store.path,
@@ -104,20 +104,16 @@ def load_data(store: Store) -> EvaluationData:
             "the wiki store holds no views of its pages; import view events "
             "first (rankrec import VIEWS.csv --wiki ...)",
         )
-    rows = store.connection.execute("SELECT id, space FROM pages WHERE present = 1 ORDER BY id").fetchall()
-    names = ["(none)" if row[1] is None else str(row[1]) for row in rows]
+    names = ["(none)" if code < 0 else evidence.space_names[code] for code in evidence.space_codes.tolist()]
     space_names, space = np.unique(np.array(names, dtype=object), return_inverse=True)
-    memberships = store.connection.execute(
-        "SELECT user_id, name FROM memberships WHERE kind = 'team' ORDER BY name, user_id"
-    ).fetchall()
-    teams, team_names = None, ()
-    if memberships:
-        team_names = tuple(sorted({name for _, name in memberships}))
-        top = max(int(users.max(initial=0)), max(user for user, _ in memberships))
+    teams, team_names = None, tuple(evidence.teams)
+    users, dense, times = views.users[inside], views.pages[inside], views.times[inside]
+    if team_names:
+        members = [(int(user), name) for name in team_names for user in evidence.teams[name]]
+        top = max(int(users.max(initial=0)), max(user for user, _ in members))
         teams = np.full(top + 1, -1, dtype=np.int64)
-        for user, name in reversed(memberships):  # a member of several teams counts in the first by name
+        for user, name in reversed(members):  # a member of several teams counts in the first by name
             teams[user] = team_names.index(name)
-    users, dense, times = users[inside], dense[inside], times[inside]
     adjacency = sp.csr_matrix(graph.adjacency)
     counts = {
         "pages": graph.size,
@@ -141,6 +137,7 @@ def load_data(store: Store) -> EvaluationData:
         team_names=team_names,
         fingerprint=_fingerprint(graph.fingerprint, users, dense, times, teams),
         counts=counts,
+        evidence=evidence,
     )
 
 
@@ -245,7 +242,6 @@ def run_evaluation(
     ks: Sequence[int] = DEFAULT_KS,
     samples: int = 1000,
     seed: int = 0,
-    tol: float = 1e-6,
     workers: int = 1,
     progress: Progress | None = None,
 ) -> Evaluation:
@@ -283,15 +279,16 @@ def run_evaluation(
             )
             advance(f"validation: {method.name}")
     choice = None
+    if "gap" in split.settings:  # navigation moves follow the split's own session rule
+        start = start.with_values(session_gap_seconds=float(split.settings["gap"]))
     configuration = start
     if grid is not None:
         choice = choose_configuration(
             split,
-            data.adjacency,
+            data.evidence,
             grid=grid,
             start=start,
             k=headline,
-            tol=tol,
             workers=workers,
             validation=validation,
             progress=advance,
@@ -299,7 +296,7 @@ def run_evaluation(
         configuration = choice.configuration
         validation_scores["rankrec"] = choice.score
     seconds = {"validation": time.perf_counter() - started}
-    rankrec = PersonalisedPageRank(data.adjacency, configuration, tol=tol, workers=workers)
+    rankrec = PersonalisedPageRank(data.evidence, configuration, workers=workers)
     popularity = training_counts(split.train)
     visited = training_pages(split)
     scored = {}
@@ -340,13 +337,10 @@ def run_evaluation(
         "ks": list(ks),
         "headline_k": headline,
         "bootstrap": {"samples": samples, "level": LEVEL, "seed": seed, "unit": "user"},
-        "grid": None
-        if grid is None
-        else {name: list(getattr(grid, name)) for name in ("damping", "lift", "half_life_days", "blend")},
-        "start": start.as_dict(),
-        "rankrec": configuration.as_dict(),
+        "grid": None if grid is None else {name: list(getattr(grid, name)) for name in GRID_NAMES},
+        "start": start.to_dict(),
+        "rankrec": configuration.to_dict(),
         "chosen_by": None if grid is None else f"mean ndcg@{headline} on the validation split",
-        "tol": tol,
         "data": {"store": data.store, "fingerprint": data.fingerprint, **data.counts},
     }
     advance("comparison")

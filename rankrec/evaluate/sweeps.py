@@ -7,10 +7,12 @@ choice sees is a training view of the test split, and the test period cannot rea
 :func:`choose_configuration` then runs two 2-D sweeps on that validation split, each scored by the
 mean nDCG@k over its queries:
 
-1. damping factor × lift exponent (half-life and blend at their starting values; every lift of one
-   damping comes from one solve);
-2. half-life × navigation blend weight, at the best damping and lift of the first sweep (the session
-   task restarts from the session's pages, so half-life has no effect there and only blend is swept).
+1. damping factor × lift exponent (half-life and navigation weight at their starting values);
+2. half-life × navigation weight, at the best damping and lift of the first sweep (the session
+   task restarts from the session's pages, so half-life has no effect there and only the navigation
+   weight is swept).
+
+Every configuration tried is scored on the lists an index built with it serves (:mod:`.method`).
 
 The chosen configuration is the best of every configuration evaluated (ties: the first evaluated).
 """
@@ -18,18 +20,22 @@ The chosen configuration is the best of every configuration evaluated (ties: the
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from types import MappingProxyType
 
 import numpy as np
 
 from .._validation import check_count
+from ..configuration import Configuration
 from ..errors import NothingToEvaluate
-from .method import Configuration, rankrec_lists
+from .method import rankrec_lists
 from .metrics import evaluate_lists
 from .splits import Split, last_n_split, session_split, temporal_split
 
 Progress = Callable[[str], object]
+
+
+GRID_NAMES = ("damping", "lift", "half_life_days", "navigation_weight")
 
 
 @dataclass(frozen=True)
@@ -40,10 +46,10 @@ class Grid:
     damping: tuple[float, ...] = (0.5, 0.7, 0.85, 0.95)
     lift: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75, 1.0)
     half_life_days: tuple[float, ...] = (7.0, 30.0, 90.0, 365.0)
-    blend: tuple[float, ...] = (0.0, 0.3, 0.6, 0.9)
+    navigation_weight: tuple[float, ...] = (0.0, 0.3, 0.6, 0.9)
 
     def __post_init__(self) -> None:
-        for name in ("damping", "lift", "half_life_days", "blend"):
+        for name in GRID_NAMES:
             values = tuple(float(value) for value in getattr(self, name))
             if not values:
                 raise ValueError(f"grid {name} must hold at least one value; got {getattr(self, name)!r}")
@@ -53,8 +59,8 @@ class Grid:
 
     @property
     def solves(self) -> int:
-        """Upper bound of the personalised PageRank runs (one per damping, then per half-life × blend)."""
-        return len(self.damping) + len(self.half_life_days) * len(self.blend)
+        """Upper bound of the index builds (damping × lift, then half-life × navigation weight)."""
+        return len(self.damping) * len(self.lift) + len(self.half_life_days) * len(self.navigation_weight)
 
 
 @dataclass(frozen=True, eq=False)
@@ -139,21 +145,21 @@ def mean_metric(lists: np.ndarray, split: Split, k: int) -> float:
 
 def choose_configuration(
     split: Split,
-    adjacency,
+    evidence,
     *,
     grid: Grid | None = None,
     start: Configuration | None = None,
     k: int = 10,
-    gap: float | None = None,
-    tol: float = 1e-6,
+    hubs: int = 64,
     workers: int = 1,
     validation: Split | None = None,
     progress: Progress | None = None,
 ) -> Choice:
     """Sweep ``grid`` on the validation split of ``split`` and return the best configuration.
 
-    ``validation`` may pass the split from :func:`validation_split` (made once for baselines and
-    sweeps alike); ``progress(description)`` is called after every solve. Only ``split.train`` is read.
+    ``evidence`` is the store's (:class:`rankrec.build.Evidence`; its views are replaced by each training
+    part). ``validation`` may pass the split from :func:`validation_split` (made once for baselines and
+    sweeps alike); ``progress(description)`` is called after every build. Only ``split.train`` is read.
     """
     k = check_count("k", k)
     grid = Grid() if grid is None else grid
@@ -162,51 +168,48 @@ def choose_configuration(
     metric = f"ndcg@{k}"
     tried: list[tuple[float, Configuration]] = []
 
-    def solve(configuration: Configuration, lifts) -> dict[float, float]:
-        found = rankrec_lists(
-            validation, adjacency, k, configuration, lifts=lifts, gap=gap, tol=tol, workers=workers
-        )
-        scores = {lift: mean_metric(lists, validation, k) for lift, lists in found.items()}
-        for lift, score in scores.items():
-            tried.append((score, replace(configuration, lift=lift)))
+    def score(configuration: Configuration) -> float:
+        lists = rankrec_lists(validation, evidence, k, configuration, hubs=hubs, workers=workers)
+        found = mean_metric(lists, validation, k)
+        tried.append((found, configuration))
         if progress is not None:
-            progress(f"sweep {configuration.as_dict()}")
-        return scores
+            shown = ", ".join(f"{name} {getattr(configuration, name):g}" for name in GRID_NAMES)
+            progress(f"sweep {shown}")
+        return found
 
     first = np.full((len(grid.damping), len(grid.lift)), np.nan)
     for row, damping in enumerate(grid.damping):
-        scores = solve(replace(start, damping=damping), grid.lift)
-        first[row] = [scores[lift] for lift in grid.lift]
-    damping_sweep = Sweep(
-        "damping",
-        "lift",
-        grid.damping,
-        grid.lift,
-        first,
-        MappingProxyType({"half_life_days": start.half_life_days, "blend": start.blend}),
-    )
+        for column, lift in enumerate(grid.lift):
+            first[row, column] = score(start.with_values(damping=damping, lift=lift))
+    fixed = {"half_life_days": start.half_life_days, "navigation_weight": start.navigation_weight}
+    damping_sweep = Sweep("damping", "lift", grid.damping, grid.lift, first, MappingProxyType(fixed))
     damping, lift, _ = damping_sweep.best()
     notes = []
     half_lives = grid.half_life_days
     if split.task == "sessions":
         half_lives = (start.half_life_days,)
         notes.append("half-life is not swept: the session task restarts from the session's own pages")
-    second = np.full((len(half_lives), len(grid.blend)), np.nan)
+    second = np.full((len(half_lives), len(grid.navigation_weight)), np.nan)
     for row, half_life in enumerate(half_lives):
-        for column, blend in enumerate(grid.blend):
-            configuration = Configuration(damping=damping, half_life_days=half_life, blend=blend, lift=lift)
-            second[row, column] = solve(configuration, (lift,))[lift]
+        for column, weight in enumerate(grid.navigation_weight):
+            if half_life == start.half_life_days and weight == start.navigation_weight:
+                second[row, column] = first[grid.damping.index(damping), grid.lift.index(lift)]
+                continue  # built in the first sweep already
+            configuration = start.with_values(
+                damping=damping, lift=lift, half_life_days=half_life, navigation_weight=weight
+            )
+            second[row, column] = score(configuration)
     history_sweep = Sweep(
         "half_life_days",
-        "blend",
+        "navigation_weight",
         half_lives,
-        grid.blend,
+        grid.navigation_weight,
         second,
         MappingProxyType({"damping": damping, "lift": lift}),
     )
-    finite = [(score, position) for position, (score, _) in enumerate(tried) if np.isfinite(score)]
+    finite = [(value, position) for position, (value, _) in enumerate(tried) if np.isfinite(value)]
     if not finite:
         raise NothingToEvaluate("validation", split.name, f"no configuration has a defined {metric}")
     best = max(finite, key=lambda pair: (pair[0], -pair[1]))[1]
-    score, chosen = tried[best]
-    return Choice(chosen, metric, float(score), (damping_sweep, history_sweep), validation, tuple(notes))
+    value, chosen = tried[best]
+    return Choice(chosen, metric, float(value), (damping_sweep, history_sweep), validation, tuple(notes))

@@ -6,7 +6,8 @@
 """
 
 from .audience import Reader, Team, reader_from_store, team_from_store
-from .lists import Item, Recommendations, changes_since, landing, read_previous, recommend, related
+from .changes import changes_since, read_previous
+from .lists import Item, Recommendations, landing, recommend, related
 
 __all__ = [
     "Item",

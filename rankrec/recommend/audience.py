@@ -11,21 +11,20 @@ import difflib
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.sparse as sp
 
-from .._validation import check_positive
 from ..errors import GroupTooSmall, UnknownUser
 from ..graph import dense_numbers
 from ..index import Index
-from ..profiles import SECONDS_PER_DAY, profile_matrix, team_members, team_restart
+from ..profiles import SECONDS_PER_DAY, ViewLog, reader_profiles, team_members, team_restart
 from ..store import Store
-
-RECENT_DAYS = 30.0  # "read recently": the last 30 days (common practice for a monthly window)
 
 
 @dataclass(frozen=True, eq=False)
 class Reader:
     """A reader: ``groups`` they belong to, ``restart`` their profile over the index's pages (sums to
-    one, or all zero without history), ``recent`` the pages they read in the last ``RECENT_DAYS``."""
+    one, or all zero without history), ``recent`` the pages not to list again (read in the last
+    ``recent_days`` of the index's configuration, or a split's excluded pages)."""
 
     user: str
     groups: frozenset[str]
@@ -50,56 +49,28 @@ class Team:
 
 
 def _now(store: Store, now: float | None) -> float | None:
-    return store.scalar("SELECT max(timestamp) FROM views") if now is None else now
+    return store.latest_view_time() if now is None else now
 
 
 def _user_row(store: Store, user: str) -> int:
-    row = store.connection.execute("SELECT id FROM users WHERE user = ?", (user,)).fetchone()
+    row = store.user_row(user)
     if row is None:
-        known = [found[0] for found in store.connection.execute("SELECT user FROM users")]
+        known = store.users()[1]
         raise UnknownUser(user, difflib.get_close_matches(user, known, n=3, cutoff=0.5))
-    return int(row[0])
+    return row
 
 
-def _views_of(store: Store, user_rows: list[int]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    users, pages, times = [], [], []
-    for first in range(0, len(user_rows), 500):
-        chunk = user_rows[first : first + 500]
-        rows = store.connection.execute(
-            f"SELECT user_id, page_id, timestamp FROM views WHERE user_id IN ({','.join('?' * len(chunk))})",
-            chunk,
-        ).fetchall()
-        if rows:
-            table = np.array(rows, dtype=np.float64)
-            users.append(table[:, 0].astype(np.int64))
-            pages.append(table[:, 1].astype(np.int64))
-            times.append(table[:, 2])
-    if not users:
-        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), np.zeros(0)
-    return np.concatenate(users), np.concatenate(pages), np.concatenate(times)
-
-
-def _groups_of(store: Store, user_rows: list[int]) -> dict[int, frozenset[str]]:
-    found: dict[int, set[str]] = {row: set() for row in user_rows}
-    for first in range(0, len(user_rows), 500):
-        chunk = user_rows[first : first + 500]
-        for user_id, name in store.connection.execute(
-            "SELECT user_id, name FROM memberships WHERE kind = 'group' "
-            f"AND user_id IN ({','.join('?' * len(chunk))})",
-            chunk,
-        ):
-            found[user_id].add(name)
-    return {row: frozenset(names) for row, names in found.items()}
-
-
-def _profiles(store, index, user_rows, now, options):
-    users, pages, times = _views_of(store, user_rows)
-    local = dense_numbers(np.array(sorted(user_rows), dtype=np.int64), users)  # rows follow sorted ids
+def _profiles(store, index, user_rows, now):
+    """Profiles of ``user_rows`` (rows in that order; empty for a user without views) by the one profile
+    function (:func:`rankrec.profiles.reader_profiles`, the index's configuration), and their views."""
+    users, pages, times = store.views_of_users(user_rows)
     dense = dense_numbers(np.asarray(index.row_ids), pages)
     if now is None or times.size == 0:
         return np.zeros((len(user_rows), 0)), dense, times
-    matrix = profile_matrix(local, dense, times, index.size, now=now, user_count=len(user_rows), **options)
-    return matrix, dense, times
+    profiles, codes = reader_profiles(ViewLog(users, dense, times), index.size, index.configuration, now=now)
+    order = dense_numbers(codes, np.asarray(user_rows, dtype=np.int64))
+    rows = sp.vstack([profiles, sp.csr_matrix((1, index.size))]).tocsr()  # the last row: empty
+    return rows[np.where(order >= 0, order, profiles.shape[0])], dense, times
 
 
 def reader_from_store(
@@ -107,22 +78,23 @@ def reader_from_store(
     index: Index,
     user: str,
     *,
-    recent_days: float = RECENT_DAYS,
     now: float | None = None,
-    **profile_options,
 ) -> Reader:
-    """The reader ``user`` (UnknownUser with close ids if the store has no such user)."""
-    check_positive("recent_days", recent_days)
-    row = _user_row(store, user)
-    now = _now(store, now)
-    matrix, dense, times = _profiles(store, index, [row], now, profile_options)
+    """The reader ``user`` (UnknownUser with close ids if the store has no such user). Their profile
+    and "read recently" follow the index's configuration (``half_life_days``, ``repeat``, ``recent_days``)."""
+    recent_days = index.configuration.recent_days
+    with store.reading():  # the user, their views and groups from one snapshot
+        row = _user_row(store, user)
+        now = _now(store, now)
+        matrix, dense, times = _profiles(store, index, [row], now)
+        groups = store.groups_of_users([row])[row]
     restart = np.zeros(index.size)
     recent = np.zeros(0, dtype=np.int64)
     if matrix.shape[1]:
         restart = matrix[0].toarray().ravel()
         fresh = (dense >= 0) & (times <= now) & (now - times <= recent_days * SECONDS_PER_DAY)
         recent = np.unique(dense[fresh])
-    return Reader(user=user, groups=_groups_of(store, [row])[row], restart=restart, recent=recent)
+    return Reader(user=user, groups=groups, restart=restart, recent=recent)
 
 
 def team_from_store(
@@ -130,23 +102,26 @@ def team_from_store(
     index: Index,
     team: str,
     *,
-    min_readers: int = 5,
+    min_readers: int | None = None,
     now: float | None = None,
-    **profile_options,
 ) -> Team:
     """The team ``team``: UnknownTeam (close names) if none; GroupTooSmall under ``min_readers``
-    distinct active readers."""
-    members = team_members(store, team)
-    rows = [_user_row(store, member) for member in members]
-    now = _now(store, now)
-    matrix, _, _ = _profiles(store, index, rows, now, profile_options)
+    distinct active readers (by default the index configuration's ``team_min_readers``)."""
+    if min_readers is None:
+        min_readers = index.configuration.team_min_readers
+    with store.reading():  # the members, their views and groups from one snapshot
+        members = team_members(store, team)
+        rows = [_user_row(store, member) for member in members]
+        now = _now(store, now)
+        matrix, _, _ = _profiles(store, index, rows, now)
+        member_groups = store.groups_of_users(rows)
     if not matrix.shape[1]:
         raise GroupTooSmall(team, 0, min_readers)
     restart = team_restart(matrix, range(len(rows)), min_readers=min_readers, team=team)
     readers = int(np.count_nonzero(np.diff(matrix.indptr)))
     read_by = np.bincount(matrix.indices[matrix.data > 0], minlength=index.size).astype(np.int32)
     visible = np.ones(index.size, dtype=bool)
-    for groups in set(_groups_of(store, rows).values()):
+    for groups in set(member_groups.values()):
         visible &= index.visible(groups)
     return Team(
         name=team, members=len(rows), readers=readers, restart=restart, visible=visible, read_by=read_by

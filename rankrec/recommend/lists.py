@@ -13,20 +13,19 @@ Scores are personalised PageRank values, ranked after an optional lift ``score /
 
 from __future__ import annotations
 
-import json
 import time
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
 from .._validation import check_count, check_fraction, check_real
-from ..errors import InputError
-from ..explain import FROM_RESTART, NO_LINK, VIA_PAGE, contributions, restart_scale
+from ..configuration import check_lift
 from ..index import Index
 from ..pagerank import push
-from ..ranking import top_k
 from .audience import Reader, Team
+from .candidates import page_candidates
+from .explain import FROM_RESTART, NO_LINK, VIA_PAGE, contributions, restart_scale
+from .select import cap_per_space, choose_pages, lifted
 
 READ_BY_MINIMUM = 3  # "read by N of your team" only from 3 readers up (small counts are not shown)
 
@@ -72,187 +71,27 @@ class Recommendations:
 
 # -- choosing ---------------------------------------------------------------------------------------
 def _lift(index: Index, lift: float | None) -> float:
-    if lift is None:
-        return float(index.manifest.lift)
-    if check_real("lift", lift) < 0:
-        raise ValueError(f"lift must not be negative; got {lift!r}")
-    return float(lift)
-
-
-def _lifted(values: np.ndarray, global_values: np.ndarray, lift: float) -> np.ndarray:
-    """The ranking score ``value / global^lift`` (plain values when ``lift`` is 0)."""
-    return values / np.power(global_values, lift) if lift else np.asarray(values, dtype=float)
+    return float(index.configuration.lift) if lift is None else check_lift(lift)
 
 
 def _ranked(index: Index, pages: np.ndarray, values: np.ndarray, lift: float) -> np.ndarray:
-    return _lifted(values, np.asarray(index.global_vector)[pages], lift)
-
-
-_SELECT_CELLS = 1 << 22  # pages x columns handled at once when filling short lists
-_FILL_FIRST = 256  # pages of the global order looked at first when filling (x4 until enough)
-
-
-def select_pages(vectors, global_vector, eligible, k: int, *, lift: float, order=None) -> np.ndarray:
-    """The best ``k`` eligible pages of each column of ``vectors``: the ranking every list uses.
-
-    Pages with a positive score come first, ranked by ``score / global^lift`` (``lift`` 0: by
-    score); the places left go to the other eligible pages by global PageRank. Ties go to the
-    lower page number. Serving calls it for one vector; offline evaluation for blocks of them.
-
-    Parameters
-    ----------
-    vectors : array of shape (n,) or (n, q)
-        PageRank scores, one column per list.
-    global_vector : array of shape (n,)
-        Global PageRank (positive).
-    eligible : bool array of shape (n,) or like ``vectors``
-        Pages the list may hold.
-    k : int
-        Length of each list.
-    lift : float
-        Lift exponent, >= 0.
-    order : int array of shape (n,), optional
-        Every page by descending ``global_vector``, ties to the lower page
-        (``np.lexsort((np.arange(n), -global_vector))``, as :attr:`rankrec.index.Index.global_order`
-        keeps it); computed when not given.
-
-    Returns
-    -------
-    int64 array of shape (k,) or (q, k): page numbers, best first, ``-1`` padded at the tail
-    when fewer than ``k`` pages are eligible.
-
-    >>> select_pages(np.array([0.5, 0.0, 0.2, 0.3]), np.array([0.5, 0.1, 0.1, 0.3]),
-    ...              np.array([True, True, True, False]), 3, lift=1.0).tolist()
-    [2, 0, 1]
-    """
-    k = check_count("k", k)
-    if check_real("lift", lift) < 0:
-        raise ValueError(f"lift must not be negative; got {lift!r}")
-    scores = np.asarray(vectors, dtype=np.float64)
-    single = scores.ndim == 1
-    scores = scores[:, None] if single else scores
-    if scores.ndim != 2:
-        raise ValueError(f"vectors must have shape (n,) or (n, q); got {np.shape(vectors)!r}")
-    n, columns = scores.shape
-    overall = np.asarray(global_vector, dtype=np.float64)
-    allowed = np.asarray(eligible, dtype=bool)
-    allowed = allowed[:, None] if allowed.ndim == 1 else allowed
-    if overall.shape != (n,) or allowed.shape[0] != n or allowed.shape[1] not in (1, columns):
-        raise ValueError(
-            f"global_vector {overall.shape!r} and eligible {np.shape(eligible)!r} must match vectors "
-            f"{np.shape(vectors)!r}"
-        )
-    if order is not None and np.shape(order) != (n,):
-        raise ValueError(f"order must have shape ({n},); got {np.shape(order)!r}")
-    positive = allowed & (scores > 0)
-    lists = _scored(scores, overall, positive, k, lift)
-    found = (lists >= 0).sum(axis=1)
-    short = np.flatnonzero(found < k)
-    if short.size:
-        order = np.lexsort((np.arange(n), -overall)) if order is None else np.asarray(order)
-        step = max(1, _SELECT_CELLS // max(n, 1))
-        for start in range(0, short.size, step):
-            _fill(lists, short[start : start + step], found, allowed, positive, order, k)
-    return lists[0] if single else lists
-
-
-def _scored(scores, overall, positive, k: int, lift: float) -> np.ndarray:
-    """(columns, k): the best positive-scored pages of each column by lifted score (-1 padded)."""
-    if scores.shape[1] > 1:
-        return _top_of_columns(np.where(positive, _lifted(scores, overall[:, None], lift), -np.inf), k)
-    # one list: rank only the scored pages (often few); rows ascend, so ties still go to the lower page
-    rows = np.flatnonzero(positive[:, 0])
-    best = _top_of_columns(_lifted(scores[rows, 0], overall[rows], lift)[:, None], k)
-    return np.where(best >= 0, rows[np.maximum(best, 0)] if rows.size else -1, -1)
-
-
-def _fill(lists, chunk, found, allowed, positive, order, k: int) -> None:
-    """Give the short lists ``chunk`` their remaining places: eligible unscored pages in ``order``.
-
-    Only a head of the order is looked at (the first pages there are nearly always eligible), and
-    a longer head only while some list still lacks pages; the first free pages of the head are the
-    first free pages of the whole order, so the lists equal those of a pass over all pages.
-    """
-    n = order.size
-    usable = allowed if allowed.shape[1] == 1 else allowed[:, chunk]
-    unscored = ~positive[:, chunk]
-    need = (k - found[chunk])[None, :]
-    head = min(n, _FILL_FIRST + 4 * k)
-    while True:
-        pages = order[:head]
-        free = usable[pages] & unscored[pages]
-        rank = np.cumsum(free, axis=0) - 1
-        if head == n or bool((rank[-1] + 1 >= need).all()):
-            break
-        head = min(n, head * 4)
-    rows, cols = np.nonzero(free & (rank < need))
-    lists[chunk[cols], found[chunk[cols]] + rank[rows, cols]] = pages[rows]
-
-
-def _top_of_columns(ranked: np.ndarray, k: int) -> np.ndarray:
-    """(columns, k): each column's ``k`` largest finite entries, best first, ties to the lower row."""
-    n, columns = ranked.shape
-    width = min(k, n)
-    lists = np.full((columns, k), -1, dtype=np.int64)
-    if width == 0 or columns == 0:
-        return lists
-    threshold = -np.partition(-ranked, width - 1, axis=0)[width - 1]
-    above = ranked > threshold
-    level = ranked == threshold
-    wanted = width - above.sum(axis=0)
-    chosen = above | (level & (np.cumsum(level, axis=0) <= wanted))
-    cols, rows = np.nonzero(chosen.T)  # grouped by column, width entries each
-    rows = rows.reshape(columns, width)
-    values = np.take_along_axis(ranked.T, rows, axis=1)
-    order = np.lexsort((rows, -values), axis=-1)
-    rows, values = np.take_along_axis(rows, order, 1), np.take_along_axis(values, order, 1)
-    lists[:, :width] = np.where(np.isfinite(values), rows, -1)
-    return lists
-
-
-def _per_space(index: Index, ordered: np.ndarray, k: int, per_space: int | None, taken: dict) -> list[int]:
-    chosen = []
-    for page in ordered.tolist():
-        if len(chosen) == k:
-            break
-        if per_space is not None:
-            code = int(index.space[page])
-            if taken.get(code, 0) >= per_space:
-                continue
-            taken[code] = taken.get(code, 0) + 1
-        chosen.append(page)
-    return chosen
+    return lifted(values, np.asarray(index.global_vector)[pages], lift)
 
 
 def _select(
     index: Index, vector: np.ndarray, eligible: np.ndarray, k: int, lift: float, per_space: int | None
 ) -> np.ndarray:
     """Best ``k`` eligible pages: positive scores first, then eligible pages by global PageRank."""
-    if per_space is None:
-        chosen = select_pages(vector, index.global_vector, eligible, k, lift=lift, order=index.global_order)
-        return chosen[chosen >= 0]
-    positive = np.flatnonzero(eligible & (vector > 0))
-    scores = _ranked(index, positive, vector[positive], lift)
-    taken: dict = {}
-    want = k
-    while True:
-        ordered = positive[top_k(scores, min(want, positive.size))]
-        chosen = _per_space(index, ordered, k, per_space, dict(taken))
-        if len(chosen) == k or want >= positive.size:
-            break
-        want *= 4
-    _per_space(index, np.array(chosen, dtype=np.int64), k, per_space, taken)
-    if len(chosen) < k:
-        rest = np.flatnonzero(eligible & ~(vector > 0))
-        want = k
-        while True:
-            ordered = rest[top_k(np.asarray(index.global_vector)[rest], min(want, rest.size))]
-            extra = _per_space(index, ordered, k - len(chosen), per_space, dict(taken))
-            if len(extra) == k - len(chosen) or want >= rest.size:
-                break
-            want *= 4
-        chosen += extra
-    return np.array(chosen, dtype=np.int64)
+    return choose_pages(
+        vector,
+        index.global_vector,
+        eligible,
+        k,
+        lift=lift,
+        order=index.global_order,
+        per_space=per_space,
+        space=index.space,
+    )
 
 
 def _eligible(
@@ -325,7 +164,7 @@ def _items(
 
 
 def _explain_full(index: Index, vector: np.ndarray, chosen: np.ndarray, restart: np.ndarray | None):
-    damping = index.manifest.damping
+    damping = index.configuration.damping
     restart_part = None
     if restart is not None:
         restart_part = restart_scale(vector, np.asarray(index.transition.dangling), damping) * restart[chosen]
@@ -351,7 +190,7 @@ def related(
     k: int = 10,
     exclude_linked: bool = False,
     exclude_read: bool = False,
-    blend: float = 0.0,
+    personal_share: float = 0.0,
     lift: float | None = None,
     per_space: int | None = None,
 ) -> Recommendations:
@@ -359,12 +198,12 @@ def related(
 
     ``page`` is a page id, or its number in the index (:meth:`rankrec.index.Index.page_number`)
     when the caller has looked it up already; the list's subject is the page id either way.
-    ``blend`` in [0, 1] mixes the reader's personal vector in: ``(1 − w)·x_page + w·x_reader``
+    ``personal_share`` ``w`` in [0, 1] mixes the reader's personal vector in: ``(1 − w)·x_page + w·x_reader``
     ("related, for you"). ``exclude_read`` drops pages the reader read recently.
     """
     started = time.perf_counter()
     check_count("k", k)
-    check_fraction("blend", blend)
+    check_fraction("personal_share", personal_share)
     if per_space is not None:
         check_count("per_space", per_space)
     lift = _lift(index, lift)
@@ -374,11 +213,13 @@ def related(
     read = reader.recent if (exclude_read and reader is not None) else None
     eligible = _eligible(index, visible, seed=seed, linked=exclude_linked, read=read)
     audience = _Audience(visible=visible, read=None if reader is None else reader.restart > 0, seed=seed)
-    if blend == 0 and lift == index.manifest.lift:
-        found = index.seed_candidates(seed)
-        keep = eligible[found["pages"]]
-        ordered = np.flatnonzero(keep)
-        positions = _per_space_positions(index, found["pages"], ordered, k, per_space)
+    if personal_share == 0 and lift == index.configuration.lift:
+        found = page_candidates(index, seed)
+        ordered = np.flatnonzero(eligible[found["pages"]])
+        if per_space is not None:
+            codes = np.asarray(index.space)[found["pages"][ordered]]
+            ordered = ordered[cap_per_space(codes, k, per_space, {})]
+        positions = ordered[:k]
         count = int(eligible.sum())
         if positions.size == k or positions.size == count:
             chosen = found["pages"][positions].astype(np.int64)
@@ -387,10 +228,10 @@ def related(
             return Recommendations("related", page, items, None, count, time.perf_counter() - started)
     vector = index.seed_vector(seed)
     restart = None
-    if blend > 0 and reader is not None and reader.restart.sum() > 0:
+    if personal_share > 0 and reader is not None and reader.restart.sum() > 0:
         personal = _personal_vector(index, reader.restart)
-        vector = (1.0 - blend) * vector + blend * personal.vector
-        restart = blend * reader.restart
+        vector = (1.0 - personal_share) * vector + personal_share * personal.vector
+        restart = personal_share * reader.restart
         restart[seed] = 0.0
     chosen = _select(index, vector, eligible, k, lift, per_space)
     explained = _explain_full(index, vector, chosen, restart)
@@ -421,34 +262,17 @@ class _Stored:
         object.__setattr__(self, "kind", found["kind"][positions])
 
 
-def _per_space_positions(
-    index: Index, pages: np.ndarray, ordered: np.ndarray, k: int, per_space: int | None
-) -> np.ndarray:
-    if per_space is None:
-        return ordered[:k]
-    taken: dict = {}
-    keep = []
-    for position in ordered.tolist():
-        code = int(index.space[pages[position]])
-        if taken.get(code, 0) < per_space:
-            taken[code] = taken.get(code, 0) + 1
-            keep.append(position)
-            if len(keep) == k:
-                break
-    return np.array(keep, dtype=np.int64)
-
-
 @dataclass(frozen=True)
 class _Personal:
     vector: np.ndarray
     error_bound: float
 
 
-PERSONAL_EPSILON = 1e-6  # push threshold of personal and team vectors: about 50 ms at 1M pages
-
-
-def _personal_vector(index: Index, restart: np.ndarray, epsilon: float = PERSONAL_EPSILON) -> _Personal:
-    """Personalised PageRank of a restart distribution: the index's basis plus push for the rest."""
+def _personal_vector(index: Index, restart: np.ndarray, epsilon: float | None = None) -> _Personal:
+    """Personalised PageRank of a restart distribution: the index's basis plus push for the rest
+    (residual threshold ``epsilon``, by default the configuration's ``vector_epsilon``)."""
+    if epsilon is None:
+        epsilon = index.configuration.vector_epsilon
     check_real("epsilon", epsilon)
     if not 0 < epsilon < 1:
         raise ValueError(f"epsilon must lie in (0, 1); got {epsilon!r}")
@@ -459,7 +283,7 @@ def _personal_vector(index: Index, restart: np.ndarray, epsilon: float = PERSONA
     result = push(
         index.transition,
         dict(zip(pages.tolist(), restart[pages].tolist(), strict=True)),
-        damping=index.manifest.damping,
+        damping=index.configuration.damping,
         epsilon=epsilon,
     )
     vector = np.zeros(index.size)
@@ -477,7 +301,7 @@ def recommend(
     exclude_read: bool = True,
     lift: float | None = None,
     per_space: int | None = None,
-    epsilon: float = PERSONAL_EPSILON,
+    epsilon: float | None = None,
 ) -> Recommendations:
     """A reader's personal list from their reading profile (basis combination plus push).
 
@@ -520,7 +344,7 @@ def landing(
     k: int = 20,
     lift: float | None = None,
     per_space: int | None = None,
-    epsilon: float = PERSONAL_EPSILON,
+    epsilon: float | None = None,
 ) -> Recommendations:
     """A team's landing ordering: only pages every member may see; no output names a member.
 
@@ -548,28 +372,3 @@ def landing(
     return Recommendations(
         "landing", team.name, items, personal.error_bound, int(eligible.sum()), time.perf_counter() - started
     )
-
-
-# -- comparing with an earlier export ---------------------------------------------------------------
-def read_previous(path: str | Path) -> tuple[str, ...]:
-    """Pages of an earlier JSON export (a list of objects with ``page``; rows marked "left" skipped)."""
-    try:
-        rows = json.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, ValueError) as error:
-        raise InputError(str(path), None, f"not a readable JSON export: {error}") from None
-    if not isinstance(rows, list) or not all(isinstance(row, dict) and "page" in row for row in rows):
-        raise InputError(str(path), None, "expected a JSON list of objects with a 'page' field")
-    return tuple(str(row["page"]) for row in rows if row.get("change") != "left")
-
-
-def changes_since(result: Recommendations, previous) -> tuple[frozenset[str], tuple[str, ...]]:
-    """Pages that entered the list (not in ``previous``) and pages that left it (in previous order).
-
-    >>> items = tuple(Item(p, p, None, 1.0, 1.0, "") for p in ("a", "b"))
-    >>> entered, left = changes_since(Recommendations("landing", "t", items, None, 2, 0.0), ["b", "c"])
-    >>> sorted(entered), left
-    (['a'], ('c',))
-    """
-    before = list(dict.fromkeys(previous))
-    now = [item.page for item in result.items]
-    return frozenset(set(now) - set(before)), tuple(page for page in before if page not in set(now))

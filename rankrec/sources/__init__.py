@@ -2,7 +2,8 @@
 
 Each reader yields :mod:`records <rankrec.sources.records>` with their provenance, or
 :class:`~rankrec.errors.InputError` values for the records it skips; none of them touches the
-store or the graph.
+store or the graph. :func:`check_view` checks one view event as the views reader does (the
+service takes views in through it); :func:`parse_timestamp` reads a time as every reader does.
 """
 
 from __future__ import annotations
@@ -13,8 +14,22 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import InputError
+from ._fields import FieldError, parse_timestamp
 from ._text import iter_lines
-from .records import Record
+from .records import Origin, Record, ViewRecord
+from .views import check_view
+
+__all__ = [
+    "FORMATS",
+    "FieldError",
+    "Origin",
+    "Record",
+    "ViewRecord",
+    "check_view",
+    "detect_format",
+    "parse_timestamp",
+    "read_source",
+]
 
 FORMATS = ("markdown", "html", "edges", "pages", "views", "access-log", "teams", "groups")
 

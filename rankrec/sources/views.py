@@ -1,4 +1,7 @@
-"""Reader for view events: CSV with header ``user,page,timestamp[,dwell]``, or JSON Lines."""
+"""Reader for view events: CSV with header ``user,page,timestamp[,dwell]``, or JSON Lines.
+
+:func:`check_view` is the check of one view event, shared with the service's ``POST /v1/views``.
+"""
 
 from __future__ import annotations
 
@@ -30,7 +33,8 @@ def read_view_events(
     (other columns ignored), or JSON Lines with those keys (chosen as for page exports).
     ``timestamp`` is ISO 8601 or Unix seconds (see :func:`parse_timestamp`); one later than
     ``now`` (Unix seconds, default: the time reading starts) plus 300 s is an InputError.
-    ``dwell`` is seconds >= 0, or empty/absent/null for unknown.
+    ``dwell`` is seconds >= 0, or empty/absent/null for unknown. Each record is checked by
+    :func:`check_view`.
 
     Examples
     --------
@@ -46,6 +50,42 @@ def read_view_events(
     return _read(path, encoding, check_now(now))
 
 
+def check_view(
+    user: object,
+    page: object,
+    timestamp: object,
+    dwell: object = None,
+    *,
+    origin: Origin,
+    now: float | None = None,
+) -> ViewRecord:
+    """One view event, checked as the views reader checks each record; InputError at ``origin`` if bad.
+
+    ``user`` and ``page`` are non-empty ids (JSON integers become strings), ``timestamp`` is ISO 8601
+    or Unix seconds, at most 300 s after ``now`` (Unix seconds, default: the current time), and
+    ``dwell`` is seconds >= 0 or None for unknown.
+
+    Examples
+    --------
+    >>> check_view("ines", "ops/db", "2026-05-03T09:15:00Z", origin=Origin("api", 0), now=1.8e9).timestamp
+    1777799700.0
+    >>> check_view("ines", " ", 0, origin=Origin("views.csv", 7))
+    Traceback (most recent call last):
+    ...
+    rankrec.errors.InputError: views.csv:7: empty page id
+    """
+    try:
+        checked_user = parse_id(user, "user id")
+        checked_page = parse_id(page, "page id")
+        if timestamp is None:
+            raise FieldError("missing timestamp")
+        seconds = parse_timestamp(timestamp, now)
+        checked_dwell = parse_dwell(dwell)
+    except FieldError as error:
+        raise InputError(origin.file, origin.line, str(error)) from None
+    return ViewRecord(checked_user, checked_page, seconds, origin, checked_dwell)
+
+
 def _read(path: str | Path, encoding: str, now: float | None) -> Iterator[ViewRecord | InputError]:
     name = str(path)
     if now is None:
@@ -56,13 +96,15 @@ def _read(path: str | Path, encoding: str, now: float | None) -> Iterator[ViewRe
             continue
         number, row = item
         try:
-            user = parse_id(row.get("user"), "user id")
-            page = parse_id(row.get("page"), "page id")
-            if row.get("timestamp") is None:
-                raise FieldError("missing timestamp")
-            timestamp = parse_timestamp(row["timestamp"], now)
-            dwell = parse_dwell(row.get("dwell"))
-        except FieldError as error:
-            yield InputError(name, number, str(error))
+            view = check_view(
+                row.get("user"),
+                row.get("page"),
+                row.get("timestamp"),
+                row.get("dwell"),
+                origin=Origin(name, number),
+                now=now,
+            )
+        except InputError as error:
+            yield error
             continue
-        yield ViewRecord(user, page, timestamp, Origin(name, number), dwell)
+        yield view

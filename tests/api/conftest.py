@@ -11,8 +11,8 @@ from starlette.exceptions import StarletteDeprecationWarning
 
 from api.app import create_app
 from api.settings import ServiceSettings
+from rankrec.build import build_index
 from rankrec.demo import import_demo
-from rankrec.index import build_index
 from rankrec.sources.records import Origin, PageRecord
 from rankrec.store import Store
 from rankrec.tokens import add_token

@@ -15,7 +15,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from api.app import create_app
-from rankrec.index import build_index
+from rankrec.build import build_index
 from rankrec.store import Store
 from rankrec.tokens import add_token
 from tests.api.conftest import TestClient, settings_for

@@ -25,8 +25,8 @@ from schemathesis.specs.openapi.checks import (
 
 from api.app import create_app
 from api.settings import ServiceSettings
+from rankrec.build import build_index
 from rankrec.demo import import_demo
-from rankrec.index import build_index
 from rankrec.store import Store
 from rankrec.tokens import add_token
 

@@ -26,7 +26,7 @@ import numpy as np
 
 _BUILD = """
 import json, resource, sys, time
-from rankrec.index import build_index
+from rankrec.build import build_index
 from rankrec.store import Store
 wiki, target, settings = sys.argv[1], sys.argv[2], json.loads(sys.argv[3])
 started = time.perf_counter()

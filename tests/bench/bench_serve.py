@@ -225,7 +225,7 @@ def _in_process(index_folder: Path, pages: list[str]) -> dict:
 
 def _build(wiki: Path, target: Path) -> float:
     script = (
-        "import sys; from rankrec.index import build_index; from rankrec.store import Store\n"
+        "import sys; from rankrec.build import build_index; from rankrec.store import Store\n"
         "with Store(sys.argv[1], create=False) as store: build_index(store, sys.argv[2], workers=2)\n"
     )
     started = time.perf_counter()

@@ -21,7 +21,7 @@ from rankrec.evaluate.splits import assert_no_leakage
 from rankrec.evaluate.sweeps import Grid
 from rankrec.store import Store
 
-SMALL = Grid(damping=(0.7, 0.85), lift=(0.0, 0.5), half_life_days=(30.0,), blend=(0.0, 0.3))
+SMALL = Grid(damping=(0.7, 0.85), lift=(0.0, 0.5), half_life_days=(30.0,), navigation_weight=(0.0, 0.3))
 BASELINES = {"random", "most-read", "pagerank", "out-links", "co-visitation", "team-most-read"}
 
 
@@ -89,7 +89,7 @@ def test_report_md_and_plots_are_readable_without_the_json(demo):
         "metrics_by_k.png",
         "ndcg_intervals.png",
         "sweep_damping_lift.png",
-        "sweep_half_life_days_blend.png",
+        "sweep_half_life_days_navigation_weight.png",
     ]
     for name in plots:
         assert f"]({name})" in text
@@ -126,7 +126,10 @@ def test_every_method_and_rankrec_see_the_same_splits(demo, monkeypatch):
 
     monkeypatch.setattr(sweeps_module, "rankrec_lists", recording_lists)
     run_evaluation(
-        data, split, grid=Grid(damping=(0.85,), lift=(0.5,), half_life_days=(30.0,), blend=(0.3,)), samples=50
+        data,
+        split,
+        grid=Grid(damping=(0.85,), lift=(0.5,), half_life_days=(30.0,), navigation_weight=(0.3,)),
+        samples=50,
     )
     assert set(seen) == BASELINES | {"rankrec"}
     validation = sweep_splits[0]
@@ -156,7 +159,7 @@ def test_cli_writes_the_report_and_prints_a_summary(demo, capsys):
             "0.85",
             "--grid-lift",
             "0,0.5",
-            "--grid-blend",
+            "--grid-navigation-weight",
             "0.3",
         ]
     )

@@ -5,13 +5,15 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from rankrec.build import Evidence
+from rankrec.configuration import Configuration
 from rankrec.errors import NothingToEvaluate
-from rankrec.evaluate.method import Configuration, rankrec_lists
+from rankrec.evaluate.method import rankrec_lists
 from rankrec.evaluate.splits import assert_no_leakage, last_n_split, session_split, temporal_split
 from rankrec.evaluate.sweeps import Grid, choose_configuration, mean_metric, validation_split
 from tests.evaluate.test_baselines import _random_graph, _random_views
 
-SMALL = Grid(damping=(0.6, 0.85), lift=(0.0, 1.0), half_life_days=(1.0, 30.0), blend=(0.0, 0.5))
+SMALL = Grid(damping=(0.6, 0.85), lift=(0.0, 1.0), half_life_days=(1.0, 30.0), navigation_weight=(0.0, 0.5))
 
 
 def _splits(kind: str, views, later_pages=None):
@@ -52,7 +54,7 @@ def test_the_test_period_does_not_influence_the_choice(kind):
     shuffled[later] = np.random.default_rng(9).integers(0, size, int(later.sum()))
     first, second = _splits(kind, views), _splits(kind, views, later_pages=shuffled)
     assert not np.array_equal(first.held_out.pages, second.held_out.pages)  # the test splits differ
-    adjacency = _random_graph(size, 4)
+    adjacency = Evidence.from_links(_random_graph(size, 4))
     a = choose_configuration(first, adjacency, grid=SMALL)
     b = choose_configuration(second, adjacency, grid=SMALL)
     assert a.configuration == b.configuration and a.score == b.score
@@ -63,13 +65,13 @@ def test_the_test_period_does_not_influence_the_choice(kind):
 def test_the_choice_is_the_best_cell_and_its_score_is_recomputable():
     views = _random_views(6, views=900, span=20_000.0)
     split = _splits("temporal", views)
-    adjacency = _random_graph(views[3], 6)
+    adjacency = Evidence.from_links(_random_graph(views[3], 6))
     choice = choose_configuration(split, adjacency, grid=SMALL, k=5)
     cells = np.concatenate([sweep.scores.ravel() for sweep in choice.sweeps])
     assert choice.score == pytest.approx(np.nanmax(cells))
     assert choice.sweeps[0].scores.shape == (2, 2) and choice.sweeps[1].scores.shape == (2, 2)
     # the score is what the chosen configuration earns on the validation split, computed afresh
-    lists = rankrec_lists(choice.validation, adjacency, 5, choice.configuration)[choice.configuration.lift]
+    lists = rankrec_lists(choice.validation, adjacency, 5, choice.configuration)
     assert mean_metric(lists, choice.validation, 5) == pytest.approx(choice.score)
 
 
@@ -77,7 +79,10 @@ def test_session_task_does_not_sweep_half_life():
     views = _random_views(8, views=900, span=20_000.0)
     split = _splits("sessions", views)
     choice = choose_configuration(
-        split, _random_graph(views[3], 8), grid=SMALL, start=Configuration(half_life_days=30.0)
+        split,
+        Evidence.from_links(_random_graph(views[3], 8)),
+        grid=SMALL,
+        start=Configuration(half_life_days=30.0),
     )
     assert choice.sweeps[1].rows == (30.0,) and choice.notes
 
@@ -91,5 +96,5 @@ def test_a_training_part_without_validation_queries_is_refused():
 def test_grid_refuses_empty_or_out_of_range_values():
     with pytest.raises(ValueError, match="damping"):
         Grid(damping=())
-    with pytest.raises(ValueError, match="blend"):
-        Grid(blend=(0.2, 2.0))
+    with pytest.raises(ValueError, match="navigation_weight"):
+        Grid(navigation_weight=(0.2, 2.0))

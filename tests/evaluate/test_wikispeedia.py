@@ -41,7 +41,7 @@ def test_wikispeedia_next_pages_report(tmp_path, record_property):
     assert counts["pages"] == 4604 and 119_000 < counts["links"] <= 119_882
     split = make_split(data, "sessions", gap=tool.SESSION_GAP)
     assert len(split.queries) > 1000
-    grid = Grid(damping=(0.85,), lift=(0.0, 0.5), half_life_days=(30.0,), blend=(0.0, 0.3))
+    grid = Grid(damping=(0.85,), lift=(0.0, 0.5), half_life_days=(30.0,), navigation_weight=(0.0, 0.3))
     evaluation = run_evaluation(data, split, grid=grid, samples=200, seed=0, workers=2)
     write_report(evaluation, tmp_path / "report")
     results = json.loads((tmp_path / "report" / "results.json").read_text())

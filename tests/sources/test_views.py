@@ -12,6 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from rankrec.errors import InputError
+from rankrec.sources import Origin, check_view
 from rankrec.sources.records import ViewRecord
 from rankrec.sources.views import read_view_events
 
@@ -102,6 +103,26 @@ def test_json_lines(tmp_path):
     assert [line for line, _ in errors] == [3, 4, 5]
     assert "missing timestamp" in errors[0][1] and "timestamp" in errors[1][1]
     assert "not an object" in errors[2][1]
+
+
+def test_check_view_is_the_readers_check_with_file_line_and_reason():
+    # one record checked alone: the same record, or the same reason, as the reader gives for that row
+    where = Origin("POST /v1/views", 3)
+    view = check_view(42, " ops/db ", "2026-05-03T11:15:00+02:00", 7, origin=where, now=NOW)
+    assert view == ViewRecord("42", "ops/db", calendar.timegm((2026, 5, 3, 9, 15, 0)), where, 7.0)
+    with pytest.raises(InputError) as raised:
+        check_view("ines", "ops/db", "soon", origin=where, now=NOW)
+    assert (raised.value.file, raised.value.line) == ("POST /v1/views", 3)
+    assert str(raised.value).startswith("POST /v1/views:3: timestamp 'soon' is neither ISO 8601")
+    for user, page, timestamp, dwell, reason in [
+        ("", "ops/db", 0, None, "empty user id"),
+        ("ines", 1.5, 0, None, "page id must be a string"),
+        ("ines", "ops/db", None, None, "missing timestamp"),
+        ("ines", "ops/db", NOW + 301, None, "in the future"),
+        ("ines", "ops/db", 0, -1, "negative dwell"),
+    ]:
+        with pytest.raises(InputError, match=reason):
+            check_view(user, page, timestamp, dwell, origin=where, now=NOW)
 
 
 def test_default_now_is_the_clock(tmp_path):

@@ -1,0 +1,68 @@
+"""Helpers shared by the command modules: progress bars, pseudonymised user ids, opening an index."""
+
+from __future__ import annotations
+
+import argparse
+from contextlib import contextmanager
+from pathlib import Path
+
+from ._output import print_rows
+
+
+def progress_bar(description: str, unit: str, total: int | None = None):
+    from tqdm import tqdm
+
+    return tqdm(total=total, desc=description, unit=unit, unit_scale=True, leave=False, disable=None)
+
+
+@contextmanager
+def step_bars():
+    """A ``progress(step, done, total)`` callback drawing one bar per step; closes them at the end."""
+    bars: dict = {}
+
+    def progress(step: str, done: int, total: int) -> None:
+        bar = bars.get(step)
+        if bar is None:
+            bar = bars[step] = progress_bar(step, "it", total)
+        bar.update(done - bar.n)
+
+    try:
+        yield progress
+    finally:
+        for bar in bars.values():
+            bar.close()
+
+
+def pseudonym_key(args: argparse.Namespace) -> bytes | None:
+    from .privacy import load_key
+
+    return None if args.pseudonym_key is None else load_key(args.pseudonym_key)
+
+
+def stored_user(args: argparse.Namespace, user: str) -> str:
+    """The id ``user`` is stored under: its keyed pseudonym when ``--pseudonym-key`` is given."""
+    from .privacy import stored_id
+
+    return stored_id(pseudonym_key(args), user)
+
+
+def open_index(args: argparse.Namespace, *, need_store: bool):
+    """The index, and its store (checked current) from --wiki or the manifest (None: not needed, absent)."""
+    from .index import load_index
+    from .store import Store
+
+    index = load_index(args.index)
+    wiki = args.wiki or index.manifest.store
+    if args.wiki is None and not need_store and not Path(wiki).is_file():
+        return index, None
+    store = Store(wiki, create=False)
+    try:
+        index.check_current(store)
+    except BaseException:
+        store.close()
+        raise
+    return index, store
+
+
+def print_list(result, format: str) -> None:
+    print_rows(result.rows(), format)
