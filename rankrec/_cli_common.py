@@ -23,7 +23,7 @@ def step_bars():
     def progress(step: str, done: int, total: int) -> None:
         bar = bars.get(step)
         if bar is None:
-            bar = bars[step] = progress_bar(step, "it", total)
+            bar = bars[step] = progress_bar(step, "it", total or None)
         bar.update(done - bar.n)
 
     try:

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import json
 import time
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from dataclasses import asdict, dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -23,8 +23,9 @@ from . import __version__
 from ._atomic import publish_folder
 from .errors import InputError, StaleBasis
 from .graph import WikiGraph
-from .pagerank import Transition, personalized_pagerank, push
+from .pagerank import Transition, personalised_pagerank, push
 from .pagerank.power import FLOAT32_TOL_FLOOR
+from .progress import Progress, report
 
 FORMAT_VERSION = 1
 
@@ -114,7 +115,7 @@ class Basis:
         combined = self.vectors[:, used].astype(np.float64) @ mix[used]
         return combined / combined.sum()
 
-    def personalized(
+    def personalised(
         self, transition: Transition, restart: np.ndarray, *, epsilon: float = 1e-7
     ) -> PersonalVector:
         """Personalised PageRank of any restart distribution: hub part from the basis, rest pushed."""
@@ -190,12 +191,12 @@ def build_basis(
     block: int = 32,
     dtype: type | None = None,
     workers: int = 1,
-    progress: Callable[[int, int], None] | None = None,
+    progress: Progress | None = None,
 ) -> Basis:
     """Leaky vectors for each topic (restart uniform over its pages) and each hub page.
 
     Columns are solved ``block`` at a time by one block power iteration each (memory stays at
-    a few blocks of n float32 columns); ``progress(done, total)`` is called after each block.
+    a few blocks of n float32 columns); ``progress("basis", done, total)`` is called after each block.
     Arithmetic is float32 (``dtype`` None) unless ``tol`` is below float32's floor; vectors are
     stored as float32 either way.
     """
@@ -216,15 +217,14 @@ def build_basis(
         for offset, column in enumerate(columns):
             pages = np.asarray(members[column], dtype=np.int64)
             restart[pages, offset] = 1.0 / pages.size
-        result = personalized_pagerank(
+        result = personalised_pagerank(
             transition, restart, damping=damping, tol=tol, leaky=True, dtype=dtype, workers=workers
         )
         vectors[:, first : first + len(columns)] = result.vectors
         iterations = max(iterations, result.iterations)
         converged &= result.converged
         residual = max(residual, float(result.residuals.max()))
-        if progress:
-            progress(first + len(columns), total)
+        report(progress, "basis", first + len(columns), total)
     manifest = BasisManifest(
         fingerprint=graph.fingerprint,
         damping=damping,

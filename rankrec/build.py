@@ -17,7 +17,6 @@ same :func:`build_from_evidence`, so what is evaluated is what is served. The st
 from __future__ import annotations
 
 import time
-from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -32,15 +31,14 @@ from .errors import GroupTooSmall, InputError
 from .graph import WikiGraph, blend_navigation, dense_numbers, load_graph, navigation_counts
 from .graph import fingerprint as graph_fingerprint
 from .index import IndexManifest, write_tables
-from .pagerank import personalized_pagerank, prepare
+from .pagerank import personalised_pagerank, prepare
 from .profiles import SECONDS_PER_DAY, ViewLog, reader_profiles, team_restart
+from .progress import Progress, report
 from .recommend.candidates import DEFAULT_K_RELATED, write_related
 from .store import Store
 from .topics import store_topics, text_topics
 
 EXACT_LIMIT = 5_000  # method "auto": block power iteration up to this many pages, push above
-
-Progress = Callable[[str, int, int], object]
 
 
 @dataclass(frozen=True, eq=False)
@@ -215,7 +213,7 @@ def _team_vectors(evidence, transition, configuration, workers) -> tuple[list[st
     vectors = np.zeros((len(names), evidence.size), dtype=np.float32)
     for first in range(0, len(names), 32):
         block = np.column_stack(restarts[first : first + 32])
-        result = personalized_pagerank(
+        result = personalised_pagerank(
             transition,
             block,
             damping=configuration.damping,
@@ -296,12 +294,12 @@ def build_from_evidence(
     adjacency, navigation = navigation_matrix(evidence, configuration)
     transition = prepare(adjacency)
     seconds["graph"] = time.perf_counter() - started
-    _report(progress, "graph", 1, 1)
+    report(progress, "graph", 1, 1)
 
     started = time.perf_counter()
-    global_vector = personalized_pagerank(transition, damping=damping, tol=min(tol, 1e-8), workers=workers)
+    global_vector = personalised_pagerank(transition, damping=damping, tol=min(tol, 1e-8), workers=workers)
     seconds["global"] = time.perf_counter() - started
-    _report(progress, "global PageRank", 1, 1)
+    report(progress, "global PageRank", 1, 1)
 
     started = time.perf_counter()
     views = evidence.views.counts(size)
@@ -317,14 +315,14 @@ def build_from_evidence(
             damping=damping,
             tol=tol,
             workers=workers,
-            progress=None if progress is None else (lambda done, total: progress("basis", done, total)),
+            progress=progress,
         )
     seconds["basis"] = time.perf_counter() - started
 
     started = time.perf_counter()
     team_names, team_vectors = _team_vectors(evidence, transition, configuration, workers)
     seconds["teams"] = time.perf_counter() - started
-    _report(progress, "team vectors", 1, 1)
+    report(progress, "team vectors", 1, 1)
 
     if related_pages is not None:
         chosen = np.unique(np.asarray(related_pages, dtype=np.int64))
@@ -388,8 +386,3 @@ def build_index(
 ) -> Path:
     """Read ``store`` (:func:`read_evidence`) and build from it (:func:`build_from_evidence`, ``options``)."""
     return build_from_evidence(read_evidence(store, topics=topics), target, configuration, **options)
-
-
-def _report(progress: Progress | None, step: str, done: int, total: int) -> None:
-    if progress is not None:
-        progress(step, done, total)

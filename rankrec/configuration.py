@@ -23,6 +23,7 @@ from .errors import InputError
 
 SETTINGS_FORMAT = 1
 REPEAT_MODES = ("log", "cap", "none")
+SESSION_GAP_SECONDS = 1800.0  # 30 minutes of inactivity ends a session (common practice in web analytics)
 
 
 @dataclass(frozen=True)
@@ -66,7 +67,7 @@ class Configuration:
     tol: float = 1e-6
     navigation_weight: float = 0.3
     navigation_window_days: float | None = None
-    session_gap_seconds: float = 1800.0
+    session_gap_seconds: float = SESSION_GAP_SECONDS
     half_life_days: float = 30.0
     repeat: str = "log"
     lift: float = 0.5

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ._cli_common import progress_bar, pseudonym_key
+from ._cli_common import pseudonym_key, step_bars
 from ._output import print_mapping
 from .sources import FORMATS
 
@@ -75,9 +75,9 @@ def _cmd_import(args: argparse.Namespace) -> int:
     }
     sources = [(path, args.format) for path in args.sources]
     key = pseudonym_key(args)
-    with Store(args.wiki) as store, progress_bar("importing", "rec") as bar:
+    with Store(args.wiki) as store, step_bars() as bar:
         reports = import_sources(
-            store, sources, strict=args.strict, progress=bar.update, pseudonym_key=key, **options
+            store, sources, strict=args.strict, progress=bar, pseudonym_key=key, **options
         )
     shown = 0
     for report in reports:

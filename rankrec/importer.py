@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import time
 from collections import Counter
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from functools import partial
 from pathlib import Path
@@ -17,6 +17,7 @@ from typing import Any
 
 from .errors import InputError
 from .privacy import stored_id
+from .progress import Progress, report
 from .sources import detect_format, read_source
 from .sources.records import LinkRecord, MembershipRecord, PageRecord, ViewRecord
 from .store import Store
@@ -98,7 +99,7 @@ def import_sources(
     *,
     strict: bool = False,
     error_cap: int = 1000,
-    progress: Callable[[int], None] | None = None,
+    progress: Progress | None = None,
     pseudonym_key: bytes | None = None,
     **options: Any,
 ) -> list[ImportReport]:
@@ -113,7 +114,7 @@ def import_sources(
     error_cap
         How many InputErrors each report keeps (``error_count`` counts them all).
     progress
-        Called with the number of records handled since the previous call.
+        ``progress("importing", records handled so far, 0)`` (the total is not known in advance).
     pseudonym_key
         Store every user id of views and memberships as its keyed pseudonym
         (:func:`rankrec.privacy.pseudonym`), the same one the service uses with that key.
@@ -133,10 +134,17 @@ def import_sources(
     reports: list[ImportReport] = []
     ledger = _PageLedger(pseudonym_key)
     cleared: set[str] = set()
+    handled = 0
+
+    def counted(records: int) -> None:
+        nonlocal handled
+        handled += records
+        report(progress, "importing", handled, 0)
+
     with store.transaction():
         for path, format in jobs:
             reports.append(
-                _import_one(store, path, format, ledger, cleared, strict, error_cap, progress, options)
+                _import_one(store, path, format, ledger, cleared, strict, error_cap, counted, options)
             )
         if not any(report.good for report in reports):
             first = next((error for report in reports for error in report.errors), None)

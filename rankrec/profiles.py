@@ -26,6 +26,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ._validation import check_choice, check_count, check_positive, check_real
+from .configuration import REPEAT_MODES, Configuration
 from .errors import GroupTooSmall, UnknownTeam, UnknownUser
 from .graph import WikiGraph, dense_numbers, row_normalised
 from .store import Store
@@ -33,7 +34,6 @@ from .store import Store
 SECONDS_PER_DAY = 86_400.0
 DWELL_CAP_SECONDS = 600.0  # dwell beyond 10 minutes is mostly an idle tab (common practice)
 DWELL_UNIT_SECONDS = 60.0  # a one-minute read weighs as much as a view without dwell
-REPEAT_MODES = ("log", "cap", "none")
 
 
 # -- validation -------------------------------------------------------------------------------------
@@ -79,8 +79,8 @@ def profile_matrix(
     size: int,
     *,
     now: float,
-    half_life_days: float = 30.0,
-    repeat: str = "log",
+    half_life_days: float = Configuration.half_life_days,
+    repeat: str = Configuration.repeat,
     cap: int = 3,
     dwell=None,
     dwell_weighting: bool = False,
@@ -186,7 +186,9 @@ def profile_matrix(
 
 
 # -- teams ------------------------------------------------------------------------------------------
-def team_restart(profiles, members: Iterable, *, min_readers: int = 5, team: str | None = None) -> np.ndarray:
+def team_restart(
+    profiles, members: Iterable, *, min_readers: int = Configuration.team_min_readers, team: str | None = None
+) -> np.ndarray:
     """Mean of the members' normalised profile rows: a team's restart distribution.
 
     Each distinct member with a non-empty row counts once, with weight ``1 / readers``, however

@@ -11,7 +11,7 @@ import numpy as np
 from ._validation import check_count
 from .errors import InputError, UnknownTopic
 from .graph import WikiGraph, load_graph
-from .pagerank import PageRankResult, personalized_pagerank, prepare
+from .pagerank import PageRankResult, personalised_pagerank, prepare
 from .recommend.select import top_k
 from .store import Store
 from .topics import store_topics
@@ -73,7 +73,7 @@ def rank_pages(
     if graph.size == 0:
         raise InputError(store.path, None, "the wiki store holds no pages; import some first")
     restart = restart_from(store, graph, pages=pages, spaces=spaces, tags=tags)
-    result = personalized_pagerank(prepare(graph.adjacency), restart, damping=damping, tol=tol)
+    result = personalised_pagerank(prepare(graph.adjacency), restart, damping=damping, tol=tol)
     best = top_k(result.vectors, k)
     return Ranking(
         pages=tuple(graph.pages[best].tolist()),

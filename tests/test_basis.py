@@ -80,7 +80,7 @@ def test_restart_outside_the_span_is_within_the_reported_bound(built):
         restart[rng.choice(graph.size, 4, replace=False)] = rng.random(4)
         if trial % 2:
             restart[[0, 5]] += 0.5  # partly on hub pages
-        result = basis.personalized(transition, restart, epsilon=1e-6)
+        result = basis.personalised(transition, restart, epsilon=1e-6)
         error = np.abs(result.vector - _exact(graph, restart)).sum()
         assert error <= result.error_bound
         assert result.error_bound < 1e-2
@@ -91,7 +91,7 @@ def test_restart_on_hubs_only_needs_no_push(built):
     graph, transition, basis = built
     restart = np.zeros(graph.size)
     restart[[0, 7]] = [0.25, 0.75]
-    result = basis.personalized(transition, restart)
+    result = basis.personalised(transition, restart)
     assert result.pushes == 0 and result.from_basis == pytest.approx(1.0)
     assert np.abs(result.vector - _exact(graph, restart)).sum() < 1e-5
 

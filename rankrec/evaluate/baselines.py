@@ -23,7 +23,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from .._validation import check_count, check_fraction, check_positive
-from ..pagerank import personalized_pagerank, prepare
+from ..pagerank import personalised_pagerank, prepare
 from .splits import SESSION_GAP_SECONDS, Split, Views, excluded_pages, session_numbers
 
 _CHUNK_ELEMENTS = 1 << 22  # dense cells handled at once (32 MiB of float64)
@@ -311,7 +311,7 @@ class GlobalPageRank:
         k = check_count("k", k)
         adjacency = check_adjacency(self.adjacency, split)
         check_fraction("damping", self.damping, open_low=True, open_high=True)
-        result = personalized_pagerank(prepare(adjacency), None, damping=self.damping, tol=self.tol)
+        result = personalised_pagerank(prepare(adjacency), None, damping=self.damping, tol=self.tol)
         return _from_global(np.asarray(result.vectors, dtype=np.float64), split, k)
 
 

@@ -6,6 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from ..configuration import Configuration
 from ..errors import UsageError
 from ..sources import FieldError, parse_timestamp
 from .splits import SESSION_GAP_SECONDS
@@ -46,7 +47,6 @@ def _bar(total: int):
 
 def evaluate(args: argparse.Namespace, out=None) -> int:
     """Run ``rankrec evaluate``; prints the headline table and where the report is."""
-    from ..configuration import Configuration
     from .report import write_report
     from .run import load_data, make_split, open_store, run_evaluation
     from .sweeps import Grid
@@ -182,7 +182,7 @@ def register(commands) -> None:
         type=float,
         default=SESSION_GAP_SECONDS,
         metavar="SECONDS",
-        help="inactivity that ends a session, in seconds (1800)",
+        help=f"inactivity that ends a session, in seconds ({SESSION_GAP_SECONDS:g})",
     )
     command.add_argument(
         "--prefix",
@@ -209,25 +209,33 @@ def register(commands) -> None:
         "--workers", type=int, default=1, metavar="N", help="threads of the power iteration (1)"
     )
     settings = command.add_argument_group("rankrec's settings (the sweeps start from these)")
+    defaults = Configuration()
     settings.add_argument(
-        "--damping", type=float, default=0.85, help="probability of following a link (0.85)"
+        "--damping",
+        type=float,
+        default=defaults.damping,
+        help=f"probability of following a link ({defaults.damping:g})",
     )
     settings.add_argument(
         "--half-life",
         type=float,
-        default=30.0,
+        default=defaults.half_life_days,
         metavar="DAYS",
-        help="half-life of a view in a reader's profile (30 days)",
+        help=f"half-life of a view in a reader's profile ({defaults.half_life_days:g} days)",
     )
     settings.add_argument(
         "--navigation-weight",
         type=float,
-        default=0.3,
+        default=defaults.navigation_weight,
         metavar="W",
-        help="share of a page's row given to observed navigation (0.3)",
+        help=f"share of a page's row given to observed navigation ({defaults.navigation_weight:g})",
     )
     settings.add_argument(
-        "--lift", type=float, default=0.5, metavar="B", help="rank by score / global^B (0.5)"
+        "--lift",
+        type=float,
+        default=defaults.lift,
+        metavar="B",
+        help=f"rank by score / global^B ({defaults.lift:g})",
     )
     settings.add_argument("--no-sweep", action="store_true", help="use these settings as they are")
     grid = command.add_argument_group("sweep grids (comma-separated values)")

@@ -19,7 +19,6 @@ the training part through a store and checks that the lists are equal item by it
 from __future__ import annotations
 
 import tempfile
-from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -30,10 +29,9 @@ from .._validation import check_count
 from ..build import Evidence, ViewLog, build_from_evidence, reader_profiles
 from ..configuration import Configuration
 from ..index import load_index
+from ..progress import Progress, report
 from ..recommend import Reader, recommend, related
 from .splits import Split, excluded_pages
-
-Progress = Callable[[str, int, int], object]
 
 
 def training_evidence(evidence: Evidence, split: Split) -> Evidence:
@@ -102,8 +100,8 @@ def served_lists(index, split: Split, readers: list[Reader], k: int, progress=No
             result = recommend(index, reader, k=k, exclude_read=True)
         found = [number_of[item.page] for item in result.items]
         lists[query, : len(found)] = found
-        if progress is not None and (query + 1) % 256 == 0:
-            progress("rankrec lists", query + 1, len(readers))
+        if (query + 1) % 256 == 0 or query + 1 == len(readers):
+            report(progress, "rankrec lists", query + 1, len(readers))
     return lists
 
 

@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import hashlib
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -29,6 +29,7 @@ from .._validation import check_choice, check_count, check_fraction, check_posit
 from ..build import Evidence, read_evidence
 from ..configuration import Configuration
 from ..errors import CutoffOutsideSpan, InputError, NothingToEvaluate
+from ..progress import Progress
 from ..store import Store
 from .baselines import (
     CoVisitation,
@@ -51,7 +52,6 @@ DEFAULT_KS = (1, 3, 5, 10, 20)
 LEVEL = 0.95
 DEFAULT_GRID = Grid()
 DEFAULT_CONFIGURATION = Configuration()
-Progress = Callable[[str, int, int], object]
 
 
 @dataclass(frozen=True, eq=False)
@@ -259,7 +259,7 @@ def run_evaluation(
     total = (grid.solves if grid is not None else 0) + 2 * len(methods) + 2
     done = [0]
 
-    def advance(description: str) -> None:
+    def advance(description: str, *_counts) -> None:
         done[0] += 1
         if progress is not None:
             progress(description, min(done[0], total), total)

@@ -19,7 +19,6 @@ The chosen configuration is the best of every configuration evaluated (ties: the
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
@@ -28,12 +27,10 @@ import numpy as np
 from .._validation import check_count
 from ..configuration import Configuration
 from ..errors import NothingToEvaluate
+from ..progress import Progress, report
 from .method import rankrec_lists
 from .metrics import evaluate_lists
 from .splits import Split, last_n_split, session_split, temporal_split
-
-Progress = Callable[[str], object]
-
 
 GRID_NAMES = ("damping", "lift", "half_life_days", "navigation_weight")
 
@@ -159,7 +156,8 @@ def choose_configuration(
 
     ``evidence`` is the store's (:class:`rankrec.build.Evidence`; its views are replaced by each training
     part). ``validation`` may pass the split from :func:`validation_split` (made once for baselines and
-    sweeps alike); ``progress(description)`` is called after every build. Only ``split.train`` is read.
+    sweeps alike); ``progress(description, builds done, builds at most)`` is called after every build. Only
+    ``split.train`` is read.
     """
     k = check_count("k", k)
     grid = Grid() if grid is None else grid
@@ -172,9 +170,8 @@ def choose_configuration(
         lists = rankrec_lists(validation, evidence, k, configuration, hubs=hubs, workers=workers)
         found = mean_metric(lists, validation, k)
         tried.append((found, configuration))
-        if progress is not None:
-            shown = ", ".join(f"{name} {getattr(configuration, name):g}" for name in GRID_NAMES)
-            progress(f"sweep {shown}")
+        shown = ", ".join(f"{name} {getattr(configuration, name):g}" for name in GRID_NAMES)
+        report(progress, f"sweep {shown}", len(tried), grid.solves)
         return found
 
     first = np.full((len(grid.damping), len(grid.lift)), np.nan)

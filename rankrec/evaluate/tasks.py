@@ -16,8 +16,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from .._validation import check_count, check_positive
-
-SESSION_GAP_SECONDS = 1800.0  # 30 minutes of inactivity ends a session (common practice in web analytics)
+from ..configuration import SESSION_GAP_SECONDS
 
 
 @dataclass(frozen=True, eq=False)

@@ -3,14 +3,14 @@
 This package imports no other rankrec module.
 
 - :func:`prepare` builds a reusable :class:`Transition` from a sparse adjacency matrix.
-- :func:`personalized_pagerank` runs the block power iteration for ``k`` restart distributions at once.
+- :func:`personalised_pagerank` runs the block power iteration for ``k`` restart distributions at once.
 - :func:`combine` mixes leaky vectors into the exact PageRank of a restart mix.
 - :func:`push` approximates one seed's (or a few seeds') vector locally.
 - :func:`solve_exact` is the direct sparse solve used as a reference on small graphs.
 """
 
 from .exact import solve_exact
-from .power import combine, personalized_pagerank
+from .power import combine, personalised_pagerank
 from .push import push
 from .results import ConvergenceWarning, PageRankResult, PushResult
 from .transition import Transition, prepare
@@ -21,7 +21,7 @@ __all__ = [
     "PushResult",
     "Transition",
     "combine",
-    "personalized_pagerank",
+    "personalised_pagerank",
     "prepare",
     "push",
     "solve_exact",

@@ -27,7 +27,7 @@ def solve_exact(
     ``v = r`` (``dangling="restart"``) or ``v = 1/n`` (``"uniform"``), via the Sherman–Morrison formula:
     ``x = y + (α dᵀy / (1 − α dᵀw)) w`` where ``(I − α Pᵀ) y = (1 − α) r`` and ``(I − α Pᵀ) w = v``.
     With ``leaky=True`` it returns ``y``. Same parameters and result shape as
-    :func:`personalized_pagerank`; ``residuals`` are the L1 norms of the patched system's residual.
+    :func:`personalised_pagerank`; ``residuals`` are the L1 norms of the patched system's residual.
 
     Examples
     --------

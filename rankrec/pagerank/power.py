@@ -19,7 +19,7 @@ FLOAT32_TOL_FLOOR = 1e-7
 """Smallest ``tol`` accepted with float32 arithmetic: its per-step rounding noise is about 1e-8 in L1."""
 
 
-def personalized_pagerank(
+def personalised_pagerank(
     transition_or_adjacency: Transition | object,
     restart: object = None,
     *,
@@ -92,7 +92,7 @@ def personalized_pagerank(
     --------
     >>> import scipy.sparse as sp
     >>> cycle = sp.csr_array(([1.0, 1.0, 1.0], ([0, 1, 2], [1, 2, 0])), shape=(3, 3))
-    >>> result = personalized_pagerank(cycle, tol=1e-10)
+    >>> result = personalised_pagerank(cycle, tol=1e-10)
     >>> result.vectors.round(4).tolist(), result.converged
     ([0.3333, 0.3333, 0.3333], True)
     """

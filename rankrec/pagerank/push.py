@@ -31,7 +31,7 @@ def push(
     Keeps an estimate ``p`` (starts at 0) and a residual ``r`` (starts at the seed distribution ``s``).
     Pushing page ``u`` moves ``(1 − α) r[u]`` into ``p[u]`` and spreads ``α r[u]`` over ``u``'s out-links
     by weight; a dangling page spreads it over the seeds (the ``dangling="restart"`` policy), so the exact
-    target is ``personalized_pagerank(..., restart=s, dangling="restart")``. The invariant
+    target is ``personalised_pagerank(..., restart=s, dangling="restart")``. The invariant
     ``x = p + X r`` with ``X = (1 − α) Σₜ (α Pᵀ)ᵗ`` (column-stochastic) gives ``‖x − p‖₁ = ‖r‖₁``.
 
     Stopping rule: no page has ``r[u] > epsilon · max(deg(u), 1)`` (``deg`` = out-degree), or

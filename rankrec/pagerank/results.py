@@ -14,7 +14,7 @@ class ConvergenceWarning(UserWarning):
 
 @dataclass(frozen=True)
 class PageRankResult:
-    """Stationary vectors from :func:`personalized_pagerank` or :func:`solve_exact`.
+    """Stationary vectors from :func:`personalised_pagerank` or :func:`solve_exact`.
 
     Attributes
     ----------

@@ -17,12 +17,13 @@ import numpy as np
 
 from ..configuration import Configuration
 from ..index import Index, load_array, load_transition
-from ..pagerank import Transition, personalized_pagerank, push
+from ..pagerank import Transition, personalised_pagerank, push
 from .explain import contributions
 from .select import top_k
 
 DEFAULT_K_RELATED = 50  # enough candidates that access and "already linked" filters still leave 10-20
 _BLOCK_CELLS = 1 << 22  # pages × seed columns of one block power iteration (32 MiB of float64)
+_WIDEST = 64  # seeds per block: wider blocks were measured slower (cache), narrower waste the lanes
 _FIELDS = {
     "pages": (np.int32, -1),
     "scores": (np.float32, 0),
@@ -47,6 +48,8 @@ def candidates(
     pages, scores = pages[best], scores[best]
 
     def lookup(wanted):
+        if indices.size == values.size == np.asarray(archived).size:  # a whole vector: read it directly
+            return values[wanted]
         position = np.minimum(np.searchsorted(indices, wanted), indices.size - 1)
         return np.where(indices[position] == wanted, values[position], 0.0)
 
@@ -66,11 +69,12 @@ def _vectors(transition: Transition, seeds: np.ndarray, method: str, configurati
     if method == "power":
         restart = np.zeros((transition.n, seeds.size))
         restart[seeds, np.arange(seeds.size)] = 1.0
-        vectors = personalized_pagerank(
+        vectors = personalised_pagerank(
             transition, restart, damping=damping, tol=configuration.tol, workers=workers
         ).vectors
         everything = np.arange(transition.n)
-        return [(everything, vectors[:, column]) for column in range(seeds.size)]
+        columns = np.ascontiguousarray(vectors.T)  # one contiguous row per seed
+        return [(everything, columns[column]) for column in range(seeds.size)]
     found = []
     for seed in seeds.tolist():
         result = push(transition, seed, damping=damping, epsilon=configuration.related_epsilon)
@@ -140,7 +144,7 @@ def write_related(
             progress("related lists", done, chosen.size)
 
     if method == "power":
-        width = int(np.clip(_BLOCK_CELLS // max(size, 1), 16, 1024))
+        width = int(np.clip(_BLOCK_CELLS // max(size, 1), 16, _WIDEST))
         for first in range(0, chosen.size, width):
             seeds = chosen[first : first + width]
             store_block(

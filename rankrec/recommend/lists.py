@@ -277,7 +277,7 @@ def _personal_vector(index: Index, restart: np.ndarray, epsilon: float | None = 
     if not 0 < epsilon < 1:
         raise ValueError(f"epsilon must lie in (0, 1); got {epsilon!r}")
     if index.basis is not None:
-        found = index.basis.personalized(index.transition, restart, epsilon=epsilon)
+        found = index.basis.personalised(index.transition, restart, epsilon=epsilon)
         return _Personal(found.vector, found.error_bound)
     pages = np.flatnonzero(restart)
     result = push(

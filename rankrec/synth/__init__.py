@@ -26,12 +26,12 @@ import numbers
 import os
 import shutil
 import tempfile
-from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from ..progress import Progress, report
 from . import _words
 from ._accesslog import write_access_log
 from ._markdown import write_markdown
@@ -54,8 +54,6 @@ MARKDOWN_LIMIT = 20_000  # "auto" writes Markdown up to this many pages, tables 
 MAX_PAGES = 50_000_000
 MAX_READERS = 20_000
 _LAYOUTS = ("auto", "markdown", "tables")
-
-Progress = Callable[[str, int, int], object]
 
 
 @dataclass(frozen=True)
@@ -188,7 +186,7 @@ def synthesize(
     # Independent streams per stage: the layout or the access log never changes the data.
     wiki_seed, people_seed, views_seed, markdown_seed, log_seed = np.random.SeedSequence(seed).spawn(5)
     wiki = build_wiki(pages, np.random.default_rng(wiki_seed))
-    _report(progress, "pages and links", 1, 1)
+    report(progress, "pages and links", 1, 1)
     people = build_people(wiki, readers, np.random.default_rng(people_seed))
     views = build_views(
         wiki,
@@ -248,8 +246,3 @@ def synthesize(
         window_end=WINDOW_END,
         files=tuple(sorted(files)),
     )
-
-
-def _report(progress: Progress | None, step: str, done: int, total: int) -> None:
-    if progress is not None:
-        progress(step, done, total)

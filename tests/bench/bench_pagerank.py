@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
-from rankrec.pagerank import personalized_pagerank, prepare, push
+from rankrec.pagerank import personalised_pagerank, prepare, push
 from rankrec.pagerank.push import REFINE
 
 WORKERS = 2
@@ -124,12 +124,12 @@ def bench_graph(name, adjacency, restarts, args):
     transition = prepare(adjacency)
     print(f"  prepare: {time.perf_counter() - start:.2f} s, {transition.dangling.sum():,} dangling pages")
     start = time.perf_counter()
-    reference = personalized_pagerank(transition, restarts, tol=1e-10, workers=WORKERS).vectors
-    reference_global = personalized_pagerank(transition, tol=1e-10, workers=WORKERS).vectors[:, None]
+    reference = personalised_pagerank(transition, restarts, tol=1e-10, workers=WORKERS).vectors
+    reference_global = personalised_pagerank(transition, tol=1e-10, workers=WORKERS).vectors[:, None]
     print(f"  float64 reference (tol 1e-10): {time.perf_counter() - start:.1f} s")
 
     def ours(dtype, restart):
-        return personalized_pagerank(transition, restart, tol=1e-6, dtype=dtype, workers=WORKERS)
+        return personalised_pagerank(transition, restart, tol=1e-6, dtype=dtype, workers=WORKERS)
 
     rows = []
     ours_topics, result = _median_time(lambda: ours(np.float32, restarts), args.repeats)
@@ -186,7 +186,7 @@ def bench_push(transition, adjacency, edges, args):
     for batch in np.array_split(seeds, max(1, int(np.ceil(seeds.size / 48)))):
         restart = np.zeros((transition.n, batch.size))
         restart[batch, np.arange(batch.size)] = 1.0
-        result = personalized_pagerank(transition, restart, tol=1e-10, max_iter=500, workers=WORKERS)
+        result = personalised_pagerank(transition, restart, tol=1e-10, max_iter=500, workers=WORKERS)
         order = np.argsort(-result.vectors, axis=0, kind="stable")[:20]
         reference.extend(set(order[:, j].tolist()) for j in range(batch.size))
         exact.extend(result.vectors[order[:, j], j] for j in range(batch.size))

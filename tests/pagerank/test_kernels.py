@@ -7,7 +7,7 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 import pytest
 
-from rankrec.pagerank import personalized_pagerank, prepare, push, solve_exact
+from rankrec.pagerank import personalised_pagerank, prepare, push, solve_exact
 from rankrec.pagerank.power import _aligned_zeros, _lanes
 
 from ._graphs import random_graph
@@ -30,7 +30,7 @@ def test_every_column_count_matches_the_direct_solve(transition, k, dtype):
     # lanes are zero-padded inside the kernel; the padding must not leak into any column.
     restart = _restarts(transition.n, k, seed=k)
     tol = 1e-7 if dtype == np.float32 else 1e-10
-    found = personalized_pagerank(transition, restart, tol=tol, dtype=dtype, workers=2)
+    found = personalised_pagerank(transition, restart, tol=tol, dtype=dtype, workers=2)
     exact = solve_exact(transition, restart).vectors
     assert found.vectors.shape == (transition.n, k) and found.vectors.dtype == dtype
     # L1 error <= α/(1 − α) · last change (contraction of modulus α); float32 adds rounding (common practice)
@@ -49,11 +49,11 @@ def test_parallel_solves_from_two_threads_agree_with_a_serial_solve(transition):
     # A service may call the solver from several threads; numba's workqueue layer would abort on
     # concurrent parallel regions, so the kernel is serialised. Results must equal the serial solve.
     restart = _restarts(transition.n, 16, seed=3)
-    serial = personalized_pagerank(transition, restart, tol=1e-10, workers=1).vectors
+    serial = personalised_pagerank(transition, restart, tol=1e-10, workers=1).vectors
     with ThreadPoolExecutor(max_workers=4) as pool:
         results = list(
             pool.map(
-                lambda _: personalized_pagerank(transition, restart, tol=1e-10, workers=2).vectors, range(8)
+                lambda _: personalised_pagerank(transition, restart, tol=1e-10, workers=2).vectors, range(8)
             )
         )
     for vectors in results:

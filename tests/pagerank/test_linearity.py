@@ -6,7 +6,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rankrec.pagerank import combine, personalized_pagerank, solve_exact
+from rankrec.pagerank import combine, personalised_pagerank, solve_exact
 
 from ._graphs import random_graph
 
@@ -26,9 +26,9 @@ def test_combined_leaky_basis_is_the_pagerank_of_the_mix(n, density, parts, damp
     basis[rng.integers(0, n, parts), np.arange(parts)] += 1.0  # no all-zero column
     basis /= basis.sum(axis=0)
     weights = rng.random(parts) + 0.01
-    leaky = personalized_pagerank(graph, basis, damping=damping, tol=1e-13, leaky=True).vectors
+    leaky = personalised_pagerank(graph, basis, damping=damping, tol=1e-13, leaky=True).vectors
     mix = basis @ weights
-    direct = personalized_pagerank(graph, mix, damping=damping, tol=1e-13, dangling="restart").vectors
+    direct = personalised_pagerank(graph, mix, damping=damping, tol=1e-13, dangling="restart").vectors
     np.testing.assert_allclose(combine(leaky, weights), direct, rtol=0, atol=1e-9)
     # and against the direct sparse solve of the strongly-preferential (patched) system
     np.testing.assert_allclose(direct, solve_exact(graph, mix, damping=damping).vectors, rtol=0, atol=1e-9)

@@ -12,7 +12,7 @@ import scipy.sparse as sp
 from rankrec.pagerank import (
     ConvergenceWarning,
     combine,
-    personalized_pagerank,
+    personalised_pagerank,
     prepare,
     push,
     solve_exact,
@@ -52,7 +52,7 @@ def test_patched_transition_is_column_stochastic_and_solution_is_its_eigenvector
     assert transition.dangling.any()
     row_sums = transition.forward.sum(axis=1)
     np.testing.assert_allclose(row_sums, (~transition.dangling).astype(float), atol=1e-14)
-    result = personalized_pagerank(transition, restarts, tol=1e-12, dangling=dangling)
+    result = personalised_pagerank(transition, restarts, tol=1e-12, dangling=dangling)
     for column in range(restarts.shape[1]):
         google = _google(transition, restarts[:, column], 0.85, dangling)
         np.testing.assert_allclose(google.sum(axis=0), 1.0, atol=1e-13)
@@ -66,7 +66,7 @@ def test_directed_cycle_is_uniform():
     n = 17
     cycle = sp.coo_array((np.ones(n), (np.arange(n), (np.arange(n) + 1) % n)), shape=(n, n))
     for dtype in (np.float64, np.float32):
-        result = personalized_pagerank(cycle, tol=1e-7, dtype=dtype)
+        result = personalised_pagerank(cycle, tol=1e-7, dtype=dtype)
         np.testing.assert_allclose(result.vectors, 1.0 / n, rtol=1e-6)
 
 
@@ -80,7 +80,7 @@ def test_two_closed_components_converge_at_rate_damping():
     restart = np.zeros(12)
     restart[[0, 5]] = 0.5
     seen = []
-    result = personalized_pagerank(
+    result = personalised_pagerank(
         graph,
         restart,
         damping=damping,
@@ -98,14 +98,14 @@ def test_iteration_count_bounded_by_contraction(graph, restarts):
     # the step map is an L1 contraction of factor α (column-stochastic patch), so
     # ‖x_{t+1} − x_t‖₁ ≤ 2 α^{t+1} and the count never exceeds log(tol / 2) / log(α) + 1
     tol = 1e-9
-    result = personalized_pagerank(graph, restarts, tol=tol)
+    result = personalised_pagerank(graph, restarts, tol=tol)
     assert result.converged and result.iterations <= math.log(tol / 2) / math.log(0.85) + 1
 
 
 def test_max_iter_one_reports_not_converged(graph):
     # scipy's solvers' convention, made visible: a warning and converged=False
     with pytest.warns(ConvergenceWarning, match="max_iter=1"):
-        result = personalized_pagerank(graph, max_iter=1)
+        result = personalised_pagerank(graph, max_iter=1)
     assert result.converged is False and result.iterations == 1
     assert result.residuals.shape == (1,) and result.residuals[0] >= 1e-6
 
@@ -114,7 +114,7 @@ def test_inputs_unchanged(graph, restarts):
     adjacency = sp.coo_array(graph)
     before = (adjacency.data.copy(), adjacency.coords[0].copy(), adjacency.coords[1].copy())
     restart = restarts.copy()
-    personalized_pagerank(adjacency, restart, tol=1e-8)
+    personalised_pagerank(adjacency, restart, tol=1e-8)
     solve_exact(adjacency, restart)
     seeds = {3: 2.0, 5: 1.0}
     push(adjacency, seeds)
@@ -127,7 +127,7 @@ def test_inputs_unchanged(graph, restarts):
 def test_solver_knobs_are_keyword_only():
     # scipy's iterative-solver tests assert that tolerances are keyword-only; so do we
     checks = {
-        personalized_pagerank: ("damping", "tol", "max_iter", "callback", "dangling", "leaky", "dtype"),
+        personalised_pagerank: ("damping", "tol", "max_iter", "callback", "dangling", "leaky", "dtype"),
         push: ("damping", "epsilon", "max_pushes"),
         solve_exact: ("damping", "dangling", "leaky"),
     }
@@ -138,8 +138,8 @@ def test_solver_knobs_are_keyword_only():
 
 
 def test_float32_meets_the_tolerance(graph, restarts):
-    wide = personalized_pagerank(graph, restarts, tol=1e-12)
-    narrow = personalized_pagerank(graph, restarts, tol=1e-6, dtype=np.float32)
+    wide = personalised_pagerank(graph, restarts, tol=1e-12)
+    narrow = personalised_pagerank(graph, restarts, tol=1e-6, dtype=np.float32)
     assert narrow.vectors.dtype == np.float32 and narrow.converged
     # after ‖x_{t+1} − x_t‖₁ < tol the error is at most tol α / (1 − α) (contraction argument)
     assert np.abs(narrow.vectors - wide.vectors).sum(axis=0).max() < 1e-6 * 0.85 / 0.15 + 1e-6
@@ -147,28 +147,28 @@ def test_float32_meets_the_tolerance(graph, restarts):
 
 def test_uniform_restart_makes_policies_agree(graph):
     # with a uniform restart, sending dangling mass to the restart or uniformly is the same chain
-    a = personalized_pagerank(graph, tol=1e-12, dangling="restart").vectors
-    b = personalized_pagerank(graph, np.ones(N), tol=1e-12, dangling="uniform").vectors
+    a = personalised_pagerank(graph, tol=1e-12, dangling="restart").vectors
+    b = personalised_pagerank(graph, np.ones(N), tol=1e-12, dangling="uniform").vectors
     np.testing.assert_allclose(a, b, atol=1e-13)
 
 
 def test_columns_match_one_at_a_time(graph, restarts):
-    together = personalized_pagerank(graph, restarts, tol=1e-12).vectors
+    together = personalised_pagerank(graph, restarts, tol=1e-12).vectors
     for column in range(restarts.shape[1]):
-        alone = personalized_pagerank(graph, restarts[:, column], tol=1e-12).vectors
+        alone = personalised_pagerank(graph, restarts[:, column], tol=1e-12).vectors
         np.testing.assert_allclose(together[:, column], alone, atol=1e-13)
 
 
 def _power(dangling, dtype=np.float64):
     def solve(graph, restarts):
         tol = 1e-10 if dtype == np.float64 else 1e-6
-        return personalized_pagerank(graph, restarts, tol=tol, dangling=dangling, dtype=dtype).vectors
+        return personalised_pagerank(graph, restarts, tol=tol, dangling=dangling, dtype=dtype).vectors
 
     return solve
 
 
 def _leaky_combined(graph, restarts):
-    leaky = personalized_pagerank(graph, np.eye(N)[:, :5], tol=1e-12, leaky=True).vectors
+    leaky = personalised_pagerank(graph, np.eye(N)[:, :5], tol=1e-12, leaky=True).vectors
     return np.column_stack([combine(leaky, w) for w in np.eye(5)[:3] + 0.5])
 
 
@@ -213,21 +213,21 @@ def test_contract(solve, prepared, graph, restarts):
 @pytest.mark.parametrize(
     ("call", "error", "match"),
     [
-        (lambda g: personalized_pagerank(sp.csr_array(np.ones((2, 3)))), ValueError, r"square.*\(2, 3\)"),
-        (lambda g: personalized_pagerank(sp.csr_array(-np.eye(3))), ValueError, "non-negative.*-1.0"),
-        (lambda g: personalized_pagerank(sp.csr_array(np.diag([1.0, np.nan]))), ValueError, "finite.*nan"),
-        (lambda g: personalized_pagerank(np.eye(3)), TypeError, "transition_or_adjacency.*ndarray"),
-        (lambda g: personalized_pagerank(g, np.zeros(N)), ValueError, r"(?s)restart must not be.*\(60,\)"),
-        (lambda g: personalized_pagerank(g, np.c_[np.ones(N), np.zeros(N)]), ValueError, "column 1"),
-        (lambda g: personalized_pagerank(g, -np.ones(N)), ValueError, "restart must be non-negative"),
-        (lambda g: personalized_pagerank(g, np.ones(N - 1)), ValueError, r"shape \(60,\).*\(59,\)"),
-        (lambda g: personalized_pagerank(g, damping=1.0), ValueError, "damping.*1.0"),
-        (lambda g: personalized_pagerank(g, tol=0), ValueError, "tol.*0"),
-        (lambda g: personalized_pagerank(g, max_iter=0), ValueError, "max_iter.*0"),
-        (lambda g: personalized_pagerank(g, dangling="drop"), ValueError, "dangling.*'drop'"),
-        (lambda g: personalized_pagerank(g, dtype=np.float16), ValueError, "dtype"),
-        (lambda g: personalized_pagerank(g, callback=3), TypeError, "callback.*3"),
-        (lambda g: personalized_pagerank(g, tol=1e-9, dtype=np.float32), ValueError, "tol=1e-09.*float32"),
+        (lambda g: personalised_pagerank(sp.csr_array(np.ones((2, 3)))), ValueError, r"square.*\(2, 3\)"),
+        (lambda g: personalised_pagerank(sp.csr_array(-np.eye(3))), ValueError, "non-negative.*-1.0"),
+        (lambda g: personalised_pagerank(sp.csr_array(np.diag([1.0, np.nan]))), ValueError, "finite.*nan"),
+        (lambda g: personalised_pagerank(np.eye(3)), TypeError, "transition_or_adjacency.*ndarray"),
+        (lambda g: personalised_pagerank(g, np.zeros(N)), ValueError, r"(?s)restart must not be.*\(60,\)"),
+        (lambda g: personalised_pagerank(g, np.c_[np.ones(N), np.zeros(N)]), ValueError, "column 1"),
+        (lambda g: personalised_pagerank(g, -np.ones(N)), ValueError, "restart must be non-negative"),
+        (lambda g: personalised_pagerank(g, np.ones(N - 1)), ValueError, r"shape \(60,\).*\(59,\)"),
+        (lambda g: personalised_pagerank(g, damping=1.0), ValueError, "damping.*1.0"),
+        (lambda g: personalised_pagerank(g, tol=0), ValueError, "tol.*0"),
+        (lambda g: personalised_pagerank(g, max_iter=0), ValueError, "max_iter.*0"),
+        (lambda g: personalised_pagerank(g, dangling="drop"), ValueError, "dangling.*'drop'"),
+        (lambda g: personalised_pagerank(g, dtype=np.float16), ValueError, "dtype"),
+        (lambda g: personalised_pagerank(g, callback=3), TypeError, "callback.*3"),
+        (lambda g: personalised_pagerank(g, tol=1e-9, dtype=np.float32), ValueError, "tol=1e-09.*float32"),
         (lambda g: push(g, N), ValueError, "seeds index 60"),
         (lambda g: push(g, np.array([0.5])), TypeError, "seeds must be"),
         (lambda g: push(g, {1: -1.0}), ValueError, "seeds weights"),
@@ -268,8 +268,8 @@ def test_extrapolation_on_rotating_error_is_switched_off_and_still_converges():
     graph = sp.csr_array((np.ones(12), (sources, targets)), shape=(12, 12))
     restart = np.zeros(12)
     restart[[0, 5]] = 0.5
-    plain = personalized_pagerank(graph, restart, tol=1e-10, extrapolate=False)
-    jumped = personalized_pagerank(graph, restart, tol=1e-10)
+    plain = personalised_pagerank(graph, restart, tol=1e-10, extrapolate=False)
+    jumped = personalised_pagerank(graph, restart, tol=1e-10)
     assert jumped.converged and jumped.iterations <= 2 * plain.iterations
     # both stop on a plain step with change < tol, so each is within tol·α/(1−α) of the fixed point
     assert np.abs(jumped.vectors - plain.vectors).sum() <= 2 * 1e-10 * 0.85 / 0.15
@@ -277,12 +277,12 @@ def test_extrapolation_on_rotating_error_is_switched_off_and_still_converges():
 
 def test_extrapolation_agrees_with_the_plain_iteration(graph, restarts):
     # both stop on a plain step with change < tol, so each is within tol·α/(1−α) of the fixed point
-    plain = personalized_pagerank(graph, restarts, tol=1e-10, extrapolate=False)
-    jumped = personalized_pagerank(graph, restarts, tol=1e-10)
+    plain = personalised_pagerank(graph, restarts, tol=1e-10, extrapolate=False)
+    jumped = personalised_pagerank(graph, restarts, tol=1e-10)
     assert jumped.converged
     assert np.abs(jumped.vectors - plain.vectors).sum(axis=0).max() <= 2 * 1e-10 * 0.85 / 0.15
     with pytest.raises(TypeError, match="extrapolate"):
-        personalized_pagerank(graph, restarts, extrapolate=1)
+        personalised_pagerank(graph, restarts, extrapolate=1)
 
 
 def test_extrapolation_cuts_steps_where_one_real_eigenvalue_dominates():
@@ -298,7 +298,7 @@ def test_extrapolation_cuts_steps_where_one_real_eigenvalue_dominates():
     graph = sp.csr_array((np.ones(int(keep.sum())), (sources[keep], targets[keep])), shape=(100, 100))
     restarts = np.zeros((100, 2))
     restarts[:50, 0], restarts[50:, 1] = 1.0, 1.0
-    plain = personalized_pagerank(graph, restarts, tol=1e-10, extrapolate=False)
-    jumped = personalized_pagerank(graph, restarts, tol=1e-10)
+    plain = personalised_pagerank(graph, restarts, tol=1e-10, extrapolate=False)
+    jumped = personalised_pagerank(graph, restarts, tol=1e-10)
     assert jumped.iterations < plain.iterations / 2
     assert np.abs(jumped.vectors - plain.vectors).sum(axis=0).max() <= 2 * 1e-10 * 0.85 / 0.15

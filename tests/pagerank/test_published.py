@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from rankrec.pagerank import personalized_pagerank, solve_exact
+from rankrec.pagerank import personalised_pagerank, solve_exact
 
 
 def _exact_uniform_patch(n: int, links: list[tuple[int, int]], damping: Fraction) -> list[Fraction]:
@@ -81,7 +81,7 @@ def test_wikipedia_figure_percentages():
     expected = np.array([float(v) for v in exact])
     adjacency = _adjacency(11, links)
     for dangling in ("uniform", "restart"):  # with a uniform restart both policies coincide
-        iterated = personalized_pagerank(adjacency, damping=0.85, tol=1e-13, dangling=dangling)
+        iterated = personalised_pagerank(adjacency, damping=0.85, tol=1e-13, dangling=dangling)
         np.testing.assert_allclose(iterated.vectors, expected, rtol=0, atol=1e-12)
     direct = solve_exact(adjacency, damping=0.85, dangling="uniform")
     np.testing.assert_allclose(direct.vectors, expected, rtol=0, atol=1e-14)
@@ -100,7 +100,7 @@ def test_langville_meyer_six_pages():
     published = np.array(LANGVILLE_MEYER_VECTOR)
     digits = np.array([5, 5, 5, 4, 3, 4])  # decimals printed for each entry
     assert np.all(np.abs(exact - published) <= 0.5 * 10.0**-digits + 1e-12)
-    result = personalized_pagerank(_adjacency(6, links), damping=0.9, tol=1e-13, dangling="uniform")
+    result = personalised_pagerank(_adjacency(6, links), damping=0.9, tol=1e-13, dangling="uniform")
     assert result.converged
     np.testing.assert_allclose(result.vectors, exact, rtol=0, atol=1e-12)
     np.testing.assert_allclose(
@@ -112,7 +112,7 @@ def test_langville_meyer_six_pages():
 def test_wikipedia_figure_in_both_precisions(dtype):
     pages = "ABCDEFGHIJK"
     links = [(pages.index(a), pages.index(b)) for a, b in WIKIPEDIA_LINKS]
-    result = personalized_pagerank(_adjacency(11, links), tol=1e-6, dtype=dtype)
+    result = personalised_pagerank(_adjacency(11, links), tol=1e-6, dtype=dtype)
     assert result.vectors.dtype == dtype
     # rounded to one decimal of a percent, as the figure prints them (common practice: float32 ~ 7 digits)
     np.testing.assert_allclose(100 * result.vectors, [WIKIPEDIA_PERCENT[p] for p in pages], atol=0.05 + 1e-4)

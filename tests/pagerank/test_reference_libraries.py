@@ -7,7 +7,7 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from rankrec.pagerank import personalized_pagerank, prepare, solve_exact
+from rankrec.pagerank import personalised_pagerank, prepare, solve_exact
 from tests.conftest import require_shared
 
 from ._graphs import read_wikispeedia, topic_restart
@@ -41,7 +41,7 @@ def exact(wikispeedia):
 
 
 def _ours(transition, restart, dangling):
-    result = personalized_pagerank(transition, restart, tol=1e-13, dangling=dangling)
+    result = personalised_pagerank(transition, restart, tol=1e-13, dangling=dangling)
     assert result.converged
     return result.vectors
 
