@@ -84,3 +84,92 @@ def test_evidence_holds_the_store_in_graph_numbering(wiki):
     assert evidence.titles == ["A", "B", "C"]
     assert evidence.views.pages.tolist() == [0, 2, 0, 1]  # ordered by reader, then time
     assert evidence.views.counts(3).tolist() == [2, 1, 1]
+
+
+def test_build_with_a_settings_file_serves_what_the_file_says(tmp_path, capsys):
+    # Readers always go from "start" to "hidden", a page "start" does not link to: with a navigation
+    # weight the moves carry the surfer there, without it the links alone decide.
+    import json
+
+    from rankrec.cli import main
+    from rankrec.configuration import Settings, write_settings
+    from rankrec.recommend import related
+
+    path = tmp_path / "wiki.db"
+    with Store(path) as store, store.transaction():
+        for page in ("start", "linked", "other", "hidden"):
+            store.put_page(PageRecord(page, page.title(), Origin("test")))
+        store.put_links(
+            [
+                ("start", "linked", 1.0),
+                ("linked", "other", 1.0),
+                ("other", "start", 1.0),
+                ("hidden", "start", 1.0),
+            ]
+        )
+        store.put_views(
+            (f"reader{number}", page, 100.0 * number + offset, None)
+            for number in range(20)
+            for offset, page in ((0.0, "start"), (30.0, "hidden"))
+        )
+        store.log_import("test", "generated", 4, 0)
+    moves = tmp_path / "moves.json"
+    write_settings(moves, Settings(Configuration(navigation_weight=0.9, lift=0.0), {"store": str(path)}))
+    links = tmp_path / "links.json"
+    write_settings(links, Settings(Configuration(navigation_weight=0.0, lift=0.0)))
+
+    assert (
+        main(["build", "--wiki", str(path), "--index", str(tmp_path / "moves"), "--settings", str(moves)])
+        == 0
+    )
+    said = capsys.readouterr().out
+    assert f"configuration: {moves}" in said and "another store" not in said
+    assert (
+        main(["build", "--wiki", str(path), "--index", str(tmp_path / "links"), "--settings", str(links)])
+        == 0
+    )
+    assert main(["build", "--wiki", str(path), "--index", str(tmp_path / "plain")]) == 0
+    assert "the defaults" in capsys.readouterr().out
+    with_moves, without = load_index(tmp_path / "moves"), load_index(tmp_path / "links")
+    assert (
+        with_moves.configuration.navigation_weight == 0.9 and without.configuration.navigation_weight == 0.0
+    )
+    assert json.loads((tmp_path / "moves" / "manifest.json").read_text())["settings_source"]["kind"] == "file"
+    first = [item.page for item in related(with_moves, "start", k=3).items]
+    second = [item.page for item in related(without, "start", k=3).items]
+    assert first[0] == "hidden" and second[0] == "linked"
+    # one setting changed on the command line, on top of the file's
+    assert (
+        main(
+            [
+                "build",
+                "--wiki",
+                str(path),
+                "--index",
+                str(tmp_path / "lifted"),
+                "--settings",
+                str(moves),
+                "--lift",
+                "1",
+            ]
+        )
+        == 0
+    )
+    assert "changed on the command line: lift 1" in capsys.readouterr().out
+    lifted = load_index(tmp_path / "lifted").configuration
+    assert (lifted.lift, lifted.navigation_weight) == (1.0, 0.9)
+
+
+def test_a_bad_settings_file_is_refused_in_one_line(wiki, tmp_path, capsys):
+    from rankrec.cli import main
+
+    bad = tmp_path / "settings.json"
+    bad.write_text('{"format_version": 1, "configuration": {"damping": 1.5}}')
+    assert (
+        main(["build", "--wiki", str(wiki), "--index", str(tmp_path / "index"), "--settings", str(bad)]) == 2
+    )
+    err = capsys.readouterr().err
+    assert "settings.json" in err and "damping" in err and err.count("\n") == 1
+    assert not (tmp_path / "index").exists()  # nothing published
+    assert main(["build", "--wiki", str(wiki), "--index", str(tmp_path / "index"), "--damping", "2"]) == 2
+    assert "damping" in capsys.readouterr().err
