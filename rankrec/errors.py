@@ -106,10 +106,11 @@ class StaleIndex(StaleData):
 class GroupTooSmall(RankrecError):
     """Too few distinct active readers in a team to publish its reading profile.
 
-    The message gives the team and the counts only, never a member.
+    The message gives the team and the minimum only: neither a member nor the exact number of
+    active readers (``readers`` keeps it for the library's own use).
 
     >>> str(GroupTooSmall("ops", 2, 5))
-    "team 'ops' has 2 distinct active readers; at least 5 are needed"
+    "team 'ops' has too few distinct active readers for a shared list; at least 5 are needed"
     """
 
     def __init__(self, team: str | None, readers: int, minimum: int) -> None:
@@ -120,7 +121,9 @@ class GroupTooSmall(RankrecError):
 
     def __str__(self) -> str:
         who = "the group" if self.team is None else f"team {self.team!r}"
-        return f"{who} has {self.readers} distinct active readers; at least {self.minimum} are needed"
+        return (
+            f"{who} has too few distinct active readers for a shared list; at least {self.minimum} are needed"
+        )
 
     def __reduce__(self):
         return (type(self), (self.team, self.readers, self.minimum))

@@ -126,15 +126,8 @@ class Store(StoreReads):
     @contextmanager
     def transaction(self) -> Iterator[Store]:
         """Everything inside goes in together or not at all (also on KeyboardInterrupt)."""
-        self.connection.execute("BEGIN IMMEDIATE")
-        try:
+        with self._transaction("BEGIN IMMEDIATE"):
             yield self
-        except BaseException:
-            self.connection.execute("ROLLBACK")
-            self._page_ids.clear()
-            self._user_ids.clear()
-            raise
-        self.connection.execute("COMMIT")
 
     @contextmanager
     def reading(self) -> Iterator[Store]:
@@ -152,10 +145,16 @@ class Store(StoreReads):
         if self.connection.in_transaction:
             yield self
             return
-        self.connection.execute("BEGIN")
-        try:
+        with self._transaction("BEGIN"):
             self.connection.execute("SELECT count(*) FROM meta").fetchone()  # the snapshot starts here
             yield self
+
+    @contextmanager
+    def _transaction(self, begin: str) -> Iterator[None]:
+        """``begin``, then COMMIT; ROLLBACK (and forget cached ids) when anything inside raises."""
+        self.connection.execute(begin)
+        try:
+            yield
         except BaseException:
             self.connection.execute("ROLLBACK")
             self._page_ids.clear()

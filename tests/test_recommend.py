@@ -349,3 +349,26 @@ def test_team_vectors_stored_at_build_match_the_exact_solve(wiki, tmp_path):
     assert [item.page for item in landing(index, team, k=10, lift=0.0).items][:3] == [
         item.page for item in solved_now.items
     ][:3]
+
+
+def test_landing_reasons_never_give_exact_or_whole_team_counts(wiki):
+    # k-anonymity in outputs (common practice): counts banded to multiples of 5, shown only from the
+    # team minimum up, and a page every active reader read is only "widely read".
+    import re
+
+    from rankrec.recommend.lists import team_readers
+
+    path, _, index = wiki
+    with Store(path) as store:
+        team = team_from_store(store, index, "team0", min_readers=1)
+    result = landing(index, team, k=40)
+    for item in result.items:
+        count = int(team.read_by[index.page_number(item.page)])
+        found = re.fullmatch(r"read by (\d+) or more of your team", item.reason)
+        if found:
+            shown = int(found.group(1))
+            assert shown % 5 == 0 and 5 <= shown <= count < team.readers
+        assert not re.search(rf"\b{team.readers}\b of your team", item.reason)
+    assert team_readers(4, 9, 5) is None and team_readers(9, 9, 5) == "widely read in your team"
+    assert team_readers(7, 9, 5) == "read by 5 or more of your team"
+    assert str(GroupTooSmall("ops", 3, 5)).count("3") == 0

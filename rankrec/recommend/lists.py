@@ -27,7 +27,7 @@ from .candidates import page_candidates
 from .explain import FROM_RESTART, NO_LINK, VIA_PAGE, contributions, restart_scale
 from .select import cap_per_space, choose_pages, lifted
 
-READ_BY_MINIMUM = 3  # "read by N of your team" only from 3 readers up (small counts are not shown)
+READ_BY_BAND = 5  # "read by N or more of your team": N a multiple of 5, never the exact count
 
 
 @dataclass(frozen=True)
@@ -118,13 +118,34 @@ class _Audience:
     visible: np.ndarray
     read: np.ndarray | None = None  # pages the reader has in their profile
     read_by: np.ndarray | None = None  # team members who read each page
+    readers: int = 0  # the team's distinct active readers
+    minimum: int = 5  # the configuration's team_min_readers
     personal: bool = False
     seed: int | None = None
 
 
+def team_readers(count: int, readers: int, minimum: int) -> str | None:
+    """How a landing reason may say how many of a team read a page, or None to say nothing.
+
+    Counts are banded down to a multiple of :data:`READ_BY_BAND` and shown only from ``minimum``
+    readers up; a page every active reader read says "widely read", so a reason never tells that
+    each member read it, nor exactly how many did (a k-anonymity floor: common practice).
+
+    >>> team_readers(3, 12, 5), team_readers(13, 20, 5), team_readers(12, 12, 5)
+    (None, 'read by 10 or more of your team', 'widely read in your team')
+    """
+    if count < max(minimum, READ_BY_BAND):
+        return None
+    if count >= readers:
+        return "widely read in your team"
+    return f"read by {count // READ_BY_BAND * READ_BY_BAND} or more of your team"
+
+
 def _reason(index: Index, page: int, kind: int, via: int, space: int, audience: _Audience) -> str:
-    if audience.read_by is not None and audience.read_by[page] >= READ_BY_MINIMUM:
-        return f"read by {int(audience.read_by[page])} of your team"
+    if audience.read_by is not None:
+        said = team_readers(int(audience.read_by[page]), audience.readers, audience.minimum)
+        if said is not None:
+            return said
     if kind == NO_LINK:
         return "among the most linked-to pages of the wiki"
     if kind == FROM_RESTART and audience.personal:
@@ -367,7 +388,12 @@ def landing(
         personal = _personal_vector(index, team.restart, epsilon)
     chosen = _select(index, personal.vector, eligible, k, lift, per_space)
     explained = _explain_full(index, personal.vector, chosen, team.restart)
-    audience = _Audience(visible=team.visible, read_by=team.read_by)
+    audience = _Audience(
+        visible=team.visible,
+        read_by=team.read_by,
+        readers=team.readers,
+        minimum=index.configuration.team_min_readers,
+    )
     items = _items(index, chosen, personal.vector[chosen], lift, explained, audience)
     return Recommendations(
         "landing", team.name, items, personal.error_bound, int(eligible.sum()), time.perf_counter() - started
