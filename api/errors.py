@@ -132,5 +132,7 @@ def install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, error: Exception) -> JSONResponse:
-        log.exception("unexpected error on %s %s", request.method, request.url.path)
+        # the route template, not the path: the path holds page and user ids
+        template = getattr(request.scope.get("route"), "path", None) or "unmatched"
+        log.exception("unexpected error on %s %s", request.method, template)
         return JSONResponse(error_body("internal", "the service failed on this request"), status_code=500)

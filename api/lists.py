@@ -3,7 +3,9 @@
 Each route parses, asks the library (:mod:`rankrec.recommend`) and formats; the only thing added
 here is *who may see what*: every list is filtered by the viewer's access groups (no viewer, or a
 viewer the store does not know: pages visible to everyone only), a page the viewer may not see is
-answered like an unknown page, and a personal list is served only for its own viewer or an admin.
+answered exactly like an unknown page (same status, body and search, :func:`unknown_to`), and a
+personal list is served only for its own viewer or an admin. Every route is a plain ``def``: FastAPI
+runs it in its thread pool, so no CPU work or store read runs on the event loop.
 Library errors are answered by the app's one handler (:func:`api.errors.from_library`).
 """
 
@@ -12,7 +14,6 @@ from __future__ import annotations
 import dataclasses
 
 from fastapi import APIRouter, Path, Query, Request
-from starlette.concurrency import run_in_threadpool
 
 from rankrec.errors import UnknownPage, UnknownUser
 from rankrec.index import Index
@@ -50,15 +51,20 @@ def _reader(request: Request, loaded: Loaded, viewer: str | None):
         return None
 
 
+def unknown_to(index: Index, page: str, groups: frozenset[str] | None) -> UnknownPage:
+    """The one answer to a page that is absent or that a reader in ``groups`` may not see: its close
+    ids among the pages they may see, from the same bounded search whichever it is
+    (:meth:`rankrec.index.Index.close_ids` leaves ``page`` itself out before counting), so neither
+    the body nor the time tells a restricted page from a missing one (OWASP API Security Top 10
+    2023, API1 and API3: no object, and no property of one, beyond what the caller may see)."""
+    return UnknownPage(page, index.close_ids(page, allowed=lambda number: index.may_see(number, groups)))
+
+
 def _seed(index: Index, page: str, groups: frozenset[str] | None) -> int:
     """The page's number; 404 for a page that is unknown or that the viewer may not see (one answer)."""
-    try:
-        number = index.page_number(page)
-    except UnknownPage as error:
-        visible = [name for name in error.suggestions if index.may_see(index.page_number(name), groups)]
-        raise UnknownPage(page, visible) from None
-    if not index.may_see(number, groups):
-        raise UnknownPage(page)
+    number = index.find(page)
+    if number is None or not index.may_see(number, groups):
+        raise unknown_to(index, page, groups)
     return number
 
 
@@ -86,7 +92,7 @@ def make_router(max_k: int) -> APIRouter:
         responses=error_responses(401, 404, 422, 503),
         summary="Pages related to a page",
     )
-    async def related_pages(
+    def related_pages(
         request: Request,
         caller: ReaderCaller,
         page: str = Path(description="page id, percent-encoded (a '/' travels as %2F)"),
@@ -96,11 +102,10 @@ def make_router(max_k: int) -> APIRouter:
         lift: float | None = _lift,
         per_space: int | None = Query(None, ge=1, le=max_k, description="at most this many from one space"),
     ) -> ListResponse:
-        # on the event loop: the library call is CPU only on memory-mapped arrays (a fraction of a
-        # millisecond for a precomputed list), cheaper than a thread hand-off; the viewer's store
-        # reads (SQLite, may wait on a lock) go to the thread pool
+        # a plain def, so in the thread pool: the viewer's store reads may wait on a lock, a page not
+        # precomputed costs a push, an unknown id a close-id search; none of it on the event loop
         loaded = loaded_index(request)
-        reader = None if viewer is None else await run_in_threadpool(_reader, request, loaded, viewer)
+        reader = _reader(request, loaded, viewer)
         number = _seed(loaded.index, page, None if reader is None else reader.groups)
         result = related(
             loaded.index,

@@ -1,12 +1,15 @@
-"""Plain ASGI middleware: request metrics (prometheus) and the request body size limit.
+"""Plain ASGI middleware: request metrics (prometheus), the access log, and the request body size limit.
 
-Metrics are labelled by the route *template* (``/v1/pages/{page}/related``), never by the raw
-path, so page and user ids do not become label values.
+Metrics and the access log (logger ``rankrec.api.access``: method, route template, status, time)
+name the route *template* (``/v1/pages/{page}/related``), never the raw path or query, so page and
+user ids (who read what) do not become label values or log lines. ``rankrec serve`` turns uvicorn's
+own access log, which writes the raw request line, off.
 """
 
 from __future__ import annotations
 
 import json
+import logging
 import time
 from datetime import datetime
 
@@ -14,6 +17,8 @@ from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram
 from starlette.exceptions import HTTPException
 
 from .errors import error_body
+
+access_log = logging.getLogger("rankrec.api.access")
 
 # 0.5 ms to 5 s: related lists answer in about a millisecond, personal lists in tens (common practice:
 # buckets spanning the expected latencies with roughly 2-2.5x steps)
@@ -61,8 +66,13 @@ def index_age(live) -> float:
     return -1.0 if loaded is None else max(0.0, time.time() - built_at(loaded))
 
 
+def route_template(scope) -> str:
+    """The template of the route that answered (``"unmatched"`` if none): never a page or user id."""
+    return getattr(scope.get("route"), "path", None) or "unmatched"
+
+
 class MetricsMiddleware:
-    """Count every HTTP request and time it, labelled by the route template that answered it."""
+    """Count every HTTP request, time it and log it, by the route template that answered it."""
 
     def __init__(self, app, metrics: ServiceMetrics) -> None:
         self.app = app
@@ -83,10 +93,11 @@ class MetricsMiddleware:
         try:
             await self.app(scope, receive, sending)
         finally:
-            route = scope.get("route")
-            template = getattr(route, "path", None) or "unmatched"
+            template = route_template(scope)
+            seconds = time.perf_counter() - started
             self.metrics.requests.labels(template, scope["method"], str(status["code"])).inc()
-            self.metrics.latency.labels(template).observe(time.perf_counter() - started)
+            self.metrics.latency.labels(template).observe(seconds)
+            access_log.info("%s %s %d %.1f ms", scope["method"], template, status["code"], seconds * 1000)
 
 
 class _TooLarge(HTTPException):

@@ -3,8 +3,9 @@
 ``POST /v1/views`` appends a batch of views to the store in one transaction and answers only
 after the commit is on disk (SQLite WAL with ``synchronous=FULL``, :meth:`rankrec.store.Store.
 append_views`). Each record is checked as the views reader checks it (:func:`rankrec.sources.
-check_view`); one bad record, or a page the wiki does not hold, refuses the whole batch with
-422 ``invalid_view`` naming the record's index. Every write goes through one connection guarded
+check_view`); one bad record, a page the wiki does not hold, or a page the record's user may not
+see (answered as if the wiki did not hold it), refuses the whole batch with 422 ``invalid_view``
+naming the record's index. Every write goes through one connection guarded
 by a lock (SQLite allows one writer at a time). With a pseudonym key configured, user ids are
 stored as their keyed pseudonyms (:func:`api.service.Service.user_id`).
 """
@@ -240,6 +241,40 @@ def _records(views: list[ViewIn], user_id: Callable[[str], str]) -> list[ViewRec
     return records
 
 
+def _first_hidden(request: Request, records: list[ViewRecord], keeper: ViewKeeper) -> int | None:
+    """The record to refuse when the batch names a page that its user may not see, else None.
+
+    A view of a restricted page by a non-member is refused with the answer a page the wiki does not
+    hold gets (``invalid_view``, "unknown page"), so a reader token cannot find restricted ids by
+    posting views (OWASP API Security Top 10 2023, API1: object level authorisation). The record
+    named is the first one that is hidden from its user or absent from the live index, as the store
+    names the first absent page of a batch. Page groups come from the live index: with none live, or
+    for a page published after it was built, only the store's check applies.
+    """
+    loaded = request.app.state.service.live.current
+    if loaded is None:
+        return None
+    index = loaded.index
+    numbers = {page: index.find(page) for page in {record.page for record in records}}
+    restricted = {page for page, number in numbers.items() if number is not None and not index.public[number]}
+    if not restricted:
+        return None
+    store = request.app.state.service.read_store(keeper._wiki())  # the store the views go to
+    with store.reading():
+        rows = {record.user: store.user_row(record.user) for record in records if record.page in restricted}
+        groups = store.groups_of_users([row for row in rows.values() if row is not None])
+    first_absent = None
+    for position, record in enumerate(records):
+        number = numbers[record.page]
+        if number is None:
+            first_absent = position if first_absent is None else first_absent
+        elif record.page in restricted:
+            row = rows[record.user]
+            if not index.may_see(number, None if row is None else groups[row]):
+                return position if first_absent is None else first_absent
+    return None
+
+
 # -- routes --------------------------------------------------------------------------------------------
 router = APIRouter(route_class=_ViewsRoute, tags=["views"])
 
@@ -258,6 +293,9 @@ def post_views(
     if len(batch.views) > limit:
         raise ApiError(413, "too_large", f"at most {limit} views per request; got {len(batch.views)}")
     records = _records(batch.views, request.app.state.service.user_id)
+    hidden = _first_hidden(request, records, keeper)
+    if hidden is not None:
+        raise _invalid(hidden, f"unknown page {records[hidden].page!r}")
     try:
         stored = keeper.write(lambda store: store.append_views(records, known_pages_only=True))
     except UnknownPage as error:

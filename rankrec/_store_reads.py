@@ -14,11 +14,16 @@ from __future__ import annotations
 
 import itertools
 import sqlite3
+import zlib
 from collections.abc import Iterator, Sequence
 
 import numpy as np
 
+from .errors import InputError
+from .sources.records import TEXT_BYTES
+
 _CHUNK = 500  # row ids per IN (...) query: well under SQLite's limit on bound parameters
+_TEXT_TABLES = ("page_text", "link_places", "link_occurrences")  # absent from stores made before them
 _TOPIC_PAIRS = {
     "spaces": "SELECT space, id FROM pages WHERE present = 1 AND archived = 0 AND space IS NOT NULL",
     "tags": "SELECT tag, pages.id FROM page_tags JOIN pages ON pages.id = page_id "
@@ -37,6 +42,8 @@ class StoreReads:
     """Read methods of :class:`rankrec.store.Store`, which supplies ``connection`` and ``reading``."""
 
     connection: sqlite3.Connection
+    path: str
+    _text_tables: bool
 
     # -- plain queries -------------------------------------------------------------------------
     def scalar(self, sql: str, parameters: tuple = ()):
@@ -48,6 +55,16 @@ class StoreReads:
         cursor = self.connection.execute(sql)
         flat = np.fromiter(itertools.chain.from_iterable(cursor), dtype=np.float64, count=count * width)
         return flat.reshape(count, width)
+
+    def _has_text_tables(self) -> bool:
+        """True when the store has its text and link-place tables (an older store may not, until written)."""
+        if not self._text_tables:
+            marks = ",".join("?" * len(_TEXT_TABLES))
+            found = self.scalar(
+                f"SELECT count(*) FROM sqlite_master WHERE type = 'table' AND name IN ({marks})", _TEXT_TABLES
+            )
+            self._text_tables = found == len(_TEXT_TABLES)
+        return self._text_tables
 
     # -- sizes -----------------------------------------------------------------------------------
     def counts(self) -> dict[str, int]:
@@ -119,6 +136,60 @@ class StoreReads:
             "WHERE present = 1 AND archived = 0 GROUP BY pages.id ORDER BY pages.id"
         ).fetchall()
 
+    def page_texts_by_row(self, rows: Sequence[int] | None = None) -> tuple[np.ndarray, list[str], list[str]]:
+        """Row ids (ascending), headings and text of the present pages that have text.
+
+        ``rows`` (page row ids) restricts the answer to those pages, so that a large wiki can be
+        read in pieces inside one :meth:`~rankrec.store.Store.reading` block. Archived pages are
+        included. Pages without text (and every page of a store without text) are left out.
+        """
+        found: list[tuple[int, str, bytes]] = []
+        if self._has_text_tables():
+            sql = (
+                "SELECT page_id, headings, text FROM page_text JOIN pages ON pages.id = page_id "
+                "WHERE present = 1"
+            )
+            if rows is None:
+                found = self.connection.execute(sql + " ORDER BY page_id").fetchall()
+            else:
+                for chunk, marks in _chunks(sorted({int(row) for row in rows})):
+                    found += self.connection.execute(f"{sql} AND page_id IN ({marks})", chunk).fetchall()
+                found.sort()
+        ids = np.fromiter((row[0] for row in found), dtype=np.int64, count=len(found))
+        return ids, [row[1] for row in found], [self._inflate(row[0], row[2]) for row in found]
+
+    def _inflate(self, row: int, data: bytes) -> str:
+        """A stored page text: zlib-compressed UTF-8, never read past the 64 KiB a text may hold."""
+        try:
+            inflater = zlib.decompressobj()
+            text = inflater.decompress(data, TEXT_BYTES + 1)
+            if len(text) > TEXT_BYTES or not inflater.eof:
+                raise zlib.error("longer than a page text may be")
+            return text.decode("utf-8")
+        except (zlib.error, UnicodeDecodeError) as error:
+            raise InputError(self.path, None, f"stored text of page row {row} is damaged ({error})") from None
+
+    def page_text_hashes(self) -> tuple[np.ndarray, list[str]]:
+        """Row ids (ascending) and SHA-256 hex digests of the UTF-8 text of present pages with text."""
+        found = []
+        if self._has_text_tables():
+            found = self.connection.execute(
+                "SELECT page_id, sha256 FROM page_text JOIN pages ON pages.id = page_id WHERE present = 1 "
+                "ORDER BY page_id"
+            ).fetchall()
+        ids = np.fromiter((row[0] for row in found), dtype=np.int64, count=len(found))
+        return ids, [row[1] for row in found]
+
+    def text_counts(self) -> tuple[int, int]:
+        """How many present pages have text, and their UTF-8 bytes in all (before compression)."""
+        if not self._has_text_tables():
+            return 0, 0
+        pages, size = self.connection.execute(
+            "SELECT count(*), coalesce(sum(text_bytes), 0) FROM page_text JOIN pages ON pages.id = page_id "
+            "WHERE present = 1"
+        ).fetchone()
+        return int(pages), int(size)
+
     def unresolved_targets(self, limit: int) -> list[tuple[str, int]]:
         """``(page, links)`` of the ``limit`` missing pages most linked to (most first, ties by page)."""
         return self.connection.execute(
@@ -160,6 +231,39 @@ class StoreReads:
         present[present_ids] = True
         keep = present[sources] & present[targets]
         return sources[keep], targets[keep], table[keep, 2]
+
+    def link_place_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, list[str]]:
+        """Where the links between present pages sit: one row per (source, target, place).
+
+        Returns source row ids, target row ids, place codes and occurrence counts (ordered by
+        source, target, then place code), and the place strings, sorted, that the codes index.
+        Links from sources without structure (edge lists) and stores without places have no rows.
+        """
+        empty = np.zeros(0, dtype=np.int64)
+        with self.reading():
+            if not self._has_text_tables():
+                return empty, empty, empty, empty, []
+            count = self.scalar("SELECT count(*) FROM link_occurrences")
+            table = self._columns(
+                "SELECT source_id, target_id, place_id, occurrences FROM link_occurrences "
+                "ORDER BY source_id, target_id, place_id",
+                count,
+                4,
+            ).astype(np.int64)
+            names = dict(self.connection.execute("SELECT id, place FROM link_places").fetchall())
+            top = self.scalar("SELECT coalesce(max(id), 0) FROM pages")
+            present_ids = self.present_pages()[0]
+        present = np.zeros(top + 1, dtype=bool)
+        present[present_ids] = True
+        table = table[present[table[:, 0]] & present[table[:, 1]]]
+        used, codes = np.unique(table[:, 2], return_inverse=True)
+        places = [names[int(place)] for place in used]
+        order = sorted(range(len(places)), key=places.__getitem__)
+        rank = np.empty(len(places), dtype=np.int64)
+        rank[order] = np.arange(len(places))
+        codes = rank[codes.reshape(-1)] if len(places) else empty
+        keep = np.lexsort((codes, table[:, 1], table[:, 0]))
+        return table[keep, 0], table[keep, 1], codes[keep], table[keep, 3], [places[i] for i in order]
 
     # -- users and memberships ---------------------------------------------------------------------
     def users(self) -> tuple[np.ndarray, list[str]]:

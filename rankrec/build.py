@@ -16,8 +16,9 @@ same :func:`build_from_evidence`, so what is evaluated is what is served. The st
 
 from __future__ import annotations
 
+import fnmatch
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -27,153 +28,52 @@ from ._atomic import publish_folder
 from ._validation import check_choice, check_count, check_fraction
 from .basis import build_basis, save_basis
 from .configuration import Configuration
-from .errors import GroupTooSmall, InputError
-from .graph import WikiGraph, blend_navigation, dense_numbers, load_graph, navigation_counts
-from .graph import fingerprint as graph_fingerprint
+from .errors import GroupTooSmall
+from .evidence import Evidence, read_evidence
+from .graph import blend_navigation, chrome_pairs, content_matrix, dense_numbers, navigation_counts
 from .index import IndexManifest, write_tables
 from .pagerank import personalised_pagerank, prepare
-from .profiles import SECONDS_PER_DAY, ViewLog, reader_profiles, team_restart
+from .profiles import SECONDS_PER_DAY, reader_profiles, team_restart
 from .progress import Progress, report
 from .recommend.candidates import DEFAULT_K_RELATED, write_related
 from .store import Store
-from .topics import store_topics, text_topics
+from .text import save_text_neighbours, text_neighbours
 
 EXACT_LIMIT = 5_000  # method "auto": block power iteration up to this many pages, push above
 
 
-@dataclass(frozen=True, eq=False)
-class Evidence:
-    """Everything a build reads from a store (see :func:`read_evidence`)."""
-
-    graph: WikiGraph
-    titles: list[str]
-    space_names: list[str]
-    space_codes: np.ndarray
-    archived: np.ndarray
-    group_incidence: sp.csr_array
-    group_names: list[str]
-    views: ViewLog
-    teams: dict[str, np.ndarray]
-    reader_groups: dict[int, frozenset[str]]
-    topics: dict[str, np.ndarray]
-    topic_kind: str
-    store: str
-    store_import: int | None = None
-    notes: tuple[str, ...] = field(default=())
-
-    @property
-    def size(self) -> int:
-        return self.graph.size
-
-    @classmethod
-    def from_links(cls, adjacency, views: ViewLog | None = None) -> Evidence:
-        """A wiki known only by its link matrix (pages ``p0, p1, ...``, no spaces, groups or teams)."""
-        adjacency = sp.csr_matrix(adjacency, dtype=np.float64)
-        adjacency.sum_duplicates()
-        adjacency.sort_indices()
-        size = adjacency.shape[0]
-        pages = np.array([f"p{number}" for number in range(size)], dtype=object)
-        graph = WikiGraph(
-            pages,
-            adjacency,
-            np.arange(1, size + 1, dtype=np.int64),
-            fingerprint=graph_fingerprint(pages, adjacency),
-        )
-        empty = np.zeros(0, dtype=np.int64)
-        return cls(
-            graph=graph,
-            titles=pages.tolist(),
-            space_names=[],
-            space_codes=np.full(size, -1, dtype=np.int32),
-            archived=np.zeros(size, dtype=bool),
-            group_incidence=sp.csr_array((size, 0), dtype=np.int8),
-            group_names=[],
-            views=views if views is not None else ViewLog(empty, empty, empty),
-            teams={},
-            reader_groups={},
-            topics={},
-            topic_kind="none",
-            store=":memory:",
-        )
-
-    def with_views(self, views: ViewLog) -> Evidence:
-        """The same wiki with another reading history (for example a split's training part)."""
-        return replace(self, views=views)
+def chrome_only(evidence: Evidence) -> sp.csr_matrix | None:
+    """Pages × pages, 1 where a link is page chrome wherever it occurs (None when links carry no places)."""
+    _, judgement = content_matrix(evidence.graph.adjacency, evidence.places, chrome_weight=0.0)
+    return chrome_pairs(evidence.size, evidence.places, judgement)
 
 
-def _group_tables(size: int, pages: np.ndarray, names: list[str]) -> tuple[sp.csr_array, list[str]]:
-    """Pages × groups incidence (CSR, int8) from dense page numbers and group names side by side."""
-    unique = sorted(set(names))
-    code = {name: position for position, name in enumerate(unique)}
-    groups = np.fromiter((code[name] for name in names), dtype=np.int64, count=len(names))
-    keep = pages >= 0
-    incidence = sp.csr_array(
-        (np.ones(int(keep.sum()), dtype=np.int8), (pages[keep], groups[keep])), shape=(size, len(unique))
-    )
-    incidence.sum_duplicates()
-    return incidence, unique
-
-
-def _topics(store: Store, graph: WikiGraph, topics: str) -> dict[str, np.ndarray]:
-    if topics in ("spaces", "tags"):
-        return store_topics(store, graph, topics)
-    if topics == "none":
-        return {}
-    if topics.startswith("text:") and topics[5:].isdigit() and int(topics[5:]) > 0:
-        return text_topics(store, graph, int(topics[5:]))
-    raise ValueError(f"topics must be 'spaces', 'tags', 'none' or 'text:K' (K > 0); got {topics!r}")
-
-
-def read_evidence(store: Store, *, topics: str = "spaces") -> Evidence:
-    """Read what a build needs from ``store`` in one snapshot (views arriving meanwhile wait for the next)."""
-    with store.reading():
-        graph = load_graph(store)
-        if graph.size < 2:
-            raise InputError(store.path, None, "the wiki store holds fewer than two pages; import some first")
-        rows = store.page_table()
-        titles = [row[0] or page for row, page in zip(rows, graph.pages.tolist(), strict=True)]
-        space_names = sorted({row[1] for row in rows if row[1] is not None})
-        space_code = {name: position for position, name in enumerate(space_names)}
-        space_codes = np.fromiter(
-            (space_code.get(row[1], -1) for row in rows), dtype=np.int32, count=len(rows)
-        )
-        archived = np.fromiter((bool(row[2]) for row in rows), dtype=bool, count=len(rows))
-        pairs = store.page_group_pairs()
-        grouped = dense_numbers(graph.row_ids, np.array([row[0] for row in pairs], dtype=np.int64))
-        incidence, group_names = _group_tables(graph.size, grouped, [row[1] for row in pairs])
-        users, viewed, times = store.view_arrays()
-        teams: dict[str, list[int]] = {}
-        for user, name in store.memberships("team"):
-            teams.setdefault(name, []).append(int(user))
-        groups: dict[int, set[str]] = {}
-        for user, name in store.memberships("group"):
-            groups.setdefault(int(user), set()).add(name)
-        topic_sets = _topics(store, graph, topics)
-        store_import = store.latest_import()
-    return Evidence(
-        graph=graph,
-        titles=titles,
-        space_names=space_names,
-        space_codes=space_codes,
-        archived=archived,
-        group_incidence=incidence,
-        group_names=group_names,
-        views=ViewLog(users, dense_numbers(graph.row_ids, viewed), times),
-        teams={name: np.array(sorted(members), dtype=np.int64) for name, members in sorted(teams.items())},
-        reader_groups={user: frozenset(names) for user, names in groups.items()},
-        topics=topic_sets,
-        topic_kind=topics,
-        store=str(Path(store.path).resolve()) if store.path != ":memory:" else ":memory:",
-        store_import=store_import,
-    )
+def _chrome_summary(evidence: Evidence, judgement) -> dict:
+    if judgement is None:
+        return {"judged": False}
+    names, pages = evidence.places.names, evidence.graph.pages
+    return {
+        "judged": True,
+        "occurrences": int(judgement.occurrences),
+        "chrome_occurrences": int(judgement.chrome_occurrences),
+        "share": round(float(judgement.chrome_share), 4),
+        "places": [names[int(code)] for code in judgement.chrome_places[:10]],
+        "top_targets": [str(pages[int(page)]) for page in judgement.top_targets[:10]],
+    }
 
 
 def navigation_matrix(evidence: Evidence, configuration: Configuration) -> tuple[sp.csr_matrix, dict]:
-    """The link matrix blended with observed navigation (see the module docstring), and what it counted."""
-    links = evidence.graph.adjacency
+    """The link matrix (page chrome judged and weighed by ``chrome_weight``:
+    :func:`rankrec.graph.content_matrix`) blended with observed navigation (see the module docstring),
+    and what it counted."""
+    links, judgement = content_matrix(
+        evidence.graph.adjacency, evidence.places, chrome_weight=configuration.chrome_weight
+    )
+    chrome = _chrome_summary(evidence, judgement)
     views = evidence.views
     if configuration.navigation_weight == 0 or views.times.size == 0:
-        return links, {"weight": configuration.navigation_weight, "moves": 0, "pages_with_moves": 0}
+        summary = {"weight": configuration.navigation_weight, "moves": 0, "pages_with_moves": 0}
+        return links, summary | {"chrome": chrome}
     keep = np.ones(views.times.size, dtype=bool)
     if configuration.navigation_window_days is not None:
         keep = views.times >= views.latest - configuration.navigation_window_days * SECONDS_PER_DAY
@@ -189,6 +89,7 @@ def navigation_matrix(evidence: Evidence, configuration: Configuration) -> tuple
         "weight": configuration.navigation_weight,
         "moves": int(counts.sum()),
         "pages_with_moves": int(np.count_nonzero(np.diff(counts.indptr))),
+        "chrome": chrome,
     }
     return blended, summary
 
@@ -223,6 +124,18 @@ def _team_vectors(evidence, transition, configuration, workers) -> tuple[list[st
         )
         vectors[first : first + block.shape[1]] = result.vectors.T
     return names, vectors
+
+
+def skipped_pages(evidence: Evidence, patterns) -> np.ndarray:
+    """Pages whose id matches one of the shell ``patterns`` (``fnmatch`` rules, case-sensitive)."""
+    skipped = np.zeros(evidence.size, dtype=bool)
+    if patterns:
+        ids = evidence.graph.pages.tolist()
+        matched = set()
+        for pattern in patterns:
+            matched.update(fnmatch.filter(ids, pattern))
+        skipped[[number for number, page in enumerate(ids) if page in matched]] = True
+    return skipped
 
 
 def precomputed_pages(views: np.ndarray, view_share: float | None) -> np.ndarray:
@@ -324,6 +237,17 @@ def build_from_evidence(
     seconds["teams"] = time.perf_counter() - started
     report(progress, "team vectors", 1, 1)
 
+    started = time.perf_counter()
+    text = None
+    if evidence.has_text and configuration.text_weight > 0:
+        text = text_neighbours(
+            evidence.headings, evidence.bodies, title_weight=configuration.title_weight, progress=progress
+        )
+    seconds["text"] = time.perf_counter() - started
+    skipped = skipped_pages(evidence, configuration.skip_pages)
+    if skipped.any():  # kept out of every list as archived pages are
+        evidence = replace(evidence, archived=evidence.archived | skipped)
+
     if related_pages is not None:
         chosen = np.unique(np.asarray(related_pages, dtype=np.int64))
         if chosen.size and (chosen[0] < 0 or chosen[-1] >= size):
@@ -337,6 +261,8 @@ def build_from_evidence(
         write_tables(staging, evidence, transition, global_vector.vectors, views, team_names, team_vectors)
         if basis is not None:
             save_basis(basis, staging / "basis")
+        if text is not None:
+            save_text_neighbours(text, staging / "text")
         begun = time.perf_counter()
         write_related(staging, chosen, method, configuration, k_related, workers, progress)
         seconds["related"] = time.perf_counter() - begun
@@ -359,6 +285,9 @@ def build_from_evidence(
                 "hubs": int(hub_pages.size),
                 "precomputed": int(chosen.size),
                 "views": int(views.sum()),
+                "skipped": int(skipped.sum()),
+                "pages_with_text": 0 if evidence.bodies is None else sum(map(bool, evidence.bodies)),
+                "text_pairs": 0 if text is None else text.pairs,
             },
             store=evidence.store,
             store_import=evidence.store_import,

@@ -59,6 +59,16 @@ class Configuration:
     vector_epsilon : float
         Residual threshold of the push that completes a whole personalised vector (personal and team
         lists, a related list mixed with the reader's vector).
+    chrome_weight : float in [0, 1]
+        Weight kept for a link judged page chrome (site header, footer, prev/next bars:
+        :mod:`rankrec.chrome`) against 1 for a content link; 0 drops chrome from the link graph.
+    text_weight : float in [0, 1]
+        Share of text similarity in a related list's score: ``(1 − w)·ppr/max ppr + w·text/max text`` over
+        the union of the page's PageRank candidates and its text neighbours (0: links and reading alone).
+    title_weight : float in [0, 1]
+        Share of the title-and-headings field in text similarity (the rest is the body text).
+    skip_pages : tuple of str
+        Shell patterns of page ids kept out of every list (generated indexes, source listings).
     ranker : dict
         Settings of a learnt ranker (empty: none).
     """
@@ -75,6 +85,10 @@ class Configuration:
     recent_days: float = 30.0
     related_epsilon: float = 1e-5
     vector_epsilon: float = 1e-6
+    chrome_weight: float = 0.0
+    text_weight: float = 0.5
+    title_weight: float = 0.4
+    skip_pages: tuple[str, ...] = ()
     ranker: dict = field(default_factory=dict, hash=False)
 
     def __post_init__(self) -> None:
@@ -98,6 +112,11 @@ class Configuration:
         set_value(self, "recent_days", check_positive("recent_days", self.recent_days))
         set_value(self, "related_epsilon", _below_one("related_epsilon", self.related_epsilon))
         set_value(self, "vector_epsilon", _below_one("vector_epsilon", self.vector_epsilon))
+        for name in ("chrome_weight", "text_weight", "title_weight"):
+            set_value(self, name, check_fraction(name, getattr(self, name)))
+        if isinstance(self.skip_pages, str) or not all(isinstance(item, str) for item in self.skip_pages):
+            raise TypeError(f"skip_pages must be a list of shell patterns, not {self.skip_pages!r}")
+        set_value(self, "skip_pages", tuple(self.skip_pages))
         if not isinstance(self.ranker, dict):
             raise TypeError(f"ranker must be a dict, not {type(self.ranker).__name__} {self.ranker!r}")
 

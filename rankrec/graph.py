@@ -144,3 +144,63 @@ def load_graph(store: Store) -> WikiGraph:
         row_ids=row_ids,
         fingerprint=fingerprint(page_array, adjacency),
     )
+
+
+# -- page chrome -------------------------------------------------------------------------------------
+@dataclass(frozen=True, eq=False)
+class LinkPlaces:
+    """Where each link sits: one row per (source, target, place) in dense page numbers, with its count;
+    ``names[code]`` is the place string (see :class:`rankrec.sources.records.LinkRecord`)."""
+
+    sources: np.ndarray
+    targets: np.ndarray
+    places: np.ndarray
+    counts: np.ndarray
+    names: list[str]
+
+    def keeping(self, links) -> LinkPlaces:
+        """Only the rows whose (source, target) pair ``links`` holds."""
+        matrix = sp.csr_matrix(links)
+        keep = np.asarray(matrix[self.sources, self.targets]).ravel() != 0 if self.sources.size else []
+        return LinkPlaces(
+            self.sources[keep], self.targets[keep], self.places[keep], self.counts[keep], self.names
+        )
+
+
+def content_matrix(adjacency, places: LinkPlaces | None, *, chrome_weight: float):
+    """The link matrix with page chrome judged (:func:`rankrec.chrome.judge_chrome`) and weighed down.
+
+    Rows of pages whose links carry places are rebuilt from those places: a content occurrence counts
+    1, a chrome one ``chrome_weight`` (0 drops it). Rows of other pages (edge lists) stay as they are.
+    Returns the matrix and the judgement (None without places).
+    """
+    from .chrome import content_weights, judge_chrome
+
+    if places is None or places.sources.size == 0:
+        return adjacency, None
+    size = adjacency.shape[0]
+    judgement = judge_chrome(places.sources, places.targets, places.places, places.counts, size)
+    weights = sp.csr_matrix(
+        content_weights(
+            places.sources, places.targets, places.counts, judgement.chrome, size, chrome_weight=chrome_weight
+        )
+    )
+    placed = np.zeros(size, dtype=bool)
+    placed[places.sources] = True
+    kept = sp.diags((~placed).astype(np.float64)) @ sp.csr_matrix(adjacency)
+    matrix = sp.csr_matrix(kept + weights)
+    matrix.eliminate_zeros()
+    matrix.sort_indices()
+    return matrix, judgement
+
+
+def chrome_pairs(size: int, places: LinkPlaces | None, judgement) -> sp.csr_matrix | None:
+    """Pages × pages, 1 where every occurrence of the link i -> j is chrome (None without places)."""
+    if places is None or judgement is None or places.sources.size == 0:
+        return None
+    shape = (size, size)
+    rows, columns = places.sources, places.targets
+    total = sp.csr_matrix((np.ones(rows.size), (rows, columns)), shape=shape)
+    chrome = sp.csr_matrix((judgement.chrome.astype(np.float64), (rows, columns)), shape=shape)
+    only = sp.csr_matrix((total - chrome) == 0).multiply(total > 0)
+    return sp.csr_matrix(only, dtype=np.float64)

@@ -3,6 +3,9 @@
 Forgiving (default): bad records are skipped and reported; the call fails only when no good
 record was read at all. Strict: the first bad record raises its InputError and the store is
 left exactly as it was.
+
+A page's text and the places of its links go in with it: a re-imported page replaces its text
+(a source without text leaves it without) and its links' places, as it replaces its out-links.
 """
 
 from __future__ import annotations
@@ -51,6 +54,7 @@ class _Batch:
     """Rows waiting to be written; a page's old out-links are forgotten before its first new one."""
 
     links: list = field(default_factory=list)
+    places: list = field(default_factory=list)  # (source, target, place, occurrences)
     views: list = field(default_factory=list)
     memberships: list = field(default_factory=list)
     cleared: set = field(default_factory=set)
@@ -61,7 +65,9 @@ class _Batch:
             store.clear_links_from(fresh)
             self.cleared |= fresh
             store.put_links(self.links)
+            store.put_link_places(self.places)
             self.links.clear()
+            self.places.clear()
         if self.views and (force or len(self.views) >= _BATCH):
             store.put_views(self.views)
             self.views.clear()
@@ -205,6 +211,7 @@ def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
         if item.source == item.target:
             return InputError(item.origin.file, item.origin.line, f"self-link of {item.source!r} dropped")
         batch.links.append((item.source, item.target, item.weight))
+        batch.places.extend((item.source, item.target, place, count) for place, count in item.occurrences())
     elif isinstance(item, PageRecord):
         if format in _IMPLICIT_PAGES:
             store.put_page(item, describe=False)

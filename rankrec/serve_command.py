@@ -12,6 +12,7 @@ and indexed first; when the tokens file is missing, one is made with an admin to
 from __future__ import annotations
 
 import argparse
+import copy
 import os
 import sys
 from pathlib import Path
@@ -70,6 +71,15 @@ def register(commands) -> None:
     add.add_argument("--role", required=True, choices=("reader", "admin"), help="what the token may do")
     add.add_argument("--tokens", required=True, metavar="FILE", help="the tokens file (created if missing)")
     add.set_defaults(run=_cmd_token_add)
+    revoke = actions.add_parser(
+        "revoke",
+        help="remove a token: a running service refuses it within seconds",
+        description="Remove the token of NAME from the file; a running service re-reads the file "
+        "and refuses the token within a few seconds, without a restart.",
+    )
+    revoke.add_argument("name", metavar="NAME", help="whose token to remove")
+    revoke.add_argument("--tokens", required=True, metavar="FILE", help="the tokens file")
+    revoke.set_defaults(run=_cmd_token_revoke)
 
 
 def _cmd_token_add(args: argparse.Namespace) -> int:
@@ -81,6 +91,17 @@ def _cmd_token_add(args: argparse.Namespace) -> int:
         raise UsageError(str(error)) from None
     print(token)
     print(f"(shown once; {args.tokens} keeps only its hash)", file=sys.stderr)
+    return 0
+
+
+def _cmd_token_revoke(args: argparse.Namespace) -> int:
+    from .tokens import revoke_token
+
+    try:
+        entry = revoke_token(Path(args.tokens), args.name)
+    except ValueError as error:  # no token of that name
+        raise UsageError(str(error)) from None
+    print(f"revoked the {entry.role} token of {entry.name} (a running service refuses it within seconds)")
     return 0
 
 
@@ -155,5 +176,27 @@ def _cmd_serve(args: argparse.Namespace) -> int:
     environment = serve_settings(args)
     os.environ.update(environment)
     print(f"serving on http://{args.host}:{args.port}/ (preview: /preview, API: /docs)", file=sys.stderr)
-    uvicorn.run(FACTORY, factory=True, host=args.host, port=args.port, log_level="info")
+    uvicorn.run(FACTORY, **uvicorn_options(args.host, args.port))
     return 0
+
+
+def uvicorn_options(host: str, port: int) -> dict:
+    """What ``rankrec serve`` hands ``uvicorn.run`` besides the factory's name.
+
+    uvicorn's access log is off: it writes the raw request line, whose path and query hold page and
+    user ids (who read what), outside pseudonymisation, retention and erasure. The service logs each
+    request itself by route template (logger ``rankrec.api.access``); its ``rankrec.api`` loggers
+    are given uvicorn's console handler.
+    """
+    from uvicorn.config import LOGGING_CONFIG
+
+    config = copy.deepcopy(LOGGING_CONFIG)
+    config["loggers"]["rankrec.api"] = {"handlers": ["default"], "level": "INFO", "propagate": False}
+    return {
+        "factory": True,
+        "host": host,
+        "port": port,
+        "log_level": "info",
+        "access_log": False,
+        "log_config": config,
+    }

@@ -1,4 +1,4 @@
-"""Summary of a wiki store: sizes, graph shape, reading history, and the worst unresolved links."""
+"""Summary of a wiki store: sizes, graph shape, text coverage, reading history, the worst unresolved links."""
 
 from __future__ import annotations
 
@@ -30,10 +30,13 @@ def _iso(timestamp: float | None) -> str | None:
 def wiki_stats(store: Store, *, worst: int = 10) -> dict:
     """Everything `rankrec stats` shows, as one JSON-ready mapping.
 
+    ``text`` is the text coverage: present pages with text, their share of the present pages,
+    and the UTF-8 bytes of their stored text (before compression).
+
     >>> with Store(":memory:") as store:
     ...     summary = wiki_stats(store)
-    >>> summary["pages"], summary["dangling"], summary["largest_scc"]
-    (0, 0, 0)
+    >>> summary["pages"], summary["dangling"], summary["largest_scc"], summary["text"]["pages"]
+    (0, 0, 0, 0)
     """
     with store.reading():
         summary: dict = store.counts()
@@ -44,6 +47,7 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         users, pages, times = store.view_arrays()
         worst_targets = store.unresolved_targets(worst)
         worst_sources = store.pages_with_unresolved_links(worst)
+        with_text, text_bytes = store.text_counts()
     n = ids.size
     rows = np.searchsorted(ids, sources)
     columns = np.searchsorted(ids, targets)
@@ -55,6 +59,11 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         summary["largest_scc"] = int(np.bincount(labels).max())
     else:
         summary["largest_scc"] = 0
+    summary["text"] = {
+        "pages": with_text,
+        "share": round(with_text / n, 4) if n else 0.0,
+        "bytes": text_bytes,
+    }
     summary["archived"] = archived
     summary["restricted"] = restricted
     summary["views_per_user"] = _spread(np.unique(users, return_counts=True)[1])

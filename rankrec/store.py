@@ -7,19 +7,45 @@ that brings the page makes them resolve. Imports run inside :meth:`Store.transac
 it or nothing. This module and :mod:`rankrec._store_reads` (the named read methods ``Store``
 inherits) hold all of the project's SQL; reads that build something from several of those
 methods run inside :meth:`Store.reading`, one snapshot.
+
+Page text and link places live in tables of their own (``page_text``, ``link_places``,
+``link_occurrences``). A store made before they existed has none of them: it reads as a store
+without text or places, and its first write transaction adds the (empty) tables.
 """
 
 from __future__ import annotations
 
+import hashlib
 import sqlite3
+import zlib
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
 from ._store_reads import StoreReads
 from .errors import InputError, UnknownPage
+from .sources.records import HEADINGS_BYTES, TEXT_BYTES, clip_utf8
 
 SCHEMA_VERSION = 1
+
+# Added after version 1 came out, each table IF NOT EXISTS: older stores gain them on their next write.
+_TEXT_SCHEMA = (
+    """CREATE TABLE IF NOT EXISTS page_text (
+    page_id INTEGER PRIMARY KEY REFERENCES pages(id),
+    text BLOB NOT NULL,
+    headings TEXT NOT NULL,
+    sha256 TEXT NOT NULL,
+    text_bytes INTEGER NOT NULL
+)""",  # text: zlib-compressed UTF-8; sha256: hex digest of that UTF-8; text_bytes: its length
+    "CREATE TABLE IF NOT EXISTS link_places (id INTEGER PRIMARY KEY, place TEXT NOT NULL UNIQUE)",
+    """CREATE TABLE IF NOT EXISTS link_occurrences (
+    source_id INTEGER NOT NULL REFERENCES pages(id),
+    target_id INTEGER NOT NULL REFERENCES pages(id),
+    place_id INTEGER NOT NULL REFERENCES link_places(id),
+    occurrences INTEGER NOT NULL,
+    PRIMARY KEY (source_id, target_id, place_id)
+) WITHOUT ROWID""",
+)
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
@@ -70,7 +96,7 @@ CREATE TABLE IF NOT EXISTS imports (
     errors INTEGER NOT NULL,
     imported_at TEXT NOT NULL DEFAULT (strftime('%Y-%m-%dT%H:%M:%SZ', 'now'))
 );
-"""
+""" + "".join(statement + ";\n" for statement in _TEXT_SCHEMA)
 
 
 class Store(StoreReads):
@@ -97,6 +123,8 @@ class Store(StoreReads):
             raise InputError(self.path, None, f"not a usable wiki store: {error}") from None
         self._page_ids: dict[str, int] = {}
         self._user_ids: dict[str, int] = {}
+        self._place_ids: dict[str, int] = {}
+        self._text_tables = False  # known to exist (set by the first write or read that looks)
 
     def _check_schema(self) -> None:
         existing = self.connection.execute(
@@ -127,6 +155,10 @@ class Store(StoreReads):
     def transaction(self) -> Iterator[Store]:
         """Everything inside goes in together or not at all (also on KeyboardInterrupt)."""
         with self._transaction("BEGIN IMMEDIATE"):
+            if not self._text_tables:
+                for statement in _TEXT_SCHEMA:
+                    self.connection.execute(statement)
+                self._text_tables = True
             yield self
 
     @contextmanager
@@ -159,38 +191,43 @@ class Store(StoreReads):
             self.connection.execute("ROLLBACK")
             self._page_ids.clear()
             self._user_ids.clear()
+            self._place_ids.clear()
+            self._text_tables = False  # tables this transaction added are gone again
             raise
         self.connection.execute("COMMIT")
 
     # -- ids -------------------------------------------------------------------------------------
     def page_id(self, page: str) -> int:
         """Row id of ``page``, adding a not-present row for a page only referred to."""
-        found = self._page_ids.get(page)
-        if found is None:
-            cursor = self.connection.execute(
-                "INSERT INTO pages (page) VALUES (?) ON CONFLICT (page) DO UPDATE SET page = page "
-                "RETURNING id",
-                (page,),
-            )
-            found = cursor.fetchone()[0]
-            self._page_ids[page] = found
-        return found
+        return self._row_id(self._page_ids, "pages", "page", page)
 
     def user_id(self, user: str) -> int:
-        found = self._user_ids.get(user)
+        return self._row_id(self._user_ids, "users", "user", user)
+
+    def place_id(self, place: str) -> int:
+        """Row id of the link place ``place`` (added if new)."""
+        return self._row_id(self._place_ids, "link_places", "place", place)
+
+    def _row_id(self, known: dict[str, int], table: str, column: str, value: str) -> int:
+        """Row id of ``value`` in the unique ``column`` of ``table`` (a constant name), added if new."""
+        found = known.get(value)
         if found is None:
             cursor = self.connection.execute(
-                "INSERT INTO users (user) VALUES (?) ON CONFLICT (user) DO UPDATE SET user = user "
-                "RETURNING id",
-                (user,),
+                f"INSERT INTO {table} ({column}) VALUES (?) "
+                f"ON CONFLICT ({column}) DO UPDATE SET {column} = {column} RETURNING id",
+                (value,),
             )
-            found = cursor.fetchone()[0]
-            self._user_ids[user] = found
+            found = known[value] = cursor.fetchone()[0]
         return found
 
     # -- writes (call inside a transaction) ---------------------------------------------------------
     def put_page(self, record, *, describe: bool = True) -> int:
-        """Mark the page present; with ``describe`` also replace its title, space, tags and groups."""
+        """Mark the page present; with ``describe`` also replace its title, space, tags, groups and text.
+
+        The text (``record.text``, if any) is kept as zlib-compressed UTF-8, at most 64 KiB
+        (:data:`~rankrec.sources.records.TEXT_BYTES`, cut at a character), with its headings and
+        the SHA-256 of the kept UTF-8; a record without text leaves the page without text.
+        """
         page_id = self.page_id(record.page)
         if not describe:
             self.connection.execute(
@@ -222,19 +259,47 @@ class Store(StoreReads):
             "INSERT OR IGNORE INTO page_groups (page_id, name) VALUES (?, ?)",
             [(page_id, name) for name in record.groups],
         )
+        self._put_text(page_id, getattr(record, "text", ""), getattr(record, "headings", ""))
         return page_id
 
-    def clear_links_from(self, pages: Iterable[str]) -> None:
-        """Forget the outgoing links of ``pages`` (before their new snapshot's links go in)."""
-        self.connection.executemany(
-            "DELETE FROM links WHERE source_id = ?", [(self.page_id(page),) for page in pages]
+    def _put_text(self, page_id: int, text: str, headings: str) -> None:
+        self.connection.execute("DELETE FROM page_text WHERE page_id = ?", (page_id,))
+        data = clip_utf8(text or "", TEXT_BYTES).encode("utf-8")
+        if not data:
+            return
+        self.connection.execute(
+            "INSERT INTO page_text (page_id, text, headings, sha256, text_bytes) VALUES (?, ?, ?, ?, ?)",
+            (
+                page_id,
+                zlib.compress(data),
+                clip_utf8(headings or "", HEADINGS_BYTES),
+                hashlib.sha256(data).hexdigest(),
+                len(data),
+            ),
         )
+
+    def clear_links_from(self, pages: Iterable[str]) -> None:
+        """Forget the outgoing links of ``pages`` and where they sat (before their new snapshot's)."""
+        rows = [(self.page_id(page),) for page in pages]
+        self.connection.executemany("DELETE FROM links WHERE source_id = ?", rows)
+        self.connection.executemany("DELETE FROM link_occurrences WHERE source_id = ?", rows)
 
     def put_links(self, rows: Iterable[tuple[str, str, float]]) -> None:
         self.connection.executemany(
             "INSERT INTO links (source_id, target_id, weight) VALUES (?, ?, ?) "
             "ON CONFLICT (source_id, target_id) DO UPDATE SET weight = excluded.weight",
             [(self.page_id(source), self.page_id(target), weight) for source, target, weight in rows],
+        )
+
+    def put_link_places(self, rows: Iterable[tuple[str, str, str, int]]) -> None:
+        """``(source, target, place, occurrences)``: how often a link sits in each place of its page."""
+        self.connection.executemany(
+            "INSERT INTO link_occurrences (source_id, target_id, place_id, occurrences) VALUES (?, ?, ?, ?) "
+            "ON CONFLICT (source_id, target_id, place_id) DO UPDATE SET occurrences = excluded.occurrences",
+            [
+                (self.page_id(source), self.page_id(target), self.place_id(place), int(count))
+                for source, target, place, count in rows
+            ],
         )
 
     def put_views(self, rows: Iterable[tuple[str, str, float, float | None]]) -> None:

@@ -2,7 +2,8 @@
 
 A token is shown once, when :func:`add_token` makes it; the file keeps only its SHA-256 hex
 digest, so a copy of the file does not let anyone call the service. The file is written
-atomically (a temporary file beside it, then one ``rename``) with mode 0600::
+atomically (a temporary file beside it, then one ``rename``) with mode 0600; :func:`revoke_token`
+removes one by name::
 
     {"format": 1, "tokens": [{"name": "wiki-frontend", "role": "reader",
                               "sha256": "9f86...", "created": "2026-04-01T06:11:54Z"}]}
@@ -124,6 +125,29 @@ def add_token(path: str | Path, name: str, role: str) -> str:
     created = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     _write_atomically(path, (*entries, TokenEntry(name, role, _digest(token), created)))
     return token
+
+
+def revoke_token(path: str | Path, name: str) -> TokenEntry:
+    """Remove the token of ``name`` from ``path`` (atomically, as :func:`add_token` writes) and return
+    the entry removed. A running service drops it within seconds (:class:`api.auth.TokenTable`).
+
+    ValueError when the file holds no token of that name; InputError when the file is missing or
+    malformed.
+
+    >>> import tempfile, pathlib
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "tokens.json"
+    >>> token = add_token(path, "old-frontend", "reader")
+    >>> revoke_token(path, "old-frontend").name, check_token(load_tokens(path), token)
+    ('old-frontend', None)
+    """
+    path = Path(path)
+    entries = load_tokens(path)
+    kept = tuple(entry for entry in entries if entry.name != name)
+    if len(kept) == len(entries):
+        shown = name if isinstance(name, str) and _NAME.fullmatch(name) else "(not a token name)"
+        raise ValueError(f"{path.name} holds no token named {shown!r}")
+    _write_atomically(path, kept)
+    return next(entry for entry in entries if entry.name == name)
 
 
 def check_token(tokens, presented: str) -> tuple[str, str] | None:

@@ -144,3 +144,69 @@ def test_wikispeedia_edge_list_imports_with_the_files_counts(tmp_path):
     assert all("self-link" in error.reason for error in report.errors)
     expected = (len(endpoints), len(pairs - self_links), 0)
     assert (counts["pages"], counts["links"], counts["unresolved_links"]) == expected
+
+
+def _texts(store: Store) -> dict[str, str]:
+    rows, _, texts = store.page_texts_by_row()
+    names = dict(zip(*store.present_pages(), strict=True))
+    return {names[row]: text for row, text in zip(rows.tolist(), texts, strict=True)}
+
+
+def _places(store: Store) -> set[tuple[str, str, str, int]]:
+    names = dict(zip(*store.present_pages(), strict=True))
+    sources, targets, codes, counts, places = store.link_place_arrays()
+    return {
+        (names[s], names[t], places[c], n)
+        for s, t, c, n in zip(
+            sources.tolist(), targets.tolist(), codes.tolist(), counts.tolist(), strict=True
+        )
+    }
+
+
+def test_reimport_replaces_text_and_link_places(tmp_path, store):
+    # Worked by hand from the files (blocks as CommonMark 0.31.2 parses them); the project's rule
+    # (issue 11): a re-imported page replaces its snapshot, its text and its links' places with it.
+    wiki = tmp_path / "wiki"
+    wiki.mkdir()
+    (wiki / "a.md").write_text("# A\n\nSee [b](b.md).\n\n## See also\n\n- [b](b.md)\n", encoding="utf-8")
+    (wiki / "b.md").write_text("# B\n\nBody of b.\n", encoding="utf-8")
+    import_sources(store, [(wiki, "markdown")])
+    assert _texts(store) == {"a": "A See b. See also b", "b": "B Body of b."}
+    assert _places(store) == {
+        ("a", "b", "md:paragraph@a", 1),
+        ("a", "b", "md:bullet_list>list_item>paragraph@see also", 1),
+    }
+    tables = ("page_text", "link_places", "link_occurrences")
+    before = {table: store.connection.execute(f"SELECT * FROM {table}").fetchall() for table in tables}
+    import_sources(store, [(wiki, "markdown")])  # the same files again: nothing changes
+    assert {
+        table: store.connection.execute(f"SELECT * FROM {table}").fetchall() for table in tables
+    } == before
+    (wiki / "a.md").write_text("# A\n\n> Only [b](b.md) here.\n", encoding="utf-8")
+    (wiki / "b.md").write_text("# B\n", encoding="utf-8")
+    import_sources(store, [(wiki, "markdown")])
+    assert _texts(store) == {"a": "A Only b here.", "b": "B"}
+    assert _places(store) == {("a", "b", "md:blockquote>paragraph@a", 1)}
+
+
+def test_a_page_export_without_text_leaves_the_page_without_text(tmp_path, store):
+    # The rule of every described page: a re-imported page replaces its snapshot, text included.
+    export = _write(tmp_path, "pages.jsonl", '{"id": "a", "title": "A", "text": "Alpha text."}\n')
+    import_sources(store, [export])
+    assert _texts(store) == {"a": "Alpha text."}
+    import_sources(store, [_write(tmp_path, "links.csv", "source,target\na,b\n")])  # edges: text stays
+    assert _texts(store) == {"a": "Alpha text."}
+    import_sources(store, [_write(tmp_path, "pages.csv", "id,title\na,A\n")])
+    assert _texts(store) == {} and store.text_counts() == (0, 0)
+
+
+def test_an_edge_list_replaces_the_link_places_of_its_sources(tmp_path, store):
+    # As it replaces their out-links (the test above): the edge list's sources get its links, no places.
+    wiki = tmp_path / "wiki"
+    wiki.mkdir()
+    (wiki / "a.html").write_text("<body><div class='footer'><a href='b.html'>b</a></div></body>")
+    (wiki / "b.html").write_text("<body><p>b</p></body>")
+    import_sources(store, [(wiki, "html")], exclude="")
+    assert _places(store) == {("a", "b", "div.footer", 1)}
+    import_sources(store, [_write(tmp_path, "links.csv", "source,target\na,b\n")])
+    assert _places(store) == set() and store.counts()["links"] == 1  # an edge list has no places

@@ -10,12 +10,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+import scipy.sparse as sp
 
 from rankrec.build import build_index
 from rankrec.configuration import Configuration
 from rankrec.errors import StaleIndex, UnknownPage
 from rankrec.graph import load_graph
-from rankrec.index import load_index
+from rankrec.index import Index, StringTable, load_index
 from rankrec.pagerank import solve_exact
 from rankrec.recommend.candidates import page_candidates
 from rankrec.sources.records import Origin, PageRecord
@@ -331,3 +332,91 @@ def test_an_interrupted_build_leaves_the_old_index(tmp_path, monkeypatch, how):
     after = load_index(tmp_path / "index")
     assert after.manifest.fingerprint == before
     assert _snapshot(tmp_path / "index") == files
+
+
+# -- unknown ids: bounded close-id search ------------------------------------------------------------
+class _CountingTable:
+    """A page table that counts the ids read from it (each read is one decode and one comparison)."""
+
+    def __init__(self, table) -> None:
+        self.table, self.reads = table, 0
+
+    def __len__(self) -> int:
+        return len(self.table)
+
+    def __getitem__(self, number: int) -> str:
+        self.reads += 1
+        return self.table[number]
+
+
+def _index_of(ids: list[str]) -> Index:
+    """An Index holding only a page table (enough for lookups and suggestions), every page public."""
+    encoded = [page.encode() for page in ids]
+    offsets = np.concatenate([[0], np.cumsum([len(item) for item in encoded])]).astype(np.int64)
+    size = len(ids)
+    return Index(
+        folder=None, manifest=None, transition=None, titles=None, row_ids=None, space=None, views=None,
+        pages=_CountingTable(StringTable(np.frombuffer(b"".join(encoded), dtype=np.uint8), offsets)),
+        page_order=np.argsort(np.array(ids), kind="stable").astype(np.int64),
+        archived=np.zeros(size, dtype=bool),
+        page_groups=sp.csr_array((size, 1)), group_pages=None, space_names=(), group_names=("g",),
+        global_vector=None, basis=None, related={}, team_names=(), team_vectors=None,
+    )  # fmt: skip
+
+
+def _invented_ids(count: int, seed: int = 5) -> list[str]:
+    rng = np.random.default_rng(seed)
+    words = np.array(["ops", "patching", "quarterly", "checklist", "runbook", "db", "release", "notes"])
+    return sorted({f"s{rng.integers(4)}/{'-'.join(rng.choice(words, 3))}-{i}" for i in range(count)})
+
+
+def _reads_for_unknown(index: Index, page: str) -> int:
+    index.pages.reads = 0
+    with pytest.raises(UnknownPage):
+        index.page_number(page)
+    return index.pages.reads
+
+
+def test_an_unknown_id_reads_a_bounded_number_of_ids_whatever_the_size():
+    # issue finding: below 20,000 pages every id was compared (1.1 s per unknown id at 20,000 pages,
+    # on the event loop); now a binary search and fixed windows: common practice for "did you mean"
+    small, large = _index_of(_invented_ids(2_000)), _index_of(_invented_ids(20_000))
+    probe = "s1/release-notes-runbook-1234x"
+    reads_small, reads_large = _reads_for_unknown(small, probe), _reads_for_unknown(large, probe)
+    window = 2 * (2 * Index.SUGGESTION_WINDOW + 2)  # two windows (the id and its folded form) at most
+    binary_search = 2 * int(np.ceil(np.log2(20_000)))
+    assert reads_large <= window + binary_search + 4
+    assert reads_large - reads_small <= 2 * int(np.ceil(np.log2(10)))  # a few more search steps only
+    assert reads_large < 20_000 / 50
+
+
+def test_close_ids_are_the_same_whether_or_not_the_index_holds_the_page():
+    # a restricted page must be answerable exactly as an absent one (OWASP API Security Top 10 2023,
+    # API1): neither its presence nor that of other pages the caller may not see changes which
+    # neighbours are looked at, for the page's own id or for any other spelling near it
+    ids = _invented_ids(3_000, seed=9)
+    rng = np.random.default_rng(3)
+    for position in rng.integers(len(ids), size=30).tolist():
+        page = ids[position]
+        others = set(rng.choice(ids, size=300).tolist()) - {page}  # also hidden from this caller
+        held, absent = ids, ids[:position] + ids[position + 1 :]
+        for probe in (page, page[:-1] + "x", page[:-3], page.upper(), page.replace("-", "_")):
+            seen_held = _index_of(held).close_ids(
+                probe, allowed=lambda number, held=held, page=page, others=others: held[number] != page
+                and held[number] not in others
+            )  # fmt: skip
+            seen_absent = _index_of(absent).close_ids(
+                probe, allowed=lambda number, absent=absent, others=others: absent[number] not in others
+            )
+            assert seen_held == seen_absent, probe
+            assert page not in seen_held and not others & set(seen_held)
+        assert page not in _index_of(held).close_ids(page)
+
+
+def test_close_ids_keep_only_allowed_pages_and_find_other_spellings():
+    ids = ["ops/patch-a", "ops/patch-b", "ops/patch-c", "ops/patching", "s1/page-10", "s1/page-11"]
+    index = _index_of(ids)
+    allowed = {ids.index("ops/patch-c"), ids.index("ops/patching")}
+    assert set(index.close_ids("ops/patch-x", allowed=lambda number: number in allowed)) <= set(ids[2:4])
+    assert index.close_ids("S1/Page 10")[0] == "s1/page-10"  # case and separators folded
+    assert index.close_ids("x" * (Index.SUGGESTION_MAX_CHARS + 1)) == []

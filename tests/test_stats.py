@@ -79,3 +79,15 @@ def test_stats_of_an_empty_store_are_zero(tmp_path):
     assert summary["largest_scc"] == summary["archived"] == summary["views_of_missing_pages"] == 0
     assert summary["time_span"] == {"first": None, "last": None, "days": 0.0}
     assert summary["worst_unresolved_targets"] == summary["pages_with_most_unresolved"] == []
+
+
+def test_text_coverage_counted_by_hand(tmp_path):
+    # Worked by hand: 4 present pages, 3 with text of 5 + 6 + 4 UTF-8 bytes ("é" is two, RFC 3629);
+    # the missing page "ghost" has no text and is not counted among the present pages.
+    with Store(tmp_path / "text.db") as store:
+        with store.transaction():
+            for page, text in [("a", "alpha"), ("b", "bravo!"), ("c", ""), ("d", "éé")]:
+                store.put_page(PageRecord(page=page, title=page, origin=Origin("t"), text=text))
+            store.put_links([("a", "ghost", 1.0)])
+        summary = wiki_stats(store)
+    assert summary["text"] == {"pages": 3, "share": 0.75, "bytes": 15}

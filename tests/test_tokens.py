@@ -1,4 +1,4 @@
-"""The tokens file: only hashes stored, atomic writes with mode 0600, duplicate names refused."""
+"""The tokens file: only hashes stored, atomic writes with mode 0600, duplicate names refused, revocation."""
 
 from __future__ import annotations
 
@@ -8,8 +8,9 @@ import stat
 
 import pytest
 
+from rankrec.cli import main
 from rankrec.errors import InputError
-from rankrec.tokens import add_token, check_token, load_tokens
+from rankrec.tokens import add_token, check_token, load_tokens, revoke_token
 
 
 def test_only_the_sha256_of_a_token_is_stored(tmp_path):
@@ -104,3 +105,32 @@ def test_malformed_files_are_input_errors(tmp_path, content, reason):
 def test_a_missing_file_is_an_input_error(tmp_path):
     with pytest.raises(InputError, match="tokens.json"):
         load_tokens(tmp_path / "tokens.json")
+
+
+def test_revoke_removes_only_the_named_token(tmp_path):
+    path = tmp_path / "tokens.json"
+    kept = add_token(path, "frontend", "reader")
+    gone = add_token(path, "old-frontend", "admin")
+    removed = revoke_token(path, "old-frontend")
+    assert (removed.name, removed.role) == ("old-frontend", "admin")
+    entries = load_tokens(path)
+    assert [entry.name for entry in entries] == ["frontend"]
+    assert check_token(entries, gone) is None and check_token(entries, kept) == ("frontend", "reader")
+    assert stat.S_IMODE(path.stat().st_mode) == 0o600  # written as add_token writes
+    with pytest.raises(ValueError, match="no token named 'old-frontend'"):
+        revoke_token(path, "old-frontend")
+    with pytest.raises(InputError, match="absent.json"):
+        revoke_token(tmp_path / "absent.json", "frontend")
+
+
+def test_token_revoke_command(tmp_path, capsys):
+    path = tmp_path / "tokens.json"
+    add_token(path, "frontend", "reader")
+    assert main(["token", "revoke", "frontend", "--tokens", str(path)]) == 0
+    assert "revoked" in capsys.readouterr().out and load_tokens(path) == ()
+    # an unknown name: exit status 2 and one line (the CLI's one error mapping)
+    assert main(["token", "revoke", "frontend", "--tokens", str(path)]) == 2
+    error = capsys.readouterr().err
+    assert error.count("\n") == 1 and "no token named 'frontend'" in error
+    assert main(["token", "revoke", "x" * 300, "--tokens", str(path)]) == 2
+    assert "x" * 65 not in capsys.readouterr().err  # a long bad name is not echoed

@@ -332,6 +332,20 @@ class OutLinks:
         )
 
 
+@dataclass(frozen=True, eq=False)
+class TextSimilarity:
+    """The query's current page's text neighbours, most similar first ("more like this": TF-IDF cosine of
+    titles, headings and text, :func:`rankrec.text.text_neighbours`); nothing else is listed."""
+
+    similar: sp.spmatrix | sp.sparray
+    name: str = "text similarity"
+
+    def recommend(self, split: Split, k: int) -> np.ndarray:
+        k = check_count("k", k)
+        similar = check_adjacency(self.similar, split)
+        return _ranked_product(_seeds(split, 1, last_only=True), similar, excluded_pages(split), k)
+
+
 @dataclass(frozen=True)
 class CoVisitation:
     """Sum of :func:`covisitation` cosines to the query's pages; pages never co-visited are not listed.

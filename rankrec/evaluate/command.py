@@ -87,6 +87,7 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
         gap=args.gap,
         n=args.last,
         prefix=args.prefix,
+        seed=args.seed,
     )
     bar = _bar(None)
     try:
@@ -148,11 +149,13 @@ def register(commands) -> None:
         "evaluate",
         help="offline evaluation: rankrec against simple baselines on the store's own history",
         description=(
-            "Split the store's views so that nothing of the test period reaches any model, choose rankrec's "
-            "damping, half-life, navigation blend and lift on a validation split carved from the training "
-            "part, and compare rankrec with random, most-read, global PageRank, out-links, co-visitation and "
-            "team-most-read lists on the test split. Writes DIR/report.md, DIR/results.json and PNG plots "
-            "(the folder is replaced as a whole)."
+            "Split the store's views (or, with --split links, its links) so that nothing of the test "
+            "part reaches any model, choose rankrec's damping, half-life, navigation weight, text weight "
+            "and lift on a validation split carved from the training part, and compare rankrec with "
+            "random, most-read, global PageRank, out-links, co-visitation, text-similarity and "
+            "team-most-read lists on the test split. Writes DIR/report.md, DIR/results.json, "
+            "DIR/settings.json "
+            "(for `rankrec build --settings`) and PNG plots (the folder is replaced as a whole)."
         ),
     )
     command.add_argument("--wiki", required=True, metavar="WIKI.db", help="the wiki store")
@@ -160,9 +163,11 @@ def register(commands) -> None:
     command.add_argument(
         "--split",
         default="temporal",
-        choices=("temporal", "last-n", "sessions"),
+        choices=("temporal", "last-n", "sessions", "links"),
         help="temporal: each reader's new pages after a global cutoff (default); last-n: each reader's "
-        "last N views; sessions: given a session's first page(s), the pages it goes on to",
+        "last N views; sessions: given a session's first page(s), the pages it goes on to; links: hide "
+        "--test-share of each page's content links (never page chrome) from every input and recover them "
+        "(needs no reading history)",
     )
     command.add_argument(
         "--cutoff",
@@ -175,7 +180,8 @@ def register(commands) -> None:
         type=float,
         default=0.2,
         metavar="S",
-        help="share of the time span that is test when no cutoff is given (0.2)",
+        help="share of the time span that is test when no cutoff is given; with --split links, the share "
+        "of each page's content links hidden (0.2)",
     )
     command.add_argument(
         "--gap",

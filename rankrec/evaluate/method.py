@@ -26,20 +26,24 @@ import numpy as np
 import scipy.sparse as sp
 
 from .._validation import check_count
-from ..build import Evidence, ViewLog, build_from_evidence, reader_profiles
+from ..build import build_from_evidence
 from ..configuration import Configuration
+from ..evidence import Evidence
 from ..index import load_index
+from ..profiles import ViewLog, reader_profiles
 from ..progress import Progress, report
 from ..recommend import Reader, recommend, related
 from .splits import Split, excluded_pages
 
 
 def training_evidence(evidence: Evidence, split: Split) -> Evidence:
-    """``evidence`` with the split's training views as its whole reading history."""
+    """``evidence`` with the split's training views as its whole reading history (and, for a task that
+    hides links, only the links the split leaves)."""
     if evidence.size != split.size:
         raise ValueError(f"the split has {split.size} pages but the evidence {evidence.size}")
     train = split.train
-    return evidence.with_views(ViewLog(train.users, train.pages, train.times))
+    training = evidence.with_views(ViewLog(train.users, train.pages, train.times))
+    return training if split.links is None else training.with_links(split.links)
 
 
 def query_seeds(split: Split) -> np.ndarray:

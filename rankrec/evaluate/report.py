@@ -297,10 +297,17 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
         "`rankrec build --settings settings.json` serves the lists that were evaluated here."
     )
     configuration = settings["rankrec"]
-    names = ("damping", "half_life_days", "navigation_weight", "lift")
+    names = ("damping", "half_life_days", "navigation_weight", "lift", "text_weight", "title_weight")
     blocks.append(
         _table(
-            ["damping", "half-life (days)", "navigation weight", "lift exponent"],
+            [
+                "damping",
+                "half-life (days)",
+                "navigation weight",
+                "lift exponent",
+                "text weight",
+                "title weight",
+            ],
             [[f"{configuration[name]:g}" for name in names]],
         )
     )

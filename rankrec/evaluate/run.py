@@ -26,11 +26,12 @@ import numpy as np
 import scipy.sparse as sp
 
 from .._validation import check_choice, check_count, check_fraction, check_positive
-from ..build import Evidence, read_evidence
+from ..build import Evidence, chrome_only, read_evidence
 from ..configuration import Configuration
 from ..errors import CutoffOutsideSpan, InputError, NothingToEvaluate
 from ..progress import Progress
 from ..store import Store
+from ..text import text_neighbours
 from .baselines import (
     CoVisitation,
     GlobalPageRank,
@@ -38,16 +39,18 @@ from .baselines import (
     OutLinks,
     RandomPages,
     TeamMostRead,
+    TextSimilarity,
     check_recommendations,
     training_counts,
 )
+from .links import held_out_links_split
 from .method import PersonalisedPageRank
 from .metrics import coverage, evaluate_lists, ndcg
 from .splits import SESSION_GAP_SECONDS, Split, last_n_split, session_split, temporal_split, training_pages
 from .statistics import bootstrap_ci, paired_difference
 from .sweeps import GRID_NAMES, Choice, Grid, choose_configuration, mean_metric, validation_split
 
-SPLITS = ("temporal", "last-n", "sessions")
+SPLITS = ("temporal", "last-n", "sessions", "links")
 DEFAULT_KS = (1, 3, 5, 10, 20)
 LEVEL = 0.95
 DEFAULT_GRID = Grid()
@@ -93,17 +96,11 @@ def _fingerprint(graph_fingerprint: str, users, viewed, times, teams) -> str:
 
 def load_data(store: Store, *, topics: str = "spaces") -> EvaluationData:
     """Read ``store`` for an evaluation (:func:`rankrec.build.read_evidence`: one snapshot, what a build
-    reads); InputError when it holds fewer than two pages or no views."""
+    reads); InputError when it holds fewer than two pages. A store without views can still be evaluated
+    on held-out links (:func:`make_split` says so for the other tasks)."""
     evidence = read_evidence(store, topics=topics)
     graph, views = evidence.graph, evidence.views
     inside = views.pages >= 0
-    if not inside.any():
-        raise InputError(
-            store.path,
-            None,
-            "the wiki store holds no views of its pages; import view events "
-            "first (rankrec import VIEWS.csv --wiki ...)",
-        )
     names = ["(none)" if code < 0 else evidence.space_names[code] for code in evidence.space_codes.tolist()]
     space_names, space = np.unique(np.array(names, dtype=object), return_inverse=True)
     teams, team_names = None, tuple(evidence.teams)
@@ -150,6 +147,7 @@ def make_split(
     gap: float = SESSION_GAP_SECONDS,
     n: int = 1,
     prefix: int = 1,
+    seed: int = 0,
 ) -> Split:
     """The test split of ``kind`` (graded gains: binary metrics count any held-out view, graded nDCG their
     number). ``cutoff`` (Unix seconds) must lie inside the views' span (CutoffOutsideSpan); for ``last-n``
@@ -157,6 +155,20 @@ def make_split(
     check_choice("kind", kind, SPLITS)
     check_fraction("test_share", test_share, open_low=True, open_high=True)
     check_positive("gap", gap)
+    if kind == "links":
+        split = held_out_links_split(
+            data.adjacency, chrome=chrome_only(data.evidence), share=test_share, seed=seed
+        )
+        if len(split.queries) == 0:
+            raise NothingToEvaluate("test", kind, "no page has enough content links to hide some")
+        return split
+    if data.times.size == 0:
+        raise InputError(
+            data.store,
+            None,
+            "the wiki store holds no views of its pages; import view events first "
+            "(rankrec import VIEWS.csv --wiki ...) or evaluate with --split links",
+        )
     first, last = float(data.times.min()), float(data.times.max())
     if cutoff is not None and not first < cutoff <= last:
         raise CutoffOutsideSpan(cutoff, first, last)
@@ -178,13 +190,20 @@ def make_split(
 
 def baselines(data: EvaluationData, split: Split, *, seed: int = 0) -> list:
     """Every baseline that the data allows (team-most-read needs teams), each with ``recommend(split, k)``."""
+    links = data.adjacency if split.links is None else split.links  # a task may hide links from everyone
     found = [
         RandomPages(seed=seed),
         MostRead(),
-        GlobalPageRank(data.adjacency),
-        OutLinks(data.adjacency),
+        GlobalPageRank(links),
+        OutLinks(links),
         CoVisitation(gap=split.settings.get("gap", SESSION_GAP_SECONDS)),
     ]
+    evidence = data.evidence
+    if evidence is not None and evidence.has_text:
+        neighbours = text_neighbours(
+            evidence.headings, evidence.bodies, title_weight=Configuration.title_weight
+        )
+        found.append(TextSimilarity(neighbours.similar))
     if data.teams is not None:
         top = max(int(split.train.users.max(initial=0)), int(split.queries.users.max(initial=0)))
         teams = np.full(max(top + 1, data.teams.size), -1, dtype=np.int64)

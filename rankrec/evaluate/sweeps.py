@@ -28,22 +28,26 @@ from .._validation import check_count
 from ..configuration import Configuration
 from ..errors import NothingToEvaluate
 from ..progress import Progress, report
+from .links import held_out_links_split
 from .method import rankrec_lists
 from .metrics import evaluate_lists
 from .splits import Split, last_n_split, session_split, temporal_split
 
-GRID_NAMES = ("damping", "lift", "half_life_days", "navigation_weight")
+SPLIT_NAMES = ("temporal", "last-n", "sessions", "links")
+GRID_NAMES = ("damping", "lift", "half_life_days", "navigation_weight", "text_weight", "title_weight")
 
 
 @dataclass(frozen=True)
 class Grid:
     """The values each sweep tries (common practice: damping around the classic 0.85; half-lives from a
-    week to a year; blend and lift over their whole useful range)."""
+    week to a year; navigation weight, lift and text weight over their whole useful range)."""
 
     damping: tuple[float, ...] = (0.5, 0.7, 0.85, 0.95)
     lift: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75, 1.0)
     half_life_days: tuple[float, ...] = (7.0, 30.0, 90.0, 365.0)
     navigation_weight: tuple[float, ...] = (0.0, 0.3, 0.6, 0.9)
+    text_weight: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75)
+    title_weight: tuple[float, ...] = (0.4,)
 
     def __post_init__(self) -> None:
         for name in GRID_NAMES:
@@ -56,8 +60,13 @@ class Grid:
 
     @property
     def solves(self) -> int:
-        """Upper bound of the index builds (damping × lift, then half-life × navigation weight)."""
-        return len(self.damping) * len(self.lift) + len(self.half_life_days) * len(self.navigation_weight)
+        """Upper bound of the index builds (damping × lift, half-life × navigation weight, then text weight
+        × title weight when pages have text)."""
+        return (
+            len(self.damping) * len(self.lift)
+            + len(self.half_life_days) * len(self.navigation_weight)
+            + len(self.text_weight) * len(self.title_weight)
+        )
 
 
 @dataclass(frozen=True, eq=False)
@@ -123,8 +132,16 @@ def validation_split(split: Split) -> Split:
             prefix=settings["prefix"],
             gains=settings["gains"],
         )
+    elif split.name == "links":  # hide the same share again, from the links the test split left
+        made = held_out_links_split(
+            split.links,
+            share=settings["share"],
+            min_links=settings["min_links"],
+            seed=settings["seed"] + 1,
+            max_queries=settings["max_queries"],
+        )
     else:
-        raise ValueError(f"split.name must be 'temporal', 'last-n' or 'sessions'; got {split.name!r}")
+        raise ValueError(f"split.name must be one of {', '.join(SPLIT_NAMES)}; got {split.name!r}")
     if len(made.queries) == 0:
         raise NothingToEvaluate(
             "validation",
@@ -186,9 +203,13 @@ def choose_configuration(
     if split.task == "sessions":
         half_lives = (start.half_life_days,)
         notes.append("half-life is not swept: the session task restarts from the session's own pages")
-    second = np.full((len(half_lives), len(grid.navigation_weight)), np.nan)
+    navigation_weights = grid.navigation_weight
+    if len(validation.train) == 0:
+        navigation_weights = (start.navigation_weight,)
+        notes.append("navigation weight is not swept: the task has no reading history")
+    second = np.full((len(half_lives), len(navigation_weights)), np.nan)
     for row, half_life in enumerate(half_lives):
-        for column, weight in enumerate(grid.navigation_weight):
+        for column, weight in enumerate(navigation_weights):
             if half_life == start.half_life_days and weight == start.navigation_weight:
                 second[row, column] = first[grid.damping.index(damping), grid.lift.index(lift)]
                 continue  # built in the first sweep already
@@ -200,7 +221,7 @@ def choose_configuration(
         "half_life_days",
         "navigation_weight",
         half_lives,
-        grid.navigation_weight,
+        navigation_weights,
         second,
         MappingProxyType({"damping": damping, "lift": lift}),
     )
@@ -209,4 +230,26 @@ def choose_configuration(
         raise NothingToEvaluate("validation", split.name, f"no configuration has a defined {metric}")
     best = max(finite, key=lambda pair: (pair[0], -pair[1]))[1]
     value, chosen = tried[best]
-    return Choice(chosen, metric, float(value), (damping_sweep, history_sweep), validation, tuple(notes))
+    sweeps = (damping_sweep, history_sweep)
+    if getattr(evidence, "has_text", False) and split.task == "sessions":  # related lists: text matters
+        best = chosen
+        third = np.full((len(grid.text_weight), len(grid.title_weight)), np.nan)
+        for row, weight in enumerate(grid.text_weight):
+            for column, title in enumerate(grid.title_weight):
+                third[row, column] = score(best.with_values(text_weight=weight, title_weight=title))
+        fixed = {name: getattr(best, name) for name in ("damping", "lift", "navigation_weight")}
+        sweeps += (
+            Sweep(
+                "text_weight",
+                "title_weight",
+                grid.text_weight,
+                grid.title_weight,
+                third,
+                MappingProxyType(fixed),
+            ),
+        )
+        finite = [(value, position) for position, (value, _) in enumerate(tried) if np.isfinite(value)]
+        value, chosen = tried[max(finite, key=lambda pair: (pair[0], -pair[1]))[1]]
+    elif getattr(evidence, "has_text", False):
+        notes.append("text weight is not swept: personal lists do not mix in text (related lists do)")
+    return Choice(chosen, metric, float(value), sweeps, validation, tuple(notes))

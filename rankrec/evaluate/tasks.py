@@ -55,7 +55,7 @@ class Split:
 
     Attributes
     ----------
-    name : {"temporal", "last-n", "sessions"}
+    name : {"temporal", "last-n", "sessions", "links"}
     train : Views
         Everything a model may learn from.
     cutoff : float or None
@@ -72,6 +72,8 @@ class Split:
         The arguments that made the split (``new_only``, ``gap``, ``prefix``, ...), resolved.
     counts : mapping
         ``train_views``, ``held_out_views``, ``unused_views``, ``queries`` and ``dropped_*`` counts.
+    links : scipy.sparse.csr_array or None
+        The link matrix every method may use, when the task hides links (held-out links); None: the wiki's.
     """
 
     name: str
@@ -83,6 +85,7 @@ class Split:
     held_out: Views
     settings: MappingProxyType
     counts: MappingProxyType
+    links: sp.csr_array | None = None
 
     @property
     def size(self) -> int:
@@ -90,8 +93,8 @@ class Split:
 
     @property
     def task(self) -> str:
-        """``"sessions"`` (queries carry prefix pages) or ``"users"``."""
-        return "sessions" if self.name == "sessions" else "users"
+        """``"sessions"`` (queries carry prefix pages: sessions, held-out links) or ``"users"``."""
+        return "sessions" if self.name in ("sessions", "links") else "users"
 
     @property
     def new_only(self) -> bool:

@@ -18,8 +18,9 @@ import numpy as np
 from ..configuration import Configuration
 from ..index import Index, load_array, load_transition
 from ..pagerank import Transition, personalised_pagerank, push
-from .explain import contributions
-from .select import top_k
+from ..text import load_text_neighbours
+from .explain import SIMILAR_TEXT, contributions
+from .select import lifted, top_k
 
 DEFAULT_K_RELATED = 50  # enough candidates that access and "already linked" filters still leave 10-20
 _BLOCK_CELLS = 1 << 22  # pages × seed columns of one block power iteration (32 MiB of float64)
@@ -27,6 +28,7 @@ _WIDEST = 64  # seeds per block: wider blocks were measured slower (cache), narr
 _FIELDS = {
     "pages": (np.int32, -1),
     "scores": (np.float32, 0),
+    "combined": (np.float32, 0),
     "via": (np.int32, -1),
     "space": (np.int32, -1),
     "kind": (np.int8, 0),
@@ -37,15 +39,59 @@ def _empty(rows: int, k: int) -> dict:
     return {name: np.full((rows, k), fill, dtype=dtype) for name, (dtype, fill) in _FIELDS.items()}
 
 
+def text_row(text, seed: int, archived) -> tuple[np.ndarray, np.ndarray]:
+    """The seed's text neighbours (pages, similarities), archived pages left out; empty without text."""
+    if text is None:
+        return np.zeros(0, dtype=np.int64), np.zeros(0)
+    similar = text.similar
+    start, end = int(similar.indptr[seed]), int(similar.indptr[seed + 1])
+    pages = np.asarray(similar.indices[start:end], dtype=np.int64)
+    sims = np.asarray(similar.data[start:end], dtype=np.float64)
+    keep = ~np.asarray(archived)[pages] & (pages != seed)
+    return pages[keep], sims[keep]
+
+
+def mix_text(link_scores, link_best: float, sims, text_best: float, weight: float):
+    """``(1 − w)·link/best link + w·text/best text``, and the text part (a related score mixing in text).
+
+    Each part is divided by its best value over the seed's candidates (the page itself and archived
+    pages aside), so that the mix does not depend on the scale of either.
+
+    >>> links, sims = np.array([2.0, 1.0, 0.0]), np.array([0.0, 0.5, 1.0])
+    >>> [part.round(2).tolist() for part in mix_text(links, 2.0, sims, 1.0, 0.5)]
+    [[0.5, 0.5, 0.5], [0.0, 0.25, 0.5]]
+    """
+    link_part = (1.0 - weight) * np.asarray(link_scores) / link_best if link_best > 0 else 0.0 * link_scores
+    text_part = weight * np.asarray(sims) / text_best if text_best > 0 else 0.0 * np.asarray(sims)
+    return link_part + text_part, text_part
+
+
 def candidates(
-    transition, global_vector, archived, space, seed, indices, values, *, damping, lift, k
+    transition,
+    global_vector,
+    archived,
+    space,
+    seed,
+    indices,
+    values,
+    *,
+    damping,
+    lift,
+    k,
+    text=None,
+    text_weight=0.0,
 ) -> dict:
-    """The ``k`` best pages of one seed's vector (sorted ``indices`` and their ``values``), explained."""
+    """The ``k`` best pages of one seed's vector (sorted ``indices`` and their ``values``), explained.
+
+    With ``text`` neighbours and ``text_weight`` > 0 the pages are the best ``k`` of the union of the
+    vector's top ``k`` (by lifted score) and the seed's text neighbours, by :func:`mix_text`; an item whose
+    text part is the larger is explained as similar text.
+    """
     keep = (indices != seed) & (values > 0) & ~np.asarray(archived)[indices]
     pages, scores = indices[keep], values[keep]
-    ranked = scores / np.power(np.asarray(global_vector)[pages], lift) if lift else scores
+    overall = np.asarray(global_vector)
+    ranked = lifted(scores, overall[pages], lift)
     best = top_k(ranked, k)
-    pages, scores = pages[best], scores[best]
 
     def lookup(wanted):
         if indices.size == values.size == np.asarray(archived).size:  # a whole vector: read it directly
@@ -53,10 +99,28 @@ def candidates(
         position = np.minimum(np.searchsorted(indices, wanted), indices.size - 1)
         return np.where(indices[position] == wanted, values[position], 0.0)
 
+    similar_pages, sims = text_row(text, seed, archived) if text_weight > 0 else (np.zeros(0, np.int64), None)
+    if similar_pages.size == 0:
+        pages, scores, combined = pages[best], scores[best], ranked[best]
+        textual = np.zeros(pages.size, dtype=bool)
+    else:
+        union = np.union1d(pages[best], similar_pages)
+        values_there = lookup(union)
+        sims_there = np.zeros(union.size)
+        sims_there[np.searchsorted(union, similar_pages)] = sims
+        link_best = float(ranked.max()) if ranked.size else 0.0
+        mixed, text_part = mix_text(
+            lifted(values_there, overall[union], lift), link_best, sims_there, float(sims.max()), text_weight
+        )
+        order = top_k(np.where(mixed > 0, mixed, -np.inf), k)
+        pages, scores, combined = union[order], values_there[order], mixed[order]
+        textual = text_part[order] > (mixed[order] - text_part[order])
     explained = contributions(transition.backward, lookup, pages, np.asarray(space), damping=damping)
+    explained.kind[textual] = SIMILAR_TEXT
     return {
         "pages": pages,
         "scores": scores,
+        "combined": combined,
         "via": explained.via,
         "space": explained.space,
         "kind": explained.kind,
@@ -82,7 +146,9 @@ def _vectors(transition: Transition, seeds: np.ndarray, method: str, configurati
     return found
 
 
-def _block(transition, global_vector, archived, space, seeds, method, configuration, k, workers=1) -> dict:
+def _block(arrays: tuple, seeds, method, configuration, k, workers=1) -> dict:
+    """Candidates of ``seeds``; ``arrays`` = (transition, global vector, archived, space codes, text)."""
+    transition, global_vector, archived, space, text = arrays
     out = _empty(seeds.size, k)
     columns = _vectors(transition, seeds, method, configuration, workers)
     for row, (seed, (indices, values)) in enumerate(zip(seeds.tolist(), columns, strict=True)):
@@ -97,6 +163,8 @@ def _block(transition, global_vector, archived, space, seeds, method, configurat
             damping=configuration.damping,
             lift=configuration.lift,
             k=k,
+            text=text,
+            text_weight=configuration.text_weight,
         )
         for name, array in found.items():
             out[name][row, : array.size] = array
@@ -107,7 +175,8 @@ def _read_arrays(folder: str) -> tuple:
     path = Path(folder)
     size = int(load_array(path, "archived").size)
     arrays = (load_array(path, name) for name in ("global", "archived", "space"))
-    return load_transition(path, size), *arrays
+    text = load_text_neighbours(path / "text") if (path / "text").is_dir() else None
+    return load_transition(path, size), *arrays, text
 
 
 _arrays = lru_cache(maxsize=2)(_read_arrays)  # a worker process reads the staging folder once
@@ -116,10 +185,7 @@ _arrays = lru_cache(maxsize=2)(_read_arrays)  # a worker process reads the stagi
 def related_block(settings: tuple, seeds: np.ndarray) -> dict:
     """Candidates of a batch of seed pages (run in a worker process; reads the staging folder)."""
     folder, method, values, k = settings
-    transition, global_vector, archived, space = _arrays(folder)
-    return _block(
-        transition, global_vector, archived, space, seeds, method, Configuration.from_dict(values), k
-    )
+    return _block(_arrays(folder), seeds, method, Configuration.from_dict(values), k)
 
 
 def write_related(
@@ -130,8 +196,8 @@ def write_related(
     The power iteration solves wide blocks of seeds in this process (``workers`` threads); the push runs
     batches in ``workers`` processes.
     """
-    transition, global_vector, archived, space = _read_arrays(str(staging))
-    size = transition.n
+    arrays_here = _read_arrays(str(staging))
+    size = arrays_here[0].n
     arrays = _empty(chosen.size, k)
     done = 0
 
@@ -149,7 +215,7 @@ def write_related(
             seeds = chosen[first : first + width]
             store_block(
                 first,
-                _block(transition, global_vector, archived, space, seeds, method, configuration, k, workers),
+                _block(arrays_here, seeds, method, configuration, k, workers),
             )
     else:
         batch = max(1, min(512, -(-chosen.size // (4 * workers))))  # several batches per worker
@@ -184,10 +250,7 @@ def page_candidates(index: Index, number: int) -> dict:
     found = index.cache.get(number)
     if found is None:
         block = _block(
-            index.transition,
-            index.global_vector,
-            index.archived,
-            index.space,
+            (index.transition, index.global_vector, index.archived, index.space, index.text),
             np.array([number]),
             index.manifest.precompute["method"],
             index.configuration,

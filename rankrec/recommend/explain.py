@@ -17,8 +17,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-VIA_PAGE, VIA_SPACE, FROM_RESTART, NO_LINK = 0, 1, 2, 3
-"""Kinds of explanation: a page, a space, the restart itself (read before), none (score zero)."""
+VIA_PAGE, VIA_SPACE, FROM_RESTART, NO_LINK, SIMILAR_TEXT = 0, 1, 2, 3, 4
+"""Kinds of explanation: a page, a space, the restart itself (read before), none (score zero), and text
+similarity (the larger part of a related score that mixes in text: :mod:`rankrec.recommend.candidates`)."""
 
 
 @dataclass(frozen=True)

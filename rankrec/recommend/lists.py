@@ -23,8 +23,8 @@ from ..configuration import check_lift
 from ..index import Index
 from ..pagerank import push
 from .audience import Reader, Team
-from .candidates import page_candidates
-from .explain import FROM_RESTART, NO_LINK, VIA_PAGE, contributions, restart_scale
+from .candidates import mix_text, page_candidates, text_row
+from .explain import FROM_RESTART, NO_LINK, SIMILAR_TEXT, VIA_PAGE, contributions, restart_scale
 from .select import cap_per_space, choose_pages, lifted
 
 READ_BY_BAND = 5  # "read by N or more of your team": N a multiple of 5, never the exact count
@@ -146,6 +146,8 @@ def _reason(index: Index, page: int, kind: int, via: int, space: int, audience: 
         said = team_readers(int(audience.read_by[page]), audience.readers, audience.minimum)
         if said is not None:
             return said
+    if kind == SIMILAR_TEXT:
+        return "similar text" if audience.seed is None else f"similar text to {index.titles[audience.seed]}"
     if kind == NO_LINK:
         return "among the most linked-to pages of the wiki"
     if kind == FROM_RESTART and audience.personal:
@@ -164,9 +166,16 @@ def _reason(index: Index, page: int, kind: int, via: int, space: int, audience: 
 
 
 def _items(
-    index: Index, chosen: np.ndarray, vector_values: np.ndarray, lift: float, explained, audience: _Audience
+    index: Index,
+    chosen: np.ndarray,
+    vector_values: np.ndarray,
+    lift: float,
+    explained,
+    audience: _Audience,
+    ranking: np.ndarray | None = None,
 ) -> tuple[Item, ...]:
-    scores = _ranked(index, chosen, vector_values, lift)
+    """Items of ``chosen``: ``ranking`` scores when given (a related score mixing in text), else lifted."""
+    scores = _ranked(index, chosen, vector_values, lift) if ranking is None else ranking
     columns = (chosen, scores, vector_values, explained.kind, explained.via, explained.space)
     # Python numbers up front (tolist): per-element reads of numpy arrays cost more than the rest
     return tuple(
@@ -245,7 +254,8 @@ def related(
         if positions.size == k or positions.size == count:
             chosen = found["pages"][positions].astype(np.int64)
             explained = _Stored(found, positions)
-            items = _items(index, chosen, found["scores"][positions].astype(float), lift, explained, audience)
+            values, ranking = (found[name][positions].astype(float) for name in ("scores", "combined"))
+            items = _items(index, chosen, values, lift, explained, audience, ranking)
             return Recommendations("related", page, items, None, count, time.perf_counter() - started)
     vector = index.seed_vector(seed)
     restart = None
@@ -254,10 +264,32 @@ def related(
         vector = (1.0 - personal_share) * vector + personal_share * personal.vector
         restart = personal_share * reader.restart
         restart[seed] = 0.0
-    chosen = _select(index, vector, eligible, k, lift, per_space)
-    explained = _explain_full(index, vector, chosen, restart)
-    items = _items(index, chosen, vector[chosen], lift, explained, audience)
+    mixed, text_part = _with_text(index, seed, vector, lift)
+    if mixed is None:
+        chosen = _select(index, vector, eligible, k, lift, per_space)
+        explained = _explain_full(index, vector, chosen, restart)
+        items = _items(index, chosen, vector[chosen], lift, explained, audience)
+    else:
+        chosen = _select(index, mixed, eligible, k, 0.0, per_space)
+        explained = _explain_full(index, vector, chosen, restart)
+        explained.kind[text_part[chosen] > mixed[chosen] - text_part[chosen]] = SIMILAR_TEXT
+        items = _items(index, chosen, vector[chosen], lift, explained, audience, mixed[chosen])
     return Recommendations("related", page, items, None, int(eligible.sum()), time.perf_counter() - started)
+
+
+def _with_text(index: Index, seed: int, vector: np.ndarray, lift: float):
+    """The related score mixing in text (:func:`rankrec.recommend.candidates.mix_text`) over every page,
+    and its text part; (None, None) when the index has no text or the configuration no text weight."""
+    weight = index.configuration.text_weight
+    similar_pages, sims = text_row(index.text, seed, index.archived)
+    if weight == 0 or similar_pages.size == 0:
+        return None, None
+    base = (vector > 0) & ~np.asarray(index.archived)
+    base[seed] = False
+    links = np.where(base, lifted(vector, np.asarray(index.global_vector), lift), 0.0)
+    dense = np.zeros(index.size)
+    dense[similar_pages] = sims
+    return mix_text(links, float(links.max()), dense, float(sims.max()), weight)
 
 
 def _seed_number(index: Index, page: str | int) -> int:

@@ -28,6 +28,9 @@ JUMP = "jump"  # an in-page jump, an empty link or a script: neither a link nor 
 OUTSIDE = "outside"  # a relative path that climbs above the wiki folder: an InputError
 NOT_A_PAGE = "not-a-page"  # another file of the folder (an image, a PDF): dropped
 
+_HEADING_CHARS = 80  # of a heading's text in a Markdown place
+_HEADING_READ = 4 * _HEADING_CHARS  # characters of a heading looked at (a heading may be long)
+
 # RFC 3986 section 3.1: scheme = ALPHA *( ALPHA / DIGIT / "+" / "-" / "." ) followed by ":".
 _SCHEME = re.compile(r"[A-Za-z][A-Za-z0-9+.\-]*:")
 # RFC 3986 appendix B: the regular expression that splits a URI reference into its five parts.
@@ -230,18 +233,37 @@ def url_link_target(url: str, base_url: str, others: Collection[str] = frozenset
 
 
 def link_records(
-    source: str, file: str, targets: Iterable[tuple[int | None, str]]
+    source: str, file: str, targets: Iterable[tuple[int | None, str, str]]
 ) -> Iterator[LinkRecord | InputError]:
-    """One LinkRecord per distinct target of page ``source`` (first line), self-links as InputErrors."""
-    seen: set[str] = set()
-    for line, target in targets:
-        if target in seen:
-            continue
-        seen.add(target)
+    """One LinkRecord per distinct target of page ``source``, self-links as InputErrors.
+
+    ``targets`` are ``(line, target, place)`` per link occurrence, in document order. A
+    record has the line of the target's first occurrence and every place it occurs in, with
+    how often (first occurrence first).
+    """
+    lines: dict[str, int | None] = {}
+    places: dict[str, dict[str, int]] = {}
+    for line, target, place in targets:
+        counts = places.get(target)
+        if counts is None:
+            lines[target] = line
+            places[target] = counts = {}
+        counts[place] = counts.get(place, 0) + 1
+    for target, line in lines.items():
         if target == source:
             yield InputError(file, line, f"self-link to {target!r} dropped")
-        else:
-            yield LinkRecord(source, target, Origin(file, line))
+            continue
+        found = tuple(places[target].items())
+        yield LinkRecord(source, target, Origin(file, line), place=found[0][0], places=found)
+
+
+def heading_key(heading: str) -> str:
+    """A heading as a place names it: lowercase, whitespace collapsed, at most 80 characters.
+
+    >>> heading_key("  See   Also ")
+    'see also'
+    """
+    return " ".join(heading[:_HEADING_READ].split()).lower()[:_HEADING_CHARS].rstrip()
 
 
 def duplicate_error(file: str, page: str, first_file: str) -> InputError:

@@ -15,6 +15,7 @@ from collections.abc import Iterator
 from pathlib import Path
 
 from ..errors import InputError
+from .records import clip_utf8
 
 _BOMS = (
     (codecs.BOM_UTF8, "utf-8"),
@@ -136,6 +137,42 @@ def read_text(path: str | Path, encoding: str = "utf-8") -> str:
             "re-save the file as UTF-8 or give its encoding (--encoding)",
         ) from None
     return text.replace("\r\n", "\n").replace("\r", "\n")
+
+
+class CappedText:
+    """Pieces of text, each with its whitespace collapsed, joined into at most ``limit`` bytes of UTF-8.
+
+    Pieces past the limit are not kept, so memory stays bounded by the limit and the work
+    by the size of the pieces offered (one pass over each). Empty pieces are skipped.
+
+    >>> gathered = CappedText(12)
+    >>> for piece in ("  Alpha    beta ", "", "gamma delta"):
+    ...     gathered.add(piece)
+    >>> gathered.text()
+    'Alpha beta g'
+    """
+
+    def __init__(self, limit: int, separator: str = " ") -> None:
+        self._limit = limit
+        self._separator = separator
+        self._parts: list[str] = []
+        self._size = 0  # characters kept, separators included (never more than the bytes they take)
+
+    @property
+    def full(self) -> bool:
+        """True once more than ``limit`` characters are held: later pieces would be cut anyway."""
+        return self._size > self._limit
+
+    def add(self, piece: str) -> None:
+        if self._size > self._limit:
+            return
+        collapsed = " ".join(piece.split())
+        if collapsed:
+            self._parts.append(collapsed)
+            self._size += len(collapsed) + len(self._separator)
+
+    def text(self) -> str:
+        return clip_utf8(self._separator.join(self._parts), self._limit)
 
 
 class _Prefixed(io.RawIOBase):

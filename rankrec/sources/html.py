@@ -5,12 +5,22 @@ without the extension and its URL is the base URL plus that path. ``<a href>`` v
 resolved per RFC 3986 section 5.2 against ``<base href>`` if present, else the page URL;
 URLs under the base URL map back to page ids, all others are external. Links inside
 elements matching the ``exclude`` selector (navigation, headers, footers) are ignored.
+
+A page's text is the text of its document outside ``<head>``, ``<script>``, ``<style>``,
+``<template>``, ``<noscript>`` and the excluded elements, whitespace collapsed, at most
+64 KiB of UTF-8 (cut at a character); its headings are its title and then the text of every
+``<h1>``..``<h6>`` outside the excluded elements, one per line (at most 16 KiB). Every link
+records its place: the elements above it from ``<body>`` (exclusive) down to its parent, each
+as its tag name and its sorted class names (``div.related>ul>li``; at most four classes, each
+cut to 40 name characters, others written ``_``), inline formatting elements left out, the 12
+nearest at most. A link straight under ``<body>`` has the empty place.
 """
 
 from __future__ import annotations
 
 import gzip
 import os
+import re
 import warnings
 import zlib
 from collections.abc import Iterator
@@ -36,8 +46,8 @@ from ._links import (
     resolve_reference,
     url_link_target,
 )
-from ._text import _open_binary, check_encoding, read_text
-from .records import LinkRecord, Origin, PageRecord
+from ._text import CappedText, _open_binary, check_encoding, read_text
+from .records import HEADINGS_BYTES, TEXT_BYTES, LinkRecord, Origin, PageRecord, clip_utf8
 
 __all__ = ["read_html_folder"]
 
@@ -45,12 +55,22 @@ _SUFFIXES = (".html", ".htm")
 # The standard library's parser, because it is the one through which BeautifulSoup keeps
 # the source line of each tag (its lxml tree builder records none, and every link needs one).
 _PARSER = "html.parser"
+_HIDDEN = ("head", "title", "script", "style", "template", "noscript")  # no visible text
+_HEADINGS = ("h1", "h2", "h3", "h4", "h5", "h6")
+# Inline formatting: left out of a link's place (``<p><em><a>`` sits where ``<p><a>`` does).
+_INLINE = frozenset({"span", "em", "strong", "b", "i", "code", "small", "abbr", "sup", "sub", "font"})
+_TOP = frozenset({"body", "html", "[document]"})  # where a place stops (bs4 names the root "[document]")
+_PLACE_DEPTH = 12  # elements of a place, the nearest to the link
+_PLACE_STEPS = 64  # ancestors looked at per place: bounds the work on hostile nesting
+_CLASSES = 4  # class names per element, the first in sorted order
+_NAME_CHARS = 40  # of a tag or class name in a place
+_NOT_NAME = re.compile(r"[^\w-]")  # characters of a class name a place does not keep
 
 
 @dataclass(slots=True)
 class _Parsed:
     record: PageRecord
-    links: list[tuple[int | None, str]]  # (line, page id)
+    links: list[tuple[int | None, str, str]]  # (line, page id, place)
 
 
 def _text_of(tag) -> str:
@@ -84,11 +104,15 @@ def _soup(file: str, encoding: str | None) -> BeautifulSoup | InputError:
 def _decode(data: bytes) -> str:
     """Text of an HTML file: byte-order mark, else ``<meta charset>``, else UTF-8, else windows-1252.
 
-    The candidates are bs4's EncodingDetector's; decoding here (rather than in bs4) keeps
-    its log quiet and makes the last resort explicit: UTF-8 with replacement characters.
+    bs4's EncodingDetector finds the first two; decoding here (rather than in bs4) keeps its
+    log quiet, keeps a character-set guess from overriding valid UTF-8 and makes the last
+    resort explicit: UTF-8 with replacement characters.
     """
     detector = EncodingDetector(data, is_html=True)
-    for encoding in detector.encodings:
+    declared = EncodingDetector.find_declared_encoding(detector.markup, is_html=True)
+    for encoding in (detector.sniffed_encoding, declared, "utf-8", "windows-1252"):
+        if encoding is None:
+            continue
         try:
             return detector.markup.decode(encoding)
         except (UnicodeDecodeError, LookupError):
@@ -111,18 +135,24 @@ def _parse_page(
     for element in exclude.select(soup):
         if not element.decomposed:
             element.decompose()
-    links: list[tuple[int | None, str]] = []
+    links: list[tuple[int | None, str, str]] = []
     external: set[str] = set()
+    places: dict[int, str] = {}  # id of a parent element -> its place (links often share one)
     for anchor in soup.find_all("a", href=True):
         href = _clean(str(anchor["href"]))
         if href == "" or href.startswith("#") or href[:11].lower() == "javascript:":
             continue  # an in-page jump or a script, neither a link nor counted
         kind, value = url_link_target(resolve_reference(document_base, href), base_url, others)
         if kind == PAGE:
-            links.append((anchor.sourceline, value))
+            parent = anchor.parent
+            place = places.get(id(parent))
+            if place is None:
+                place = places[id(parent)] = _place(parent)
+            links.append((anchor.sourceline, value, place))
         elif kind == EXTERNAL:
             external.add(value.partition("#")[0])
         # NOT_A_PAGE (an image, a PDF of the folder) is dropped
+    text, headings = _text_and_headings(soup)
     record = PageRecord(
         page=page,
         title=title,
@@ -130,8 +160,49 @@ def _parse_page(
         space=default_space(page),
         url=page_url,
         external_links=len(external),
+        text=text,
+        headings=clip_utf8(title + ("\n" + headings if headings else ""), HEADINGS_BYTES),
     )
     return _Parsed(record, links)
+
+
+def _text_and_headings(soup: BeautifulSoup) -> tuple[str, str]:
+    """Visible text (whitespace collapsed) and headings (one per line) of a page; changes ``soup``."""
+    for element in soup.find_all(_HIDDEN):
+        if not element.decomposed:
+            element.decompose()
+    headings = CappedText(HEADINGS_BYTES, "\n")
+    for heading in soup.find_all(_HEADINGS):
+        if headings.full:
+            break
+        headings.add(heading.get_text(" "))
+    text = CappedText(TEXT_BYTES)
+    for piece in soup.strings:
+        if text.full:
+            break
+        text.add(piece)
+    return text.text(), headings.text()
+
+
+def _place(element) -> str:
+    """The elements from ``<body>`` (exclusive) down to ``element``, nearest last: ``div.footer>p``."""
+    names: list[str] = []
+    for _ in range(_PLACE_STEPS):
+        if element is None or element.name in _TOP or len(names) == _PLACE_DEPTH:
+            break
+        if element.name not in _INLINE:
+            names.append(_element_name(element))
+        element = element.parent
+    return ">".join(reversed(names))
+
+
+def _element_name(element) -> str:
+    """Tag name and sorted class names joined by dots; never an id, a position or text."""
+    classes = element.get("class") or ()
+    if isinstance(classes, str):
+        classes = classes.split()
+    kept = sorted({_NOT_NAME.sub("_", name[:_NAME_CHARS]) for name in classes[: 8 * _CLASSES]})
+    return ".".join([_NOT_NAME.sub("_", element.name[:_NAME_CHARS]), *kept[:_CLASSES]])
 
 
 def _clean(href: str) -> str:

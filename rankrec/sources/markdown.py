@@ -5,6 +5,15 @@ without the extension. Links are taken from the parsed document, so a link in a 
 or code block never counts, reference definitions work and images are not links.
 Double-bracket wiki links (``[[Target]]``, ``[[Target#Section|shown]]``) are an inline
 rule of the same parser. YAML front matter gives title, space, tags, groups, archived.
+
+A page's text is the text of its parsed blocks (inline text, code spans, fenced and indented
+code; not raw HTML, image descriptions or front matter), whitespace collapsed, at most 64 KiB
+of UTF-8 (cut at a character); its headings are its title and then every heading, one per
+line (at most 16 KiB). Every link records its place: ``md:``, the chain of blocks around it
+(``bullet_list>list_item>paragraph``, the 12 innermost; a table is ``table`` whatever cell
+holds the link) and, after ``@``, the nearest heading above it, lowercase, whitespace
+collapsed, at most 80 characters (``md:bullet_list>list_item>paragraph@see also``; no ``@``
+before the first heading).
 """
 
 from __future__ import annotations
@@ -14,31 +23,32 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import PurePosixPath
-from typing import Any
 
-import yaml
 from markdown_it import MarkdownIt
 from markdown_it.rules_inline import StateInline
 from markdown_it.rules_inline import link as _commonmark_link
 
 from ..errors import InputError
+from ._front_matter import Meta, read_front_matter, split_front_matter
 from ._links import (
     EXTERNAL,
     OUTSIDE,
     PAGE,
     default_space,
     folder_pages,
+    heading_key,
     link_records,
     page_id_for_path,
     relative_link_target,
 )
-from ._text import check_encoding, read_text
-from .records import LinkRecord, Origin, PageRecord
+from ._text import CappedText, check_encoding, read_text
+from .records import HEADINGS_BYTES, TEXT_BYTES, LinkRecord, Origin, PageRecord, clip_utf8
 
 __all__ = ["read_markdown_folder"]
 
 _SUFFIXES = (".md", ".markdown")
-_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+_PLACE_DEPTH = 12  # blocks of a place, the nearest to the link
+_CODE_BLOCKS = ("fence", "code_block")
 _WIKI = "wiki"  # kind of a link whose target is resolved once every title is known
 
 
@@ -89,145 +99,56 @@ def _parser() -> MarkdownIt:
     return parser
 
 
-# ----------------------------------------------------------------------- front matter
-
-
-class _FieldError(Exception):
-    def __init__(self, key: str, reason: str) -> None:
-        self.key = key
-        self.reason = reason
-
-
-def _split_front_matter(text: str) -> tuple[str | None, int]:
-    """YAML text of the front matter and the number of lines it takes (0 if none).
-
-    Raises ValueError if the front matter is opened but never closed.
-    """
-    if not (text.startswith("---\n") or text == "---"):
-        return None, 0
-    lines = text.split("\n")
-    for number in range(1, len(lines)):
-        if lines[number].rstrip() in ("---", "..."):
-            return "\n".join(lines[1:number]), number + 1
-    raise ValueError("front matter opened by '---' on line 1 is never closed by '---' or '...'")
-
-
-def _key_line(yaml_text: str, key: str) -> int | None:
-    """0-based line of ``key`` in the front matter mapping, if it can be found."""
-    try:
-        node = yaml.compose(yaml_text, Loader=_LOADER)
-    except Exception:  # only used to place an error; the error itself is already known
-        return None
-    for key_node, _value in getattr(node, "value", ()):
-        if getattr(key_node, "value", None) == key:
-            return key_node.start_mark.line
-    return None
-
-
-def _string(meta: dict[Any, Any], key: str) -> str | None:
-    value = meta.get(key)
-    if value is None or isinstance(value, str):
-        return value
-    raise _FieldError(key, f"{key} must be a string, got {type(value).__name__} {value!r}")
-
-
-def _strings(meta: dict[Any, Any], key: str) -> tuple[str, ...]:
-    value = meta.get(key)
-    if value is None:
-        return ()
-    if isinstance(value, str):
-        return (value,)
-    if isinstance(value, list) and all(isinstance(item, str) for item in value):
-        return tuple(value)
-    raise _FieldError(
-        key, f"{key} must be a list of strings (or one string), got {type(value).__name__} {value!r}"
-    )
-
-
-def _boolean(meta: dict[Any, Any], key: str) -> bool:
-    value = meta.get(key)
-    if value is None or isinstance(value, bool):
-        return bool(value)
-    raise _FieldError(key, f"{key} must be true or false, got {type(value).__name__} {value!r}")
-
-
-@dataclass(slots=True)
-class _Meta:
-    title: str | None = None
-    space: str | None = None
-    tags: tuple[str, ...] = ()
-    groups: tuple[str, ...] = ()
-    archived: bool = False
-
-
-def _front_matter(yaml_text: str, file: str) -> _Meta | InputError:
-    try:
-        meta = yaml.load(yaml_text, Loader=_LOADER)
-    except yaml.MarkedYAMLError as error:
-        mark = error.problem_mark or error.context_mark
-        line = None if mark is None else mark.line + 2  # line 1 is the opening '---'
-        reason = " ".join(part for part in (error.context, error.problem) if part) or "not valid YAML"
-        return InputError(file, line, f"front matter is not valid YAML: {reason}; page skipped")
-    except Exception as error:  # e.g. ValueError for a date like 2026-13-45, RecursionError
-        return InputError(file, 2, f"front matter is not valid YAML: {error}; page skipped")
-    if meta is None:
-        return _Meta()
-    if not isinstance(meta, dict):
-        return InputError(file, 2, f"front matter must be a mapping, got {type(meta).__name__}; page skipped")
-    try:
-        title = _string(meta, "title")
-        return _Meta(
-            title=title.strip() if title else None,
-            space=_string(meta, "space"),
-            tags=_strings(meta, "tags"),
-            groups=_strings(meta, "groups"),
-            archived=_boolean(meta, "archived"),
-        )
-    except _FieldError as error:
-        line = _key_line(yaml_text, error.key)
-        line = None if line is None else line + 2
-        return InputError(file, line, f"front matter: {error.reason}; page skipped")
-
-
 # ------------------------------------------------------------------------------ pages
 
 
 @dataclass(slots=True)
 class _Parsed:
     record: PageRecord
-    links: list[tuple[int | None, str, str]]  # (line, PAGE or _WIKI, page id or wiki target)
+    links: list[tuple[int | None, str, str, str]]  # (line, PAGE or _WIKI, page id or wiki target, place)
     errors: list[InputError]
 
 
-def _parse_page(relative: str, file: str, text: str, others: set[str]) -> _Parsed | InputError:
-    page = page_id_for_path(relative)
-    try:
-        yaml_text, skipped = _split_front_matter(text)
-    except ValueError as error:
-        return InputError(file, 1, f"{error}; page skipped")
-    meta = _Meta() if yaml_text is None else _front_matter(yaml_text, file)
-    if isinstance(meta, InputError):
-        return meta
-    body = "\n" * skipped + "\n".join(text.split("\n")[skipped:]) if skipped else text
-    try:
-        tokens = _parser().parse(body)
-    except RecursionError:
-        return InputError(file, None, "Markdown nests too deeply to parse; page skipped")
+class _Walk:
+    """What one pass over a page's block tokens gathers: title, text, headings, links."""
 
-    title = meta.title
-    links: list[tuple[int | None, str, str]] = []
-    errors: list[InputError] = []
-    external: set[str] = set()
-    in_h1 = False
-    for block in tokens:
-        if block.type == "heading_open":
-            in_h1 = block.tag == "h1" and title is None
-            continue
-        if block.type != "inline" or not block.children:
-            continue
-        if in_h1:
-            in_h1 = False
-            title = _inline_text(block.children) or None
+    def __init__(self, page: str, file: str, others: set[str], title: str | None) -> None:
+        self.page, self.file, self.others = page, file, others
+        self.title = title
+        self.text = CappedText(TEXT_BYTES)
+        self.headings = CappedText(HEADINGS_BYTES, "\n")
+        self.links: list[tuple[int | None, str, str, str]] = []
+        self.errors: list[InputError] = []
+        self.external: set[str] = set()
+
+    def run(self, tokens) -> None:
+        blocks: list[str] = []  # types of the open blocks around the current token
+        heading = ""  # the nearest heading above, as a place names it
+        in_h1 = False
+        for block in tokens:
+            if block.nesting == 1:
+                blocks.append(block.type.removesuffix("_open"))
+                in_h1 = block.type == "heading_open" and block.tag == "h1" and self.title is None
+                continue
+            if block.nesting == -1:  # markdown-it closes every block it opens
+                blocks.pop()
+                continue
+            if block.type in _CODE_BLOCKS:
+                self.text.add(block.content)
+            if block.type != "inline" or not block.children:
+                continue
+            in_heading = bool(blocks) and blocks[-1] == "heading"
+            shown = _inline_text(block.children) if in_heading or not self.text.full else ""
+            if in_h1:
+                in_h1 = False
+                self.title = shown or None
+            self._links(block, _place(blocks, heading))
+            self.text.add(shown)
+            if in_heading:
+                self.headings.add(shown)
+                heading = heading_key(shown)
+
+    def _links(self, block, place: str) -> None:
         content = block.content
         line = block.map[0] + 1 if block.map else None
         counted = 0  # offset up to which newlines have been added to `line`
@@ -244,27 +165,57 @@ def _parse_page(relative: str, file: str, text: str, others: set[str]) -> _Parse
                 counted = offset
             if child.type == "wikilink":
                 if child.meta["target"]:  # [[#Section]] is an in-page jump
-                    links.append((line, _WIKI, child.meta["target"]))
+                    self.links.append((line, _WIKI, child.meta["target"], place))
                 continue
-            kind, value = relative_link_target(page, href, others)
+            kind, value = relative_link_target(self.page, href, self.others)
             if kind == PAGE:
-                links.append((line, PAGE, value))
+                self.links.append((line, PAGE, value, place))
             elif kind == EXTERNAL:
-                external.add(value)
+                self.external.add(value)
             elif kind == OUTSIDE:
                 reason = f"link to {href!r} leaves the wiki folder; link dropped"
-                errors.append(InputError(file, line, reason))
+                self.errors.append(InputError(self.file, line, reason))
+
+
+def _place(blocks: list[str], heading: str) -> str:
+    """``md:`` + the blocks around a link (a table as one block) + ``@`` + the heading above it."""
+    if "table" in blocks:
+        blocks = blocks[: blocks.index("table") + 1]
+    chain = "md:" + ">".join(blocks[-_PLACE_DEPTH:])
+    return chain + "@" + heading if heading else chain
+
+
+def _parse_page(relative: str, file: str, text: str, others: set[str]) -> _Parsed | InputError:
+    page = page_id_for_path(relative)
+    try:
+        yaml_text, skipped = split_front_matter(text)
+    except ValueError as error:
+        return InputError(file, 1, f"{error}; page skipped")
+    meta = Meta() if yaml_text is None else read_front_matter(yaml_text, file)
+    if isinstance(meta, InputError):
+        return meta
+    body = "\n" * skipped + "\n".join(text.split("\n")[skipped:]) if skipped else text
+    try:
+        tokens = _parser().parse(body)
+    except RecursionError:
+        return InputError(file, None, "Markdown nests too deeply to parse; page skipped")
+    walk = _Walk(page, file, others, meta.title)
+    walk.run(tokens)
+    title = walk.title or PurePosixPath(relative).stem
+    headings = walk.headings.text()
     record = PageRecord(
         page=page,
-        title=title or PurePosixPath(relative).stem,
+        title=title,
         origin=Origin(file, 1 if yaml_text is not None else None),
         space=meta.space if meta.space is not None else default_space(page),
         tags=meta.tags,
         groups=meta.groups,
         archived=meta.archived,
-        external_links=len(external),
+        external_links=len(walk.external),
+        text=walk.text.text(),
+        headings=clip_utf8(" ".join(title.split()) + ("\n" + headings if headings else ""), HEADINGS_BYTES),
     )
-    return _Parsed(record, links, errors)
+    return _Parsed(record, walk.links, walk.errors)
 
 
 def _inline_text(children) -> str:
@@ -332,7 +283,10 @@ def _read(folder: str | os.PathLike[str], encoding: str) -> Iterator[PageRecord 
 
     resolve = _wiki_resolver([item.record for item in parsed])
     for item in parsed:
-        targets = ((line, value if kind == PAGE else resolve(value)) for line, kind, value in item.links)
+        targets = (
+            (line, value if kind == PAGE else resolve(value), place)
+            for line, kind, value, place in item.links
+        )
         yield from link_records(item.record.page, item.record.origin.file, targets)
 
 

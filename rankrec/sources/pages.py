@@ -14,11 +14,11 @@ from ._fields import (
     parse_list,
     parse_optional_text,
 )
-from ._text import check_encoding
-from .records import Origin, PageRecord
+from ._text import CappedText, check_encoding
+from .records import HEADINGS_BYTES, TEXT_BYTES, Origin, PageRecord, clip_utf8
 
-OPTIONAL_COLUMNS = ("title", "space", "tags", "groups", "archived", "url")
-_COMPARED = ("title", "space", "tags", "groups", "archived", "url")
+OPTIONAL_COLUMNS = ("title", "space", "tags", "groups", "archived", "url", "text")
+_COMPARED = ("title", "space", "tags", "groups", "archived", "url", "text")
 
 
 def read_page_export(path: str | Path, *, encoding: str = "utf-8") -> Iterator[PageRecord | InputError]:
@@ -26,11 +26,14 @@ def read_page_export(path: str | Path, *, encoding: str = "utf-8") -> Iterator[P
 
     JSON Lines when the name ends ``.jsonl``/``.ndjson`` (optionally ``.gz``) or the first
     non-blank character is ``{``; otherwise CSV whose header has ``id`` and any of
-    ``title, space, tags, groups, archived, url`` (other columns and JSON keys are ignored).
-    ``tags``/``groups`` are ``;``-separated in CSV and lists (or ``;``-strings) in JSON;
-    ``archived`` is true/false/1/0/yes/no, empty = false. A missing or empty title is the
-    id; an empty space or url is None. A page id repeated with the same fields is yielded
-    once; repeated with other fields it is an InputError naming the first line.
+    ``title, space, tags, groups, archived, url, text`` (other columns and JSON keys are
+    ignored). ``tags``/``groups`` are ``;``-separated in CSV and lists (or ``;``-strings) in
+    JSON; ``archived`` is true/false/1/0/yes/no, empty = false. A missing or empty title is
+    the id; an empty space or url is None. ``text`` is the page's plain text: whitespace is
+    collapsed and at most 64 KiB of UTF-8 kept (cut at a character); a page's headings are
+    its title (a quoted CSV field spans at most 100 lines: JSON Lines suit long text). A page
+    id repeated with the same fields is yielded once; repeated with other fields it is an
+    InputError naming the first line.
 
     Examples
     --------
@@ -74,13 +77,18 @@ def _read(path: str | Path, encoding: str) -> Iterator[PageRecord | InputError]:
 
 def _page(row: Mapping[str, object], origin: Origin) -> PageRecord:
     page = parse_id(row.get("id"), "page id")
+    title = parse_optional_text(row.get("title"), "title") or page
+    text = CappedText(TEXT_BYTES)
+    text.add(parse_optional_text(row.get("text"), "text") or "")
     return PageRecord(
         page=page,
-        title=parse_optional_text(row.get("title"), "title") or page,
+        title=title,
         origin=origin,
         space=parse_optional_text(row.get("space"), "space"),
         tags=parse_list(row.get("tags"), "tags"),
         groups=parse_list(row.get("groups"), "groups"),
         archived=parse_bool(row.get("archived"), "archived"),
         url=parse_optional_text(row.get("url"), "url"),
+        text=text.text(),
+        headings=clip_utf8(" ".join(title.split()), HEADINGS_BYTES),
     )

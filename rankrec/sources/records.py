@@ -11,6 +11,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+TEXT_BYTES = 65_536
+"""Most UTF-8 bytes of a page's text that are kept (64 KiB); longer text is cut at a character."""
+HEADINGS_BYTES = 16_384
+"""Most UTF-8 bytes of a page's headings that are kept (16 KiB), cut the same way."""
+
 
 @dataclass(frozen=True, slots=True)
 class Origin:
@@ -23,7 +28,12 @@ class Origin:
 
 @dataclass(frozen=True, slots=True)
 class PageRecord:
-    """One wiki page. ``groups`` empty means everyone may see it."""
+    """One wiki page. ``groups`` empty means everyone may see it.
+
+    ``text`` is the page's main text as plain text, whitespace collapsed (empty: the source
+    gave none); ``headings`` its title and headings, one per line. Readers keep at most
+    :data:`TEXT_BYTES` and :data:`HEADINGS_BYTES` of them (:func:`clip_utf8`).
+    """
 
     page: str
     title: str
@@ -34,16 +44,34 @@ class PageRecord:
     archived: bool = False
     url: str | None = None
     external_links: int = 0
+    text: str = ""
+    headings: str = ""
 
 
 @dataclass(frozen=True, slots=True)
 class LinkRecord:
-    """A link from page ``source`` to page ``target`` (page ids; the target may not exist)."""
+    """A link from page ``source`` to page ``target`` (page ids; the target may not exist).
+
+    ``places`` says where in the source page the link occurs, as ``(place, occurrences)``
+    pairs in order of first occurrence; ``place`` is the first of them. A place is the
+    structural position of the link in its document (for HTML the element path above it,
+    ``div.footer>p``; for Markdown the block path and the heading above it,
+    ``md:bullet_list>list_item>paragraph@see also``). Both are empty when the source has no
+    structure (an edge list); a record with only ``place`` counts as one occurrence there.
+    """
 
     source: str
     target: str
     origin: Origin
     weight: float = 1.0
+    place: str = ""
+    places: tuple[tuple[str, int], ...] = ()
+
+    def occurrences(self) -> tuple[tuple[str, int], ...]:
+        """``places``, or ``((place, 1),)`` when only ``place`` is given, or ``()``."""
+        if self.places:
+            return self.places
+        return ((self.place, 1),) if self.place else ()
 
 
 @dataclass(frozen=True, slots=True)
@@ -65,6 +93,19 @@ class MembershipRecord:
     name: str
     kind: str
     origin: Origin
+
+
+def clip_utf8(text: str, limit: int) -> str:
+    """``text`` cut to at most ``limit`` bytes of UTF-8, at a character boundary.
+
+    The work is bounded by ``limit`` whatever the length of ``text``; a lone surrogate (which
+    UTF-8 cannot hold) becomes ``?``.
+
+    >>> clip_utf8("naïve", 3), clip_utf8("naïve", 4), clip_utf8("ab", 10)
+    ('na', 'naï', 'ab')
+    """
+    data = text[: limit + 1].encode("utf-8", errors="replace")  # every character takes a byte or more
+    return data[:limit].decode("utf-8", errors="ignore")  # drops only a character cut in two
 
 
 Record = PageRecord | LinkRecord | ViewRecord | MembershipRecord

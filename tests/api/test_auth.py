@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 import json
+import os
+import time
 
 import pytest
 
 from api.app import create_app
 from rankrec.errors import InputError
-from rankrec.tokens import add_token
+from rankrec.tokens import add_token, revoke_token
 from tests.api.conftest import TestClient, settings_for
 
 # RFC 6750 section 2.1: "Authorization: Bearer <token>"; section 3: a 401 carries WWW-Authenticate
@@ -73,3 +75,44 @@ def test_a_token_added_while_serving_works_at_once_and_a_broken_file_keeps_the_o
 def test_the_service_does_not_start_without_a_readable_tokens_file(private_copy):
     with pytest.raises(InputError, match="tokens file"):
         create_app(settings_for({**private_copy, "tokens": private_copy["folder"] / "absent.json"}))
+
+
+def _refused_within(client, token: str, seconds: float) -> float | None:
+    """Seconds until ``token`` is refused (polling), or None if it still works after ``seconds``."""
+    started = time.monotonic()
+    while time.monotonic() - started < seconds:
+        if client.get("/v1/index", headers={"Authorization": f"Bearer {token}"}).status_code == 401:
+            return time.monotonic() - started
+        time.sleep(0.05)
+    return None
+
+
+def test_a_revoked_token_is_refused_by_the_running_service(private_copy):
+    # issue finding 7: removing a token did not revoke it until a restart (OWASP API Security Top 10
+    # 2023, API2 "Broken Authentication": credentials must be revocable)
+    tokens = private_copy["folder"] / "tokens.json"
+    kept, gone = add_token(tokens, "kept", "reader"), add_token(tokens, "gone", "reader")
+    with TestClient(create_app(settings_for({**private_copy, "tokens": tokens}))) as client:
+        assert client.get("/v1/index", headers={"Authorization": f"Bearer {gone}"}).status_code == 200
+        revoke_token(tokens, "gone")
+        waited = _refused_within(client, gone, 5.0)
+        assert waited is not None and waited < 2.0
+        assert client.get("/v1/index", headers={"Authorization": f"Bearer {kept}"}).status_code == 200
+
+
+def test_an_edit_that_keeps_the_size_and_times_of_the_file_is_noticed(private_copy):
+    # file times tick coarsely: an in-place edit of the same size with the old modification time
+    # restored (as a second edit within one tick looks) must still be read
+    tokens = private_copy["folder"] / "tokens.json"
+    token = add_token(tokens, "edited", "reader")
+    client = TestClient(create_app(settings_for({**private_copy, "tokens": tokens})))
+    assert client.get("/v1/index", headers={"Authorization": f"Bearer {token}"}).status_code == 200
+    before = tokens.stat()
+    text = tokens.read_text()
+    digest = json.loads(text)["tokens"][0]["sha256"]
+    with open(tokens, "r+") as handle:  # same inode, same size
+        handle.write(text.replace(digest, "0" * 64))
+    os.utime(tokens, ns=(before.st_atime_ns, before.st_mtime_ns))
+    assert (tokens.stat().st_size, tokens.stat().st_mtime_ns) == (before.st_size, before.st_mtime_ns)
+    waited = _refused_within(client, token, 5.0)
+    assert waited is not None and waited < 2.0

@@ -22,7 +22,15 @@ from rankrec.evaluate.sweeps import Grid
 from rankrec.store import Store
 
 SMALL = Grid(damping=(0.7, 0.85), lift=(0.0, 0.5), half_life_days=(30.0,), navigation_weight=(0.0, 0.3))
-BASELINES = {"random", "most-read", "pagerank", "out-links", "co-visitation", "team-most-read"}
+BASELINES = {
+    "random",
+    "most-read",
+    "pagerank",
+    "out-links",
+    "co-visitation",
+    "team-most-read",
+    "text similarity",
+}
 
 
 @pytest.fixture(scope="module")
@@ -107,6 +115,7 @@ def test_every_method_and_rankrec_see_the_same_splits(demo, monkeypatch):
         run_module.OutLinks,
         run_module.CoVisitation,
         run_module.TeamMostRead,
+        run_module.TextSimilarity,
         PersonalisedPageRank,
     ]
     for cls in classes:

@@ -228,3 +228,110 @@ def test_any_file_content_gives_records_or_input_errors(content):
             Path(folder), {"sub/page.html": content, "other.html": "<a href='sub/page.html'>p</a>"}
         )
     assert records and all(isinstance(r, PageRecord | LinkRecord | InputError) for r in records)
+
+
+# ------------------------------------------------------------------ page text and link places
+
+_PAGE = """<!DOCTYPE html>
+<html><head><title>Disk  quotas</title><style>p { color: red }</style>
+<script>var secret = "script text";</script></head>
+<body>
+<nav><a href="index.html">Home</a> navigation text</nav>
+<div class="document"><div class="body" id="main">
+<h1>Disk <em>quotas</em></h1>
+<p>Each team gets <a href="db.html">space</a> on
+   <strong><a href="disk.html">disks</a></strong>.</p>
+<!-- a comment -->
+<noscript>Enable scripts</noscript><template><p>template text</p></template>
+<h2>See also</h2>
+<div class="related  b-side a-side"><ul><li><a href="db.html">Database</a></li>
+<li><span><a href="net.html">Network</a></span></li></ul></div>
+</div></div>
+<div class="footer"><p><a href="license.html">License</a> &copy; 2024</p></div>
+<a href="top.html">top</a>
+</body></html>
+"""
+
+
+def test_text_and_headings_of_a_small_page(tmp_path):
+    # Worked by hand from _PAGE: the visible text outside <head>, <script>, <style>, <noscript>,
+    # <template>, comments and the excluded <nav>, in document order, whitespace collapsed (text
+    # pieces are joined by one space, so "disks" and "." come apart); headings: title, h1, h2.
+    (page,) = pages(read(tmp_path, {"a.html": _PAGE})).values()
+    assert (
+        page.text
+        == "Disk quotas Each team gets space on disks . See also Database Network License © 2024 top"
+    )
+    assert page.headings == "Disk quotas\nDisk quotas\nSee also"
+    for hidden in (
+        "script text",
+        "color",
+        "Enable scripts",
+        "template text",
+        "comment",
+        "navigation",
+        "Home",
+    ):
+        assert hidden not in page.text and hidden not in page.headings
+
+
+def test_excluded_selector_text_never_appears(tmp_path):
+    # The exclude selector (CSS Selectors Level 4, by soupsieve) removes text and headings too.
+    page = "<body><div class='sidebar'><h2>Menu</h2>sidebar words</div><p>body words</p></body>"
+    (record,) = pages(read(tmp_path, {"a.html": page}, exclude=".sidebar")).values()
+    assert (record.text, record.headings) == ("body words", "a")
+
+
+def test_link_places_name_the_elements_above_each_link(tmp_path):
+    # Worked by hand from _PAGE: ancestors from <body> (exclusive) to the link's parent; tag names
+    # with sorted class names; <strong> and <span> (inline formatting) and ids left out; a link
+    # straight under <body> has the empty place; one target in two places keeps both, with counts.
+    records = read(tmp_path, {"a.html": _PAGE})
+    places = {r.target: r.places for r in records if isinstance(r, LinkRecord)}
+    assert places == {
+        "db": (("div.document>div.body>p", 1), ("div.document>div.body>div.a-side.b-side.related>ul>li", 1)),
+        "disk": (("div.document>div.body>p", 1),),
+        "net": (("div.document>div.body>div.a-side.b-side.related>ul>li", 1),),
+        "license": (("div.footer>p", 1),),
+        "top": (("", 1),),
+    }
+    first = next(r for r in records if isinstance(r, LinkRecord) and r.target == "db")
+    assert first.place == "div.document>div.body>p" and first.origin.line == 8
+
+
+def test_a_repeated_link_is_counted_in_its_place(tmp_path):
+    page = "<body><section><p><a href='b.html'>b</a> and <a href='b.html#x'>again</a></p></section></body>"
+    (link,) = [r for r in read(tmp_path, {"a.html": page}) if isinstance(r, LinkRecord)]
+    assert link.places == (("section>p", 2),)
+
+
+def test_places_are_bounded_on_deep_nesting(tmp_path):
+    # Treat input as hostile: 3,000 nested elements give a place of the 12 nearest, and the
+    # walk up stops after a bounded number of inline elements.
+    page = "<body>" + "<div class='d'>" * 3000 + "<p><a href='b.html'>b</a></p>" + "</div>" * 3000
+    page += "<em>" * 500 + "<a href='c.html'>c</a>"
+    links = {r.target: r.place for r in read(tmp_path, {"a.html": page}) if isinstance(r, LinkRecord)}
+    assert links["b"] == ">".join(["div.d"] * 11 + ["p"])
+    assert links["c"] == ""
+
+
+def test_class_names_in_places_keep_only_name_characters(tmp_path):
+    page = "<body><div class='z x>y a.b'><a href='b.html'>b</a></div></body>"
+    (link,) = [r for r in read(tmp_path, {"a.html": page}) if isinstance(r, LinkRecord)]
+    assert link.place == "div.a_b.x_y.z"
+
+
+def test_text_is_capped_at_a_character_boundary(tmp_path):
+    # RFC 3629: a UTF-8 character is one to four bytes; a cut between them would not decode.
+    page = "<body><p>a" + "é" * 40_000 + "</p></body>"
+    (record,) = pages(read(tmp_path, {"a.html": page})).values()
+    assert len(record.text.encode("utf-8")) == 65_535  # "a" + 32,767 two-byte characters
+    assert record.text == "a" + "é" * 32_767
+
+
+def test_many_headings_and_paragraphs_stop_at_their_caps(tmp_path):
+    # The caps of records.py: 16 KiB of headings, 64 KiB of text (UTF-8 bytes); the rest is not read.
+    page = "<body>" + "".join(f"<h2>Heading {n:05d}</h2><p>Paragraph {n:05d}.</p>" for n in range(5000))
+    (record,) = pages(read(tmp_path, {"a.html": page})).values()
+    assert len(record.headings.encode()) == 16_384 and record.headings.startswith("a\nHeading 00000\n")
+    assert len(record.text.encode()) == 65_536 and record.text.startswith("Heading 00000 Paragraph 00000.")

@@ -33,7 +33,7 @@ def link_targets(markdown: str, page: str = "p") -> list[str]:
     """Page ids the links of one page point to, in document order (before de-duplication)."""
     parsed = _parse_page(page + ".md", page + ".md", markdown, set())
     assert not isinstance(parsed, InputError), parsed
-    return [value for _line, _kind, value in parsed.links]
+    return [value for _line, _kind, value, _place in parsed.links]
 
 
 # ------------------------------------------------------- CommonMark specification cases
@@ -248,3 +248,91 @@ def test_any_file_content_gives_records_or_input_errors(content):
     with tempfile.TemporaryDirectory() as folder:
         records = read(Path(folder), {"sub/page.md": content, "other.md": "[[page]] [x](sub/page.md)\n"})
     assert records and all(isinstance(r, PageRecord | LinkRecord | InputError) for r in records)
+
+
+# ------------------------------------------------------------------ page text and link places
+
+_PAGE = """---
+title: Disk quotas
+---
+# Quotas
+
+Each *team* gets [space](db.md) and `du -sh`.
+<div>raw html</div>
+
+```
+df -h
+```
+
+![a diagram](quota.png)
+
+## See  Also
+
+- [Database](db.md)
+- [[Network]]
+
+| Page | Why |
+|------|-----|
+| [Disks](disks.md) | size |
+
+> Ask [support](help.md).
+"""
+
+
+def test_text_and_headings_of_a_small_page():
+    # Worked by hand from _PAGE (CommonMark Spec 0.31.2: emphasis, code spans, fenced code, raw
+    # HTML blocks, images, tables): every block's text in order, whitespace collapsed; raw HTML,
+    # the image description and the front matter left out; headings: title, then h1 and h2.
+    parsed = _parse_page("ops/quotas.md", "ops/quotas.md", _PAGE, set())
+    assert parsed.record.text == (
+        "Quotas Each team gets space and du -sh. df -h See Also Database Network Page Why Disks size "
+        "Ask support."
+    )
+    assert parsed.record.headings == "Disk quotas\nQuotas\nSee Also"
+    assert "raw html" not in parsed.record.text and "diagram" not in parsed.record.text
+
+
+def test_link_places_name_the_blocks_and_the_heading_above():
+    # Worked by hand from _PAGE: block chain from the markdown-it token stream, a table as one
+    # block, then the nearest heading above, lowercase with whitespace collapsed.
+    parsed = _parse_page("ops/quotas.md", "ops/quotas.md", _PAGE, set())
+    assert [(value, place) for _line, _kind, value, place in parsed.links] == [
+        ("ops/db", "md:paragraph@quotas"),
+        ("ops/db", "md:bullet_list>list_item>paragraph@see also"),
+        ("Network", "md:bullet_list>list_item>paragraph@see also"),
+        ("ops/disks", "md:table@see also"),
+        ("ops/help", "md:blockquote>paragraph@see also"),
+    ]
+
+
+def test_a_see_also_list_shares_its_place_across_pages(tmp_path):
+    files = {
+        name + ".md": f"# {name}\n\nBody of {name}.\n\n## See also\n\n- [[{other}]]\n"
+        for name, other in (("a", "b"), ("b", "c"), ("c", "a"))
+    }
+    files["d.md"] = "Before any heading: [a](a.md), and [a](a.md) again.\n"
+    records = read(tmp_path, files)
+    places = {(r.source, r.target): r.places for r in records if isinstance(r, LinkRecord)}
+    assert places == {
+        ("a", "b"): (("md:bullet_list>list_item>paragraph@see also", 1),),
+        ("b", "c"): (("md:bullet_list>list_item>paragraph@see also", 1),),
+        ("c", "a"): (("md:bullet_list>list_item>paragraph@see also", 1),),
+        ("d", "a"): (("md:paragraph", 2),),  # no heading above: no "@"
+    }
+
+
+def test_text_is_capped_at_a_character_boundary(tmp_path):
+    # RFC 3629: a UTF-8 character is one to four bytes; a cut between them would not decode.
+    # 64 KiB = 65,536 bytes: "a" and 32,767 two-byte characters fill 65,535 of them.
+    (page,) = [r for r in read(tmp_path, {"p.md": "a" + "é" * 40_000 + "\n"}) if isinstance(r, PageRecord)]
+    assert page.text == "a" + "é" * 32_767
+    assert len(page.text.encode("utf-8")) == 65_535
+
+
+def test_long_pages_are_read_in_linear_time(tmp_path):
+    # Bounded work per page: 20,000 paragraphs with a link each (about 0.6 MB) read in one pass.
+    body = "".join(f"Paragraph {i} links [b](b.md).\n\n" for i in range(20_000))
+    records = read(tmp_path, {"a.md": body, "b.md": "# B\n"})
+    (link,) = [r for r in records if isinstance(r, LinkRecord)]
+    assert link.places == (("md:paragraph", 20_000),)
+    assert len(next(r for r in records if isinstance(r, PageRecord)).text.encode()) <= 65_536

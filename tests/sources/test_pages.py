@@ -139,3 +139,27 @@ def test_arbitrary_json_objects_never_raise(objects):
 def test_bad_encoding_argument():
     with pytest.raises(ValueError, match="encoding"):
         read_page_export("pages.csv", encoding="no-such-codec")
+
+
+def test_optional_text_column_and_key(tmp_path):
+    # RFC 4180: a quoted field may hold line breaks; whitespace is then collapsed as every reader does.
+    (csv_page, plain) = _read(tmp_path, 'id,title,text\nops/db,Database,"Back up\n  nightly."\nops/x,X,\n')
+    assert (csv_page.text, csv_page.headings) == ("Back up nightly.", "Database")
+    assert plain.text == ""
+    lines = [{"id": "a", "title": "A  page", "text": "Line one.\nLine two."}, {"id": "b", "text": None}]
+    a, b = _read(tmp_path, "\n".join(json.dumps(line) for line in lines) + "\n", name="pages.jsonl")
+    assert (a.text, a.headings, b.text) == ("Line one. Line two.", "A page", "")
+
+
+def test_text_is_capped_and_must_be_a_string(tmp_path):
+    # RFC 3629: a cut between the bytes of one UTF-8 character would not decode; 64 KiB = 65,536 bytes,
+    # which "a" and 21,845 three-byte characters (U+20AC) fill exactly.
+    lines = [{"id": "a", "text": "a" + "€" * 30_000}, {"id": "b", "text": 5}]
+    a, error = _read(tmp_path, "\n".join(json.dumps(line) for line in lines) + "\n", name="pages.jsonl")
+    assert a.text == "a" + "€" * 21_845 and len(a.text.encode("utf-8")) == 65_536
+    assert isinstance(error, InputError) and "text must be a string" in error.reason
+
+
+def test_repeated_id_with_other_text_is_an_error(tmp_path):
+    records = _read(tmp_path, "id,text\na,one\na,two\n")
+    assert [line for line, _ in _errors(records)] == [3] and "different text" in _errors(records)[0][1]

@@ -1,0 +1,196 @@
+"""What a build reads from a store, in one snapshot: :class:`Evidence` and :func:`read_evidence`.
+
+The link graph (with where each link sits, for judging page chrome), the page table, access groups, page
+text, reading history, teams and topics, in the graph's dense page numbering. Offline evaluation makes the
+same object from a split's training part (:meth:`Evidence.with_views`, :meth:`Evidence.with_links`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+import scipy.sparse as sp
+
+from .errors import InputError
+from .graph import LinkPlaces, WikiGraph, dense_numbers, load_graph
+from .graph import fingerprint as graph_fingerprint
+from .profiles import ViewLog
+from .store import Store
+from .topics import store_topics, text_topics
+
+
+@dataclass(frozen=True, eq=False)
+class Evidence:
+    """Everything a build reads from a store (see :func:`read_evidence`)."""
+
+    graph: WikiGraph
+    titles: list[str]
+    space_names: list[str]
+    space_codes: np.ndarray
+    archived: np.ndarray
+    group_incidence: sp.csr_array
+    group_names: list[str]
+    views: ViewLog
+    teams: dict[str, np.ndarray]
+    reader_groups: dict[int, frozenset[str]]
+    topics: dict[str, np.ndarray]
+    topic_kind: str
+    store: str
+    store_import: int | None = None
+    places: LinkPlaces | None = None
+    headings: list[str] | None = None
+    bodies: list[str] | None = None
+    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def size(self) -> int:
+        return self.graph.size
+
+    @classmethod
+    def from_links(cls, adjacency, views: ViewLog | None = None) -> Evidence:
+        """A wiki known only by its link matrix (pages ``p0, p1, ...``, no spaces, groups or teams)."""
+        adjacency = sp.csr_matrix(adjacency, dtype=np.float64)
+        adjacency.sum_duplicates()
+        adjacency.sort_indices()
+        size = adjacency.shape[0]
+        pages = np.array([f"p{number}" for number in range(size)], dtype=object)
+        graph = WikiGraph(
+            pages,
+            adjacency,
+            np.arange(1, size + 1, dtype=np.int64),
+            fingerprint=graph_fingerprint(pages, adjacency),
+        )
+        empty = np.zeros(0, dtype=np.int64)
+        return cls(
+            graph=graph,
+            titles=pages.tolist(),
+            space_names=[],
+            space_codes=np.full(size, -1, dtype=np.int32),
+            archived=np.zeros(size, dtype=bool),
+            group_incidence=sp.csr_array((size, 0), dtype=np.int8),
+            group_names=[],
+            views=views if views is not None else ViewLog(empty, empty, empty),
+            teams={},
+            reader_groups={},
+            topics={},
+            topic_kind="none",
+            store=":memory:",
+        )
+
+    def with_views(self, views: ViewLog) -> Evidence:
+        """The same wiki with another reading history (for example a split's training part)."""
+        return replace(self, views=views)
+
+    def with_links(self, links) -> Evidence:
+        """The same wiki with only the links ``links`` holds (a held-out-links split hides some from every
+        input: the link matrix and the link places chrome is judged from)."""
+        adjacency = sp.csr_matrix(links, dtype=np.float64)
+        adjacency.sum_duplicates()
+        adjacency.sort_indices()
+        graph = WikiGraph(
+            self.graph.pages,
+            adjacency,
+            self.graph.row_ids,
+            fingerprint=graph_fingerprint(self.graph.pages, adjacency),
+        )
+        places = None if self.places is None else self.places.keeping(adjacency)
+        return replace(self, graph=graph, places=places)
+
+    @property
+    def has_text(self) -> bool:
+        return self.bodies is not None
+
+
+def _group_tables(size: int, pages: np.ndarray, names: list[str]) -> tuple[sp.csr_array, list[str]]:
+    """Pages × groups incidence (CSR, int8) from dense page numbers and group names side by side."""
+    unique = sorted(set(names))
+    code = {name: position for position, name in enumerate(unique)}
+    groups = np.fromiter((code[name] for name in names), dtype=np.int64, count=len(names))
+    keep = pages >= 0
+    incidence = sp.csr_array(
+        (np.ones(int(keep.sum()), dtype=np.int8), (pages[keep], groups[keep])), shape=(size, len(unique))
+    )
+    incidence.sum_duplicates()
+    return incidence, unique
+
+
+def _topics(store: Store, graph: WikiGraph, topics: str) -> dict[str, np.ndarray]:
+    if topics in ("spaces", "tags"):
+        return store_topics(store, graph, topics)
+    if topics == "none":
+        return {}
+    if topics.startswith("text:") and topics[5:].isdigit() and int(topics[5:]) > 0:
+        return text_topics(store, graph, int(topics[5:]))
+    raise ValueError(f"topics must be 'spaces', 'tags', 'none' or 'text:K' (K > 0); got {topics!r}")
+
+
+def read_evidence(store: Store, *, topics: str = "spaces") -> Evidence:
+    """Read what a build needs from ``store`` in one snapshot (views arriving meanwhile wait for the next)."""
+    with store.reading():
+        graph = load_graph(store)
+        if graph.size < 2:
+            raise InputError(store.path, None, "the wiki store holds fewer than two pages; import some first")
+        rows = store.page_table()
+        titles = [row[0] or page for row, page in zip(rows, graph.pages.tolist(), strict=True)]
+        space_names = sorted({row[1] for row in rows if row[1] is not None})
+        space_code = {name: position for position, name in enumerate(space_names)}
+        space_codes = np.fromiter(
+            (space_code.get(row[1], -1) for row in rows), dtype=np.int32, count=len(rows)
+        )
+        archived = np.fromiter((bool(row[2]) for row in rows), dtype=bool, count=len(rows))
+        pairs = store.page_group_pairs()
+        grouped = dense_numbers(graph.row_ids, np.array([row[0] for row in pairs], dtype=np.int64))
+        incidence, group_names = _group_tables(graph.size, grouped, [row[1] for row in pairs])
+        users, viewed, times = store.view_arrays()
+        teams: dict[str, list[int]] = {}
+        for user, name in store.memberships("team"):
+            teams.setdefault(name, []).append(int(user))
+        groups: dict[int, set[str]] = {}
+        for user, name in store.memberships("group"):
+            groups.setdefault(int(user), set()).add(name)
+        topic_sets = _topics(store, graph, topics)
+        store_import = store.latest_import()
+        places = _places(store, graph)
+        headings, bodies = _texts(store, graph)
+    return Evidence(
+        graph=graph,
+        titles=titles,
+        space_names=space_names,
+        space_codes=space_codes,
+        archived=archived,
+        group_incidence=incidence,
+        group_names=group_names,
+        views=ViewLog(users, dense_numbers(graph.row_ids, viewed), times),
+        teams={name: np.array(sorted(members), dtype=np.int64) for name, members in sorted(teams.items())},
+        reader_groups={user: frozenset(names) for user, names in groups.items()},
+        topics=topic_sets,
+        topic_kind=topics,
+        store=str(Path(store.path).resolve()) if store.path != ":memory:" else ":memory:",
+        store_import=store_import,
+        places=places,
+        headings=headings,
+        bodies=bodies,
+    )
+
+
+def _places(store: Store, graph: WikiGraph) -> LinkPlaces | None:
+    sources, targets, places, counts, names = store.link_place_arrays()
+    if sources.size == 0:
+        return None
+    rows, columns = dense_numbers(graph.row_ids, sources), dense_numbers(graph.row_ids, targets)
+    keep = (rows >= 0) & (columns >= 0)
+    return LinkPlaces(rows[keep], columns[keep], places[keep], counts[keep], names)
+
+
+def _texts(store: Store, graph: WikiGraph) -> tuple[list[str] | None, list[str] | None]:
+    rows, headings, texts = store.page_texts_by_row()
+    if rows.size == 0:
+        return None, None
+    numbers = dense_numbers(graph.row_ids, rows)
+    all_headings, all_bodies = [""] * graph.size, [""] * graph.size
+    for number, heading, text in zip(numbers.tolist(), headings, texts, strict=True):
+        if number >= 0:
+            all_headings[number], all_bodies[number] = heading, text
+    return all_headings, all_bodies
