@@ -202,5 +202,7 @@ def chrome_pairs(size: int, places: LinkPlaces | None, judgement) -> sp.csr_matr
     rows, columns = places.sources, places.targets
     total = sp.csr_matrix((np.ones(rows.size), (rows, columns)), shape=shape)
     chrome = sp.csr_matrix((judgement.chrome.astype(np.float64), (rows, columns)), shape=shape)
-    only = sp.csr_matrix((total - chrome) == 0).multiply(total > 0)
-    return sp.csr_matrix(only, dtype=np.float64)
+    content = total - chrome  # content occurrences of each pair
+    only = sp.csr_matrix(total > 0, dtype=np.float64) - sp.csr_matrix(content > 0, dtype=np.float64)
+    only.eliminate_zeros()
+    return only

@@ -161,7 +161,7 @@ def _plot_intervals(evaluation: Evaluation, staging: Path) -> str:
     figure = Figure(figsize=(7, 0.5 * len(names) + 1.5), layout="constrained")
     ax = figure.subplots()
     colours = ["black" if name == "rankrec" else "tab:blue" for name in names]
-    ax.barh(names, means, xerr=[low, high], color=colours, alpha=0.7, capsize=4)
+    ax.barh(names, means, xerr=[np.maximum(low, 0), np.maximum(high, 0)], color=colours, alpha=0.7, capsize=4)
     ax.invert_yaxis()
     ax.set_xlabel(f"{metric} on the test split, with per-user bootstrap 95% interval")
     ax.grid(axis="x", alpha=0.3)
