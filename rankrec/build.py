@@ -37,7 +37,7 @@ from .profiles import SECONDS_PER_DAY, reader_profiles, team_restart
 from .progress import Progress, report
 from .recommend.candidates import DEFAULT_K_RELATED, write_related
 from .store import Store
-from .text import save_text_neighbours, text_neighbours
+from .text import save_text_neighbours
 
 EXACT_LIMIT = 5_000  # method "auto": block power iteration up to this many pages, push above
 
@@ -240,9 +240,7 @@ def build_from_evidence(
     started = time.perf_counter()
     text = None
     if evidence.has_text and configuration.text_weight > 0:
-        text = text_neighbours(
-            evidence.headings, evidence.bodies, title_weight=configuration.title_weight, progress=progress
-        )
+        text = evidence.text_neighbours(configuration.title_weight, progress=progress)
     seconds["text"] = time.perf_counter() - started
     skipped = skipped_pages(evidence, configuration.skip_pages)
     if skipped.any():  # kept out of every list as archived pages are

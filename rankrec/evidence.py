@@ -18,6 +18,7 @@ from .graph import LinkPlaces, WikiGraph, dense_numbers, load_graph
 from .graph import fingerprint as graph_fingerprint
 from .profiles import ViewLog
 from .store import Store
+from .text import text_neighbours
 from .topics import store_topics, text_topics
 
 
@@ -43,6 +44,9 @@ class Evidence:
     headings: list[str] | None = None
     bodies: list[str] | None = None
     notes: tuple[str, ...] = field(default=())
+    # text neighbours by title weight: the text does not change with the views or links a split keeps,
+    # so the copies made by with_views/with_links share them (an evaluation builds many indexes)
+    _text: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def size(self) -> int:
@@ -101,6 +105,15 @@ class Evidence:
     @property
     def has_text(self) -> bool:
         return self.bodies is not None
+
+    def text_neighbours(self, title_weight: float, progress=None):
+        """The pages' text neighbours (:func:`rankrec.text.text_neighbours`), once per title weight."""
+        found = self._text.get(title_weight)
+        if found is None:
+            found = self._text[title_weight] = text_neighbours(
+                self.headings, self.bodies, title_weight=title_weight, progress=progress
+            )
+        return found
 
 
 def _group_tables(size: int, pages: np.ndarray, names: list[str]) -> tuple[sp.csr_array, list[str]]:

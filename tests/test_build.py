@@ -173,3 +173,23 @@ def test_a_bad_settings_file_is_refused_in_one_line(wiki, tmp_path, capsys):
     assert not (tmp_path / "index").exists()  # nothing published
     assert main(["build", "--wiki", str(wiki), "--index", str(tmp_path / "index"), "--damping", "2"]) == 2
     assert "damping" in capsys.readouterr().err
+
+
+def test_text_neighbours_are_computed_once_for_every_copy_of_the_evidence():
+    # An evaluation builds an index per configuration tried; the text is the same in every copy.
+    from dataclasses import replace
+
+    import scipy.sparse as sp
+
+    from rankrec.evidence import Evidence
+    from rankrec.profiles import ViewLog
+
+    evidence = Evidence.from_links(sp.csr_matrix(np.ones((3, 3)) - np.eye(3)))
+    evidence = replace(evidence, headings=["Printer setup", "Printer drivers", "Leave"], bodies=["", "", ""])
+    first = evidence.text_neighbours(0.4)
+    empty = np.zeros(0, dtype=np.int64)
+    copy = evidence.with_views(ViewLog(empty, empty, np.zeros(0))).with_links(evidence.graph.adjacency)
+    assert copy.text_neighbours(0.4) is first
+    assert copy.text_neighbours(0.8) is not first and evidence.text_neighbours(0.8) is copy.text_neighbours(
+        0.8
+    )

@@ -31,7 +31,6 @@ from ..configuration import Configuration
 from ..errors import CutoffOutsideSpan, InputError, NothingToEvaluate
 from ..progress import Progress
 from ..store import Store
-from ..text import text_neighbours
 from .baselines import (
     CoVisitation,
     GlobalPageRank,
@@ -200,10 +199,7 @@ def baselines(data: EvaluationData, split: Split, *, seed: int = 0) -> list:
     ]
     evidence = data.evidence
     if evidence is not None and evidence.has_text:
-        neighbours = text_neighbours(
-            evidence.headings, evidence.bodies, title_weight=Configuration.title_weight
-        )
-        found.append(TextSimilarity(neighbours.similar))
+        found.append(TextSimilarity(evidence.text_neighbours(Configuration.title_weight).similar))
     if data.teams is not None:
         top = max(int(split.train.users.max(initial=0)), int(split.queries.users.max(initial=0)))
         teams = np.full(max(top + 1, data.teams.size), -1, dtype=np.int64)
