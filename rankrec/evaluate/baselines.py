@@ -231,6 +231,13 @@ def _seeds(split: Split, history: int, *, last_only: bool) -> sp.csr_array:
     return seeds
 
 
+def split_links(adjacency, split: Split) -> sp.csr_array:
+    """The link matrix a link baseline may use on ``split``: a split that hides links (held-out links, and
+    the validation split carved from it) brings its own, so no hidden link reaches a baseline whichever
+    split it answers; otherwise ``adjacency`` (checked as :func:`check_adjacency` does)."""
+    return check_adjacency(adjacency if split.links is None else split.links, split)
+
+
 def check_adjacency(adjacency, split: Split) -> sp.csr_array:
     """A float64 CSR copy of ``adjacency``, refused unless it is sparse and ``split.size`` square."""
     if not sp.issparse(adjacency):
@@ -309,7 +316,7 @@ class GlobalPageRank:
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
         k = check_count("k", k)
-        adjacency = check_adjacency(self.adjacency, split)
+        adjacency = split_links(self.adjacency, split)
         check_fraction("damping", self.damping, open_low=True, open_high=True)
         result = personalised_pagerank(prepare(adjacency), None, damping=self.damping, tol=self.tol)
         return _from_global(np.asarray(result.vectors, dtype=np.float64), split, k)
@@ -324,7 +331,7 @@ class OutLinks:
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
         k = check_count("k", k)
-        links = check_adjacency(self.adjacency, split)
+        links = split_links(self.adjacency, split)
         links.data[:] = 1.0
         popularity = sp.diags_array(1.0 + training_counts(split.train))
         return _ranked_product(

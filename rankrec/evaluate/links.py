@@ -89,8 +89,8 @@ def held_out_links_split(
     remaining = sp.csr_array(matrix - matrix.multiply(hidden > 0))
     remaining.eliminate_zeros()
     empty = _views(np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0), size)
-    queries = Queries(
-        users=np.zeros(pages.size, dtype=np.int64),
+    queries = Queries(  # no readers: each query page is its own unit of the bootstrap, a public viewer
+        users=np.arange(pages.size, dtype=np.int64),
         times=np.zeros(pages.size),
         pages=pages.astype(np.int64)[:, None],
     )
@@ -112,4 +112,5 @@ def held_out_links_split(
         settings=MappingProxyType(settings),
         counts=MappingProxyType(counts),
         links=remaining,
+        chrome=None if chrome is None else sp.csr_array(only_chrome, dtype=np.float64),
     )

@@ -87,7 +87,8 @@ def query_readers(split: Split, evidence: Evidence, configuration: Configuration
             if rows[number] >= 0:
                 restart = restarts[[rows[number]]].toarray().ravel()
         recent = excluded.indices[excluded.indptr[number] : excluded.indptr[number + 1]].astype(np.int64)
-        groups = evidence.reader_groups.get(user, frozenset())
+        # held-out links have no readers (a query's "user" is its own number): a public viewer asks
+        groups = frozenset() if split.name == "links" else evidence.reader_groups.get(user, frozenset())
         readers.append(Reader(user=str(user), groups=groups, restart=restart, recent=recent))
     return readers
 

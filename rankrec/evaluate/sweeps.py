@@ -135,6 +135,7 @@ def validation_split(split: Split) -> Split:
     elif split.name == "links":  # hide the same share again, from the links the test split left
         made = held_out_links_split(
             split.links,
+            chrome=split.chrome,
             share=settings["share"],
             min_links=settings["min_links"],
             seed=settings["seed"] + 1,

@@ -74,6 +74,9 @@ class Split:
         ``train_views``, ``held_out_views``, ``unused_views``, ``queries`` and ``dropped_*`` counts.
     links : scipy.sparse.csr_array or None
         The link matrix every method may use, when the task hides links (held-out links); None: the wiki's.
+    chrome : scipy.sparse.csr_array or None
+        Links judged page chrome, never hidden and never a target (held-out links: the validation split
+        carved from the training part follows the same rule).
     """
 
     name: str
@@ -86,6 +89,7 @@ class Split:
     settings: MappingProxyType
     counts: MappingProxyType
     links: sp.csr_array | None = None
+    chrome: sp.csr_array | None = None
 
     @property
     def size(self) -> int:
