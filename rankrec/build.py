@@ -35,7 +35,8 @@ from .index import IndexManifest, write_tables
 from .pagerank import personalised_pagerank, prepare
 from .profiles import SECONDS_PER_DAY, reader_profiles, team_restart
 from .progress import Progress, report
-from .recommend.candidates import DEFAULT_K_RELATED, write_related
+from .ranker.features import Signals
+from .recommend.candidates import DEFAULT_K_RELATED, seed_vectors, write_related
 from .store import Store
 from .text import save_text_neighbours
 
@@ -51,15 +52,7 @@ def chrome_only(evidence: Evidence) -> sp.csr_matrix | None:
 def _chrome_summary(evidence: Evidence, judgement) -> dict:
     if judgement is None:
         return {"judged": False}
-    names, pages = evidence.places.names, evidence.graph.pages
-    return {
-        "judged": True,
-        "occurrences": int(judgement.occurrences),
-        "chrome_occurrences": int(judgement.chrome_occurrences),
-        "share": round(float(judgement.chrome_share), 4),
-        "places": [names[int(code)] for code in judgement.chrome_places[:10]],
-        "top_targets": [str(pages[int(page)]) for page in judgement.top_targets[:10]],
-    }
+    return judgement.summary(evidence.places.names, evidence.graph.pages)
 
 
 def navigation_matrix(evidence: Evidence, configuration: Configuration) -> tuple[sp.csr_matrix, dict]:
@@ -92,6 +85,61 @@ def navigation_matrix(evidence: Evidence, configuration: Configuration) -> tuple
         "chrome": chrome,
     }
     return blended, summary
+
+
+def chrome_in_share(evidence: Evidence) -> np.ndarray:
+    """Per page, the share of the link occurrences pointing at it that are page chrome (0 without places)."""
+    share = np.zeros(evidence.size)
+    places = evidence.places
+    if places is None or places.sources.size == 0:
+        return share
+    _, judgement = content_matrix(evidence.graph.adjacency, places, chrome_weight=0.0)
+    counts = np.asarray(places.counts, dtype=np.float64)
+    total = np.bincount(places.targets, weights=counts, minlength=evidence.size)
+    chrome = np.bincount(places.targets, weights=counts * judgement.chrome, minlength=evidence.size)
+    np.divide(chrome, total, out=share, where=total > 0)
+    return share
+
+
+def _signals(evidence: Evidence, configuration: Configuration, text, chrome_share, workers: int):
+    """The ranker's signals of ``evidence`` (its own transition and global PageRank), and the transition."""
+    adjacency, _ = navigation_matrix(evidence, configuration)
+    transition = prepare(adjacency)
+    overall = personalised_pagerank(
+        transition, damping=configuration.damping, tol=min(configuration.tol, 1e-8), workers=workers
+    ).vectors
+    signals = Signals(
+        forward=transition.forward,
+        backward=transition.backward,
+        global_vector=overall,
+        space=evidence.space_codes,
+        views=evidence.views.counts(evidence.size),
+        archived=evidence.archived,
+        chrome_in_share=chrome_share,
+        similar=None if text is None else text.similar,
+        text_top=30 if text is None else text.top,
+    )
+    return signals, transition
+
+
+def _ranker(evidence, configuration, text, chrome_share, method, workers, progress):
+    """The related-list ranker trained on ``evidence`` (:mod:`rankrec.ranker.training`), or None (with
+    its reason) when the configuration asks for none or the evidence is too thin."""
+    if configuration.ranker == "none":
+        return None, {"used": False, "reason": "the configuration asks for no ranker"}
+    from .ranker.training import train_ranker
+
+    return train_ranker(
+        evidence,
+        lambda reduced: _signals(reduced, configuration, text, chrome_share, workers),
+        lambda transition, seeds: seed_vectors(transition, seeds, method, configuration, workers),
+        kind=configuration.ranker,
+        queries=configuration.ranker_queries,
+        gap=configuration.session_gap_seconds,
+        editorial=configuration.editorial_place,
+        workers=workers,
+        progress=progress,
+    )
 
 
 def _team_vectors(evidence, transition, configuration, workers) -> tuple[list[str], np.ndarray]:
@@ -239,12 +287,19 @@ def build_from_evidence(
 
     started = time.perf_counter()
     text = None
-    if evidence.has_text and configuration.text_weight > 0:
+    if evidence.has_text and (configuration.text_weight > 0 or configuration.ranker != "none"):
         text = evidence.text_neighbours(configuration.title_weight, progress=progress)
     seconds["text"] = time.perf_counter() - started
     skipped = skipped_pages(evidence, configuration.skip_pages)
     if skipped.any():  # kept out of every list as archived pages are
         evidence = replace(evidence, archived=evidence.archived | skipped)
+    if method == "auto":
+        method = "power" if size <= EXACT_LIMIT else "push"
+
+    started = time.perf_counter()
+    chrome_share = chrome_in_share(evidence)
+    ranker, ranker_summary = _ranker(evidence, configuration, text, chrome_share, method, workers, progress)
+    seconds["ranker"] = time.perf_counter() - started
 
     if related_pages is not None:
         chosen = np.unique(np.asarray(related_pages, dtype=np.int64))
@@ -252,8 +307,6 @@ def build_from_evidence(
             raise ValueError(f"related_pages must be page numbers in [0, {size}); got {chosen[[0, -1]]!r}")
     else:
         chosen = precomputed_pages(views, view_share)
-    if method == "auto":
-        method = "power" if size <= EXACT_LIMIT else "push"
 
     def write(staging: Path) -> None:
         write_tables(staging, evidence, transition, global_vector.vectors, views, team_names, team_vectors)
@@ -261,6 +314,9 @@ def build_from_evidence(
             save_basis(basis, staging / "basis")
         if text is not None:
             save_text_neighbours(text, staging / "text")
+        np.save(staging / "chrome_in_share.npy", chrome_share)
+        if ranker is not None:
+            ranker.save(staging / "ranker")
         begun = time.perf_counter()
         write_related(staging, chosen, method, configuration, k_related, workers, progress)
         seconds["related"] = time.perf_counter() - begun
@@ -297,6 +353,7 @@ def build_from_evidence(
                 else ("all" if view_share is None else "most viewed"),
             },
             seconds={key: round(value, 3) for key, value in seconds.items()},
+            ranker=ranker_summary,
         )
         manifest.write(staging)
 

@@ -48,6 +48,21 @@ class ChromeJudgement:
         """Share of all link occurrences (counts included) judged chrome; 0 without links."""
         return self.chrome_occurrences / self.occurrences if self.occurrences else 0.0
 
+    def summary(self, place_names, page_ids, top: int = 10) -> dict:
+        """JSON-ready figures: occurrences judged, chrome among them, the widespread template places and
+        the pages chrome points at most (``place_names[code]``, ``page_ids[page]`` name them)."""
+        return {
+            "judged": True,
+            "occurrences": int(self.occurrences),
+            "chrome_occurrences": int(self.chrome_occurrences),
+            "share": round(float(self.chrome_share), 4),
+            "places": [str(place_names[int(code)]) for code in self.chrome_places[:top]],
+            "top_targets": [
+                {"target": str(page_ids[int(page)]), "links": int(count)}
+                for page, count in zip(self.top_targets[:top], self.top_target_counts[:top], strict=True)
+            ],
+        }
+
 
 def judge_chrome(
     sources,

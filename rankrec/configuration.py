@@ -23,6 +23,7 @@ from .errors import InputError
 
 SETTINGS_FORMAT = 1
 REPEAT_MODES = ("log", "cap", "none")
+RANKER_MODES = ("auto", "lightgbm", "linear", "none")
 SESSION_GAP_SECONDS = 1800.0  # 30 minutes of inactivity ends a session (common practice in web analytics)
 
 
@@ -69,8 +70,16 @@ class Configuration:
         Share of the title-and-headings field in text similarity (the rest is the body text).
     skip_pages : tuple of str
         Shell patterns of page ids kept out of every list (generated indexes, source listings).
-    ranker : dict
-        Settings of a learnt ranker (empty: none).
+    ranker : {"auto", "lightgbm", "linear", "none"}
+        The related lists' order: a ranker learnt at build time from the wiki's own held-out links
+        (:mod:`rankrec.ranker`: "auto" compares LightGBM's lambdarank with a linear model and keeps the
+        simpler one unless the other is clearly better), or "none": the ``text_weight`` mix of PageRank
+        and text similarity. With too little evidence to learn from, the build falls back to the mix.
+    ranker_queries : int
+        Pages at most whose held-out links train the ranker (a random sample on larger wikis).
+    editorial_place : str
+        Shell pattern of the link places of the wiki's curated "related"/"see also" blocks (empty: none):
+        when set, the ranker learns from those blocks first (:mod:`rankrec.ranker.training`).
     """
 
     damping: float = 0.85
@@ -89,7 +98,9 @@ class Configuration:
     text_weight: float = 0.5
     title_weight: float = 0.4
     skip_pages: tuple[str, ...] = ()
-    ranker: dict = field(default_factory=dict, hash=False)
+    ranker: str = "auto"
+    ranker_queries: int = 2000
+    editorial_place: str = ""
 
     def __post_init__(self) -> None:
         set_value = object.__setattr__
@@ -117,8 +128,10 @@ class Configuration:
         if isinstance(self.skip_pages, str) or not all(isinstance(item, str) for item in self.skip_pages):
             raise TypeError(f"skip_pages must be a list of shell patterns, not {self.skip_pages!r}")
         set_value(self, "skip_pages", tuple(self.skip_pages))
-        if not isinstance(self.ranker, dict):
-            raise TypeError(f"ranker must be a dict, not {type(self.ranker).__name__} {self.ranker!r}")
+        check_choice("ranker", self.ranker, RANKER_MODES)
+        check_count("ranker_queries", self.ranker_queries)
+        if not isinstance(self.editorial_place, str):
+            raise TypeError(f"editorial_place must be a shell pattern string, not {self.editorial_place!r}")
 
     def to_dict(self) -> dict:
         """Plain JSON values, every field."""
@@ -136,6 +149,8 @@ class Configuration:
             raise ValueError(
                 f"unknown settings {', '.join(map(repr, unknown))}; known: {', '.join(sorted(known))}"
             )
+        if isinstance(values.get("ranker"), dict):  # settings written before rankers were learnt
+            values = {**values, "ranker": "none"}
         return cls(**values)
 
     def with_values(self, **values) -> Configuration:

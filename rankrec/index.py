@@ -32,10 +32,12 @@ from .configuration import Configuration
 from .errors import InputError, StaleIndex, UnknownPage
 from .graph import WikiGraph, load_graph
 from .pagerank import Transition, push
+from .ranker.features import Signals
+from .ranker.model import Ranker, load_ranker
 from .store import Store
 from .text import TextNeighbours, load_text_neighbours
 
-INDEX_FORMAT = 2
+INDEX_FORMAT = 3
 RELATED_ARRAYS = ("row", "pages", "scores", "combined", "via", "space", "kind")
 
 
@@ -54,6 +56,7 @@ class IndexManifest:
     store_import: int | None
     precompute: dict
     seconds: dict
+    ranker: dict = field(default_factory=dict)  # the learnt ranker's training summary ({}: none)
     created: str = field(default_factory=lambda: datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"))
     versions: dict = field(default_factory=lambda: {**_versions(), "scikit-learn": _sklearn_version()})
     format_version: int = INDEX_FORMAT
@@ -165,6 +168,21 @@ def write_tables(
     (folder / "teams.json").write_text(json.dumps(team_names, ensure_ascii=False) + "\n")
 
 
+def index_signals(folder: Path, transition, global_vector, space, views, archived, text) -> Signals:
+    """The ranker's :class:`~rankrec.ranker.features.Signals` over the arrays of an index folder."""
+    return Signals(
+        forward=transition.forward,
+        backward=transition.backward,
+        global_vector=global_vector,
+        space=space,
+        views=views,
+        archived=archived,
+        chrome_in_share=load_array(folder, "chrome_in_share"),
+        similar=None if text is None else text.similar,
+        text_top=30 if text is None else text.top,
+    )
+
+
 def load_transition(folder: Path, size: int) -> Transition:
     """The transition arrays of an index folder (memory-mapped)."""
     return Transition(
@@ -201,11 +219,19 @@ class Index:
     team_names: tuple[str, ...]
     team_vectors: np.ndarray
     text: TextNeighbours | None = None  # each page's text neighbours (rankrec.text), when pages had text
+    ranker: Ranker | None = None  # the learnt related-list ranker (rankrec.ranker), when one was trained
     cache: dict = field(default_factory=dict, repr=False)  # candidates made on first request
 
     @property
     def size(self) -> int:
         return int(self.archived.size)
+
+    @cached_property
+    def signals(self) -> Signals:
+        """What the ranker's features read (:class:`rankrec.ranker.features.Signals`), from this index."""
+        return index_signals(
+            self.folder, self.transition, self.global_vector, self.space, self.views, self.archived, self.text
+        )
 
     @cached_property
     def public(self) -> np.ndarray:
@@ -434,6 +460,7 @@ def load_index(folder: str | Path, *, graph: WikiGraph | None = None) -> Index:
             team_vectors=load_array(folder, "team_vectors"),
             basis=load_basis(folder / "basis") if (folder / "basis").exists() else None,
             text=load_text_neighbours(folder / "text") if (folder / "text").exists() else None,
+            ranker=load_ranker(folder / "ranker"),
             related={name: load_array(folder, f"related_{name}") for name in RELATED_ARRAYS},
         )
     except (OSError, ValueError, TypeError, KeyError) as error:

@@ -54,6 +54,20 @@ def register(commands) -> None:
         metavar="S",
         help="precompute only the most-viewed pages carrying this share of views (default: every page)",
     )
+    build.add_argument(
+        "--skip-pages",
+        action="append",
+        metavar="GLOB",
+        help="keep pages whose id matches this shell pattern out of every list (generated indexes, source "
+        "listings: 'genindex*', '_modules/*'); repeat for more; added to the settings file's",
+    )
+    build.add_argument(
+        "--ranker",
+        choices=("auto", "lightgbm", "linear", "none"),
+        help="order related lists by a ranker learnt from this wiki's own sessions or held-out links "
+        "(auto, the default: LightGBM or a linear model, the simpler unless the other is clearly better) "
+        "or by the PageRank and text mix (none)",
+    )
     build.add_argument("--workers", type=int, default=1, metavar="N", help="processes (default 1)")
     build.set_defaults(run=_cmd_build)
 
@@ -127,8 +141,8 @@ def _build_configuration(args: argparse.Namespace, store_path: str):
 
     overrides = {
         name: getattr(args, name)
-        for name in ("damping", "tol", "lift", "navigation_weight")
-        if getattr(args, name) is not None
+        for name in ("damping", "tol", "lift", "navigation_weight", "ranker")
+        if getattr(args, name, None) is not None
     }
     if args.settings is None:
         configuration, source = Configuration(), {"kind": "defaults"}
@@ -143,13 +157,20 @@ def _build_configuration(args: argparse.Namespace, store_path: str):
         chosen_store = settings.chosen_on.get("store")
         if chosen_store and Path(chosen_store).resolve() != Path(store_path).resolve():
             said += f" (chosen on another store: {chosen_store})"
+    if getattr(args, "skip_pages", None):
+        overrides["skip_pages"] = (*configuration.skip_pages, *args.skip_pages)
     if overrides:
         try:
             configuration = configuration.with_values(**overrides)
         except (TypeError, ValueError) as error:
             raise UsageError(str(error)) from None
-        source["overrides"] = overrides
-        said += "; changed on the command line: " + ", ".join(f"{k} {v:g}" for k, v in overrides.items())
+        source["overrides"] = {
+            name: list(value) if isinstance(value, tuple) else value for name, value in overrides.items()
+        }
+        said += "; changed on the command line: " + ", ".join(
+            f"{name} {value:g}" if isinstance(value, float) else f"{name} {value}"
+            for name, value in overrides.items()
+        )
     return configuration, source, said
 
 
@@ -180,8 +201,21 @@ def _cmd_build(args: argparse.Namespace) -> int:
         for name in ("damping", "lift", "navigation_weight", "half_life_days")
     )
     print_mapping({**manifest.counts, "seconds": manifest.seconds}, "table")
+    print(_ranker_line(manifest.ranker))
     print(f"index written to {args.index}, serving with {shown}")
     return 0
+
+
+def _ranker_line(ranker: dict) -> str:
+    """What the build's ranker learnt from, or why related lists use the PageRank and text mix."""
+    if not ranker.get("used"):
+        reason = ranker.get("reason", "none was trained")
+        return f"related lists: the PageRank and text mix (no learnt ranker: {reason})"
+    scores = ", ".join(f"{name} {value:.3f}" for name, value in ranker["validation_ndcg@10"].items())
+    return (
+        f"related lists: learnt ranker {ranker['kind']}, trained on {ranker['labels']} "
+        f"({ranker['queries_used']:,} queries; check nDCG@10 {scores})"
+    )
 
 
 def _cmd_related(args: argparse.Namespace) -> int:

@@ -8,6 +8,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
+from .chrome import judge_chrome
 from .store import Store
 
 
@@ -27,11 +28,24 @@ def _iso(timestamp: float | None) -> str | None:
     return datetime.fromtimestamp(timestamp, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
+def _chrome(ids, page_ids, sources, targets, places, counts, names) -> dict:
+    """The page-chrome judgement of the store's link places (:func:`rankrec.chrome.judge_chrome`, as the
+    build makes it): links judged, how many are chrome, where they sit and what they point at."""
+    if sources.size == 0:
+        return {"judged": False}
+    rows, columns = np.searchsorted(ids, sources), np.searchsorted(ids, targets)
+    judgement = judge_chrome(rows, columns, places, counts, ids.size)
+    return judgement.summary(names, page_ids, top=10)
+
+
 def wiki_stats(store: Store, *, worst: int = 10) -> dict:
     """Everything `rankrec stats` shows, as one JSON-ready mapping.
 
     ``text`` is the text coverage: present pages with text, their share of the present pages,
-    and the UTF-8 bytes of their stored text (before compression).
+    and the UTF-8 bytes of their stored text (before compression). ``chrome`` is the page-chrome
+    judgement the build makes (:func:`rankrec.chrome.judge_chrome`): link occurrences with a place,
+    how many are chrome and their share; ``chrome_places`` the template places, most widespread first, and
+    ``chrome_top_targets`` the pages chrome points at most.
 
     >>> with Store(":memory:") as store:
     ...     summary = wiki_stats(store)
@@ -40,7 +54,7 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
     """
     with store.reading():
         summary: dict = store.counts()
-        ids, _ = store.present_pages()
+        ids, page_ids = store.present_pages()
         sources, targets, _ = store.link_arrays()
         archived = sum(archived for _, _, archived in store.page_table())
         restricted = len({page for page, _ in store.page_group_pairs()})
@@ -48,6 +62,7 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         worst_targets = store.unresolved_targets(worst)
         worst_sources = store.pages_with_unresolved_links(worst)
         with_text, text_bytes = store.text_counts()
+        placed = store.link_place_arrays()
     n = ids.size
     rows = np.searchsorted(ids, sources)
     columns = np.searchsorted(ids, targets)
@@ -64,6 +79,14 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         "share": round(with_text / n, 4) if n else 0.0,
         "bytes": text_bytes,
     }
+    chrome = _chrome(ids, page_ids, *placed)
+    summary["chrome"] = {
+        name: chrome[name]
+        for name in ("judged", "occurrences", "chrome_occurrences", "share")
+        if name in chrome
+    }
+    summary["chrome_places"] = [{"place": place} for place in chrome.get("places", [])]
+    summary["chrome_top_targets"] = chrome.get("top_targets", [])
     summary["archived"] = archived
     summary["restricted"] = restricted
     summary["views_per_user"] = _spread(np.unique(users, return_counts=True)[1])

@@ -60,7 +60,9 @@ def test_navigation_blend_follows_the_configuration(wiki, tmp_path):
 
 
 def test_manifest_records_the_configuration_whole(wiki, tmp_path):
-    configuration = Configuration(damping=0.7, lift=1.0, half_life_days=7.0, ranker={"kind": "none"})
+    configuration = Configuration(
+        damping=0.7, lift=1.0, half_life_days=7.0, ranker="linear", editorial_place="*seealso*"
+    )
     with Store(wiki) as store:
         index = load_index(
             build_index(

@@ -34,7 +34,8 @@ def test_defaults_are_the_documented_ones():
         ({"team_min_readers": 2.5}, TypeError, "team_min_readers"),
         ({"related_epsilon": 1.0}, ValueError, "related_epsilon"),
         ({"tol": float("nan")}, ValueError, "tol"),
-        ({"ranker": []}, TypeError, "ranker"),
+        ({"ranker": "forest"}, ValueError, "ranker"),
+        ({"ranker_queries": 0}, ValueError, "ranker_queries"),
     ],
 )
 def test_bad_values_name_the_setting(values, error, match):
@@ -50,10 +51,16 @@ def test_round_trip_through_json_keeps_every_field():
         navigation_window_days=14,
         half_life_days=7,
         repeat="cap",
-        ranker={"model": "none"},
+        ranker="linear",
+        ranker_queries=500,
     )
     again = Configuration.from_dict(json.loads(json.dumps(configuration.to_dict())))
-    assert again == configuration and again.ranker == {"model": "none"}
+    assert again == configuration and (again.ranker, again.ranker_queries) == ("linear", 500)
+
+
+def test_settings_written_before_learnt_rankers_read_as_no_ranker():
+    # a settings file of the previous format held ``"ranker": {}``: it built the PageRank and text mix
+    assert Configuration.from_dict({"ranker": {}}).ranker == "none"
 
 
 def test_unknown_names_are_refused():

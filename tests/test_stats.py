@@ -91,3 +91,30 @@ def test_text_coverage_counted_by_hand(tmp_path):
             store.put_links([("a", "ghost", 1.0)])
         summary = wiki_stats(store)
     assert summary["text"] == {"pages": 3, "share": 0.75, "bytes": 15}
+
+
+def test_chrome_in_stats_names_a_footer_repeated_on_every_page(tmp_path):
+    # A generated site with known chrome (common practice for template detection, Bar-Yossef and
+    # Rajagopalan 2002: a block repeated at one place on most pages): every page but "home" has a footer
+    # link to "home" and content links to two random pages. Stats must find exactly the footer links.
+    from rankrec.importer import import_sources
+
+    rng = np.random.default_rng(4)
+    folder = tmp_path / "site"
+    folder.mkdir()
+    names = [f"p{number}" for number in range(30)]
+    for name in ["home", *names]:
+        content = " ".join(
+            f'<a href="{target}.html">{target}</a>' for target in rng.choice(names, 2, replace=False)
+        )
+        footer = "" if name == "home" else '<div class="foot"><a href="home.html">Home</a></div>'
+        (folder / f"{name}.html").write_text(
+            f"<html><body><div class='body'><p>Text {content}</p></div>{footer}</body></html>"
+        )
+    with Store(tmp_path / "site.db") as store:
+        import_sources(store, [(folder, "html")])
+        summary = wiki_stats(store)
+    assert summary["chrome"]["judged"] is True
+    assert summary["chrome"]["chrome_occurrences"] == 30  # the 30 footers, no content link
+    assert summary["chrome_top_targets"][0] == {"target": "home", "links": 30}
+    assert summary["chrome_places"] == [{"place": "div.foot"}]

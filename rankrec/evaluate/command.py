@@ -58,6 +58,8 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
             half_life_days=args.half_life,
             navigation_weight=args.navigation_weight,
             lift=args.lift,
+            ranker=args.ranker,
+            editorial_place=args.editorial_place or "",  # the ranker learns from the training part's blocks
         )
         grid = None
         if not args.no_sweep:
@@ -73,6 +75,8 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
     for name in ("samples", "workers", "prefix", "last"):
         if getattr(args, name) < 1:
             raise UsageError(f"--{name} must be at least 1; got {getattr(args, name)!r}")
+    if (args.split == "editorial") != (args.editorial_place is not None):
+        raise UsageError("--editorial-place goes with --split editorial, and --split editorial needs it")
     if not 0 < args.test_share < 1 or args.gap <= 0:
         raise UsageError(
             f"--test-share must lie in (0, 1) and --gap be positive; got {args.test_share!r} and {args.gap!r}"
@@ -88,6 +92,7 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
         n=args.last,
         prefix=args.prefix,
         seed=args.seed,
+        editorial=args.editorial_place,
     )
     bar = _bar(None)
     try:
@@ -163,11 +168,20 @@ def register(commands) -> None:
     command.add_argument(
         "--split",
         default="temporal",
-        choices=("temporal", "last-n", "sessions", "links"),
+        choices=("temporal", "last-n", "sessions", "links", "editorial"),
         help="temporal: each reader's new pages after a global cutoff (default); last-n: each reader's "
         "last N views; sessions: given a session's first page(s), the pages it goes on to; links: hide "
         "--test-share of each page's content links (never page chrome) from every input and recover them "
-        "(needs no reading history)",
+        "(needs no reading history); editorial: recover the links of the site's own curated blocks "
+        "(--editorial-place), hidden from every input, for half of the pages holding some",
+    )
+    command.add_argument(
+        "--editorial-place",
+        metavar="GLOB",
+        help="--split editorial: shell pattern of the link places of curated 'related'/'see also' blocks, "
+        "matched against the place `rankrec stats` and the importers record: HTML, the element chain with "
+        "classes ('*seealso*' for a Sphinx See-also box); Markdown, blocks and the heading above "
+        "('md:*@see also')",
     )
     command.add_argument(
         "--cutoff",
@@ -242,6 +256,13 @@ def register(commands) -> None:
         default=defaults.lift,
         metavar="B",
         help=f"rank by score / global^B ({defaults.lift:g})",
+    )
+    settings.add_argument(
+        "--ranker",
+        choices=("auto", "lightgbm", "linear", "none"),
+        default=defaults.ranker,
+        help="related lists' order: learnt in each build from the training part's own sessions or held-out "
+        f"links, or none (the PageRank and text mix); validation also tries none ({defaults.ranker})",
     )
     settings.add_argument("--no-sweep", action="store_true", help="use these settings as they are")
     grid = command.add_argument_group("sweep grids (comma-separated values)")

@@ -11,10 +11,18 @@ hidden target) is not changed.
 
 The split looks like a session task with one-page prefixes (``task == "sessions"``): the query's page is
 its prefix, and the page itself is the only page excluded from its list.
+
+The editorial-block task (:func:`editorial_split`) takes its targets from the wiki's own curated blocks
+instead: the links that sit at a place matching a pattern (``*seealso*`` for a Sphinx "See also" box,
+``md:*@see also`` for the links under a Markdown "See also" heading: :mod:`rankrec.sources`). A random half
+of the pages holding such links are the test queries, the other half is kept for the validation split; a
+query's editorial links are its targets and are removed (the whole link, wherever else on the page it
+occurs) from every input.
 """
 
 from __future__ import annotations
 
+import fnmatch
 from types import MappingProxyType
 
 import numpy as np
@@ -55,7 +63,6 @@ def held_out_links_split(
     matrix = sp.csr_array(links, dtype=np.float64)
     matrix.sum_duplicates()
     matrix.eliminate_zeros()
-    size = matrix.shape[0]
     content = matrix
     if chrome is not None:
         only_chrome = sp.csr_array(chrome, dtype=np.float64) > 0
@@ -82,10 +89,31 @@ def held_out_links_split(
     taken = rank < np.repeat(hidden_count, lengths)
     chosen, chosen_owner = positions[order][taken], owner[order][taken]
     targets = content.indices[chosen]
-    relevant = sp.csr_array(
-        (np.ones(targets.size), (chosen_owner, targets)), shape=(pages.size, size), dtype=np.float64
+    settings = {"share": share, "min_links": min_links, "seed": seed, "max_queries": max_queries}
+    return _hidden_split(
+        "links",
+        matrix,
+        pages,
+        chosen_owner,
+        targets,
+        settings,
+        {"content_links": int(content.nnz)},
+        chrome=None if chrome is None else sp.csr_array(only_chrome, dtype=np.float64),
     )
-    hidden = sp.csr_array((np.ones(targets.size), (pages[chosen_owner], targets)), shape=(size, size))
+
+
+def _hidden_split(
+    name, matrix, pages, owner, targets, settings, counts, *, chrome=None, reserve=None
+) -> Split:
+    """The split whose query ``q`` is page ``pages[q]`` and whose hidden links are ``pages[owner] ->
+    targets``: those links are removed from the split's link matrix, the rest stay."""
+    size = matrix.shape[0]
+    relevant = sp.csr_array(
+        (np.ones(targets.size), (owner, targets)), shape=(pages.size, size), dtype=np.float64
+    )
+    relevant.sum_duplicates()
+    relevant.data[:] = 1.0
+    hidden = sp.csr_array((np.ones(targets.size), (pages[owner], targets)), shape=(size, size))
     remaining = sp.csr_array(matrix - matrix.multiply(hidden > 0))
     remaining.eliminate_zeros()
     empty = _views(np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0), size)
@@ -94,15 +122,14 @@ def held_out_links_split(
         times=np.zeros(pages.size),
         pages=pages.astype(np.int64)[:, None],
     )
-    settings = {"share": share, "min_links": min_links, "seed": seed, "max_queries": max_queries}
     counts = {
         "queries": int(pages.size),
-        "hidden_links": int(targets.size),
-        "content_links": int(content.nnz),
+        "hidden_links": int(relevant.nnz),
+        **counts,
         "links": int(matrix.nnz),
     }
     return Split(
-        name="links",
+        name=name,
         train=empty,
         cutoff=None,
         train_until=float("inf"),
@@ -112,5 +139,72 @@ def held_out_links_split(
         settings=MappingProxyType(settings),
         counts=MappingProxyType(counts),
         links=remaining,
-        chrome=None if chrome is None else sp.csr_array(only_chrome, dtype=np.float64),
+        chrome=chrome,
+        reserve=reserve,
+    )
+
+
+def editorial_pairs(places, size: int, pattern: str) -> sp.csr_array:
+    """Pages × pages, 1 where a link i -> j occurs at a place matching the shell ``pattern`` (fnmatch,
+    case-sensitive) at least once; ``places`` is a :class:`rankrec.graph.LinkPlaces` (None: no pairs)."""
+    if not isinstance(pattern, str) or not pattern:
+        raise ValueError(f"pattern must be a non-empty shell pattern; got {pattern!r}")
+    if places is None or places.sources.size == 0:
+        return sp.csr_array((size, size))
+    matching = np.array([fnmatch.fnmatchcase(name, pattern) for name in places.names], dtype=bool)
+    keep = matching[places.places] & (places.sources != places.targets)
+    pairs = sp.csr_array(
+        (np.ones(int(keep.sum())), (places.sources[keep], places.targets[keep])), shape=(size, size)
+    )
+    pairs.sum_duplicates()
+    pairs.data[:] = 1.0
+    return pairs
+
+
+def editorial_split(links, pairs, *, pattern: str = "", seed: int = 0, test_share: float = 0.5) -> Split:
+    """Held-out editorial blocks (see the module docstring): ``pairs`` (:func:`editorial_pairs`) are the
+    curated links; a random ``test_share`` of the pages holding some are the queries, the others' pairs
+    are the split's ``reserve`` (what :func:`editorial_validation` hides)."""
+    test_share = check_fraction("test_share", test_share, open_low=True)
+    matrix = sp.csr_array(links, dtype=np.float64)
+    matrix.sum_duplicates()
+    matrix.eliminate_zeros()
+    pairs = sp.csr_array(pairs.multiply(matrix > 0) > 0, dtype=np.float64)  # curated links that exist
+    holders = np.flatnonzero(np.diff(pairs.indptr))
+    rng = np.random.default_rng(seed)
+    chosen = np.zeros(holders.size, dtype=bool)
+    chosen[rng.permutation(holders.size)[: int(round(test_share * holders.size))]] = True
+    test_pages, kept_pages = holders[chosen], holders[~chosen]
+    settings = {"pattern": pattern, "seed": seed, "test_share": test_share}
+    return _pairs_split("editorial", matrix, pairs, test_pages, kept_pages, settings)
+
+
+def editorial_validation(split: Split) -> Split:
+    """The validation split of an editorial split: the reserved pages' curated links hidden from the
+    split's own link matrix (which already lacks every test target)."""
+    matrix = sp.csr_array(split.links, dtype=np.float64)
+    reserve = sp.csr_array(split.reserve, dtype=np.float64)
+    pages = np.flatnonzero(np.diff(reserve.indptr))
+    settings = dict(split.settings) | {"validation": True}
+    return _pairs_split("editorial", matrix, reserve, pages, np.zeros(0, dtype=np.int64), settings)
+
+
+def _pairs_split(name, matrix, pairs, pages, reserved_pages, settings) -> Split:
+    rows = sp.csr_array(pairs[pages]) if pages.size else sp.csr_array((0, matrix.shape[0]))
+    coo = sp.coo_array(rows)
+    order = np.lexsort((coo.col, coo.row))
+    reserve = None
+    if reserved_pages.size:
+        keep = np.zeros(matrix.shape[0])
+        keep[reserved_pages] = 1.0
+        reserve = sp.csr_array(sp.diags_array(keep) @ pairs)
+    return _hidden_split(
+        name,
+        matrix,
+        pages.astype(np.int64),
+        coo.row[order].astype(np.int64),
+        coo.col[order].astype(np.int64),
+        settings,
+        {"curated_links": int(pairs.nnz)},
+        reserve=reserve,
     )

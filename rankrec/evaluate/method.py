@@ -19,7 +19,7 @@ the training part through a store and checks that the lists are equal item by it
 from __future__ import annotations
 
 import tempfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -88,7 +88,8 @@ def query_readers(split: Split, evidence: Evidence, configuration: Configuration
                 restart = restarts[[rows[number]]].toarray().ravel()
         recent = excluded.indices[excluded.indptr[number] : excluded.indptr[number + 1]].astype(np.int64)
         # held-out links have no readers (a query's "user" is its own number): a public viewer asks
-        groups = frozenset() if split.name == "links" else evidence.reader_groups.get(user, frozenset())
+        anonymous = split.name in ("links", "editorial")
+        groups = frozenset() if anonymous else evidence.reader_groups.get(user, frozenset())
         readers.append(Reader(user=str(user), groups=groups, restart=restart, recent=recent))
     return readers
 
@@ -119,13 +120,17 @@ def rankrec_lists(
     hubs: int = 64,
     workers: int = 1,
     progress: Progress | None = None,
+    ranker_summary: dict | None = None,
 ) -> np.ndarray:
     """rankrec's top-``k`` lists for every query of ``split``: an int64 array (queries, k), ``-1`` padded.
 
     Only ``split.train`` and ``split.queries`` are read (and, from ``evidence``, the wiki but not its views).
+    ``ranker_summary``, when given, receives the built index's ranker training summary.
     """
     k = check_count("k", k)
     configuration = Configuration() if configuration is None else configuration
+    if split.task != "sessions":  # personal lists never use the related-list ranker: do not train one
+        configuration = configuration.with_values(ranker="none")
     training = training_evidence(evidence, split)
     with tempfile.TemporaryDirectory(prefix="rankrec-evaluate-") as folder:
         built = build_from_evidence(
@@ -138,6 +143,9 @@ def rankrec_lists(
             settings_source={"kind": "evaluation", "split": split.name},
         )
         index = load_index(built)
+        if ranker_summary is not None:
+            ranker_summary.clear()
+            ranker_summary.update(index.manifest.ranker)
         return served_lists(index, split, query_readers(split, evidence, configuration), k, progress)
 
 
@@ -150,8 +158,15 @@ class PersonalisedPageRank:
     hubs: int = 64
     workers: int = 1
     name: str = "rankrec"
+    trained: dict = field(default_factory=dict)  # the last index's ranker summary (manifest "ranker")
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
         return rankrec_lists(
-            split, self.evidence, k, self.configuration, hubs=self.hubs, workers=self.workers
+            split,
+            self.evidence,
+            k,
+            self.configuration,
+            hubs=self.hubs,
+            workers=self.workers,
+            ranker_summary=self.trained,
         )

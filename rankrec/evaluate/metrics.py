@@ -365,6 +365,18 @@ def unvisited_share(recommended, visited, k: int) -> np.ndarray:
     return _per_list_mean((_lookup(matrix, array) == 0).astype(np.float64), filled)
 
 
+def hub_in_top(recommended, hubs, k: int = 3) -> np.ndarray:
+    """1 when one of the first ``k`` pages of a list is a hub (``hubs``: a boolean per page), else 0;
+    NaN for an empty list."""
+    array = _check_recommended(recommended)[:, : _check_k(k)]
+    hubs = np.asarray(hubs, dtype=bool)
+    if array.size and int(array.max()) >= hubs.size:
+        raise ValueError(f"recommended holds page {int(array.max())!r}; hubs has {hubs.size!r}")
+    filled = array >= 0
+    found = (hubs[np.where(filled, array, 0)] & filled).any(axis=1).astype(np.float64)
+    return np.where(filled.any(axis=1), found, np.nan)
+
+
 # ---------------------------------------------------------------------------------------- all at once
 
 
@@ -377,14 +389,16 @@ def evaluate_lists(
     popularity=None,
     space_of_page=None,
     visited=None,
+    hubs=None,
 ) -> dict[str, np.ndarray]:
     """Every per-user metric for every ``k`` in ``ks``, sharing one look-up of the lists.
 
     Keys (each value an array of shape (users,)): for each ``k``: ``"hit_rate@k"``, ``"precision@k"``,
     ``"recall@k"``, ``"map@k"`` (AP@k), ``"ndcg@k"`` (with ``gains``); once: ``"mrr"`` (reciprocal rank
     over the whole list). With ``popularity``: ``"novelty@k"``; with ``space_of_page``:
-    ``"intra_list_diversity@k"``; with ``visited``: ``"unvisited_share@k"``. Coverage is one number for
-    the catalogue, not per user: call :func:`coverage`.
+    ``"intra_list_diversity@k"``; with ``visited``: ``"unvisited_share@k"``; with ``hubs`` (once):
+    ``"hub_in_top_3"`` (:func:`hub_in_top`). Coverage is one number for the catalogue, not per user: call
+    :func:`coverage`.
 
     >>> import numpy as np, scipy.sparse as sp
     >>> scores = evaluate_lists(np.array([[1, 0]]), sp.csr_array(np.array([[1, 0]])), ks=(1, 2))
@@ -409,4 +423,6 @@ def evaluate_lists(
             results[f"intra_list_diversity@{k}"] = intra_list_diversity(recommended, space_of_page, k)
         if visited is not None:
             results[f"unvisited_share@{k}"] = unvisited_share(recommended, visited, k)
+    if hubs is not None:
+        results["hub_in_top_3"] = hub_in_top(recommended, hubs, 3)
     return results

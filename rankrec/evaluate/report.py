@@ -27,6 +27,7 @@ from matplotlib.figure import Figure
 from .. import __version__
 from .._atomic import publish_folder
 from ..configuration import Settings, write_settings
+from .run import WITHOUT_RANKER as WITHOUT_RANKER_NAME
 from .run import Evaluation
 
 PLOTTED = ("ndcg", "ndcg_graded", "recall", "hit_rate", "precision", "map")
@@ -109,6 +110,8 @@ def write_report(evaluation: Evaluation, folder: str | Path) -> Path:
         plots = [_plot_by_k(evaluation, staging), _plot_intervals(evaluation, staging)]
         if evaluation.choice is not None:
             plots += [_plot_sweep(evaluation, sweep, staging) for sweep in evaluation.choice.sweeps]
+        if evaluation.settings.get("ranker", {}).get("importances"):
+            plots.append(_plot_importances(evaluation, staging))
         (staging / "report.md").write_text(markdown(evaluation, content, plots), encoding="utf-8")
         write_settings(staging / "settings.json", chosen_settings(evaluation))
 
@@ -193,14 +196,50 @@ def _plot_sweep(evaluation: Evaluation, sweep, staging: Path) -> str:
                 fontweight="bold" if chosen else "normal",
             )
     figure.colorbar(image, ax=ax, label=f"validation {evaluation.choice.metric}")
-    fixed = ", ".join(f"{name.replace('_', ' ')} {value:g}" for name, value in sweep.fixed.items())
+    fixed = ", ".join(f"{name.replace('_', ' ')} {_setting(value)}" for name, value in sweep.fixed.items())
     ax.set_title(f"{sweep.row_name} × {sweep.column_name} ({fixed})".replace("_", " "), fontsize=10)
     name = f"sweep_{sweep.row_name}_{sweep.column_name}.png"
     figure.savefig(staging / name, dpi=100)
     return name
 
 
+def _plot_importances(evaluation: Evaluation, staging: Path) -> str:
+    ranker = evaluation.settings["ranker"]
+    names, values = zip(*sorted(ranker["importances"].items(), key=lambda item: item[1]), strict=True)
+    figure = Figure(figsize=(7, 0.35 * len(names) + 1.5), layout="constrained")
+    ax = figure.subplots()
+    ax.barh([name.replace("_", " ") for name in names], values, color="tab:green", alpha=0.8)
+    measure = "total split gain" if ranker.get("kind") == "lightgbm" else "|coefficient| (standardised)"
+    ax.set_xlabel(f"importance ({measure}), largest 1")
+    ax.set_title(f"Learnt ranker ({ranker.get('kind')}, labels: {ranker.get('labels')})", fontsize=10)
+    ax.grid(axis="x", alpha=0.3)
+    figure.savefig(staging / "ranker_importances.png", dpi=100)
+    return "ranker_importances.png"
+
+
+def _ranker_block(ranker: dict) -> str:
+    """What the rankrec lists' learnt ranker was trained on, in a sentence or two."""
+    if not ranker:
+        return ""
+    if not ranker.get("used"):
+        reason = ranker.get("reason", "none asked for")
+        return f"No learnt ranker: {reason}; the lists are the PageRank and text mix."
+    scores = ", ".join(f"{name} {value:.3f}" for name, value in ranker.get("validation_ndcg@10", {}).items())
+    return (
+        f"The related lists are ordered by a learnt ranker ({ranker['kind']}), trained inside the build on "
+        f"the training part's own {ranker['labels']} ({ranker['queries_used']:,} queries, "
+        f"{ranker['examples']:,} candidates; the candidate pools held {ranker['pool_recall']:.1%} of the "
+        f"relevant pages). Its build-time check (nDCG@10 on a quarter of those queries): {scores}. "
+        f"`{WITHOUT_RANKER_NAME}` below is the same index without it."
+    )
+
+
 # -- markdown ---------------------------------------------------------------------------------------
+def _setting(value) -> str:
+    """A setting's value as the report shows it: numbers short (``:g``), names as they are."""
+    return f"{value:g}" if isinstance(value, int | float) else str(value)
+
+
 def _number(value, digits: int = 3) -> str:
     return "–" if value is None else f"{value:.{digits}f}"
 
@@ -227,7 +266,7 @@ def _verdict(comparison: dict) -> str:
     groups: dict[str, list[str]] = {"wins": [], "loses": [], "ties": []}
     for metric, found in comparison["metrics"].items():
         low, high = found["ci95"]
-        if metric.startswith(("novelty", "intra_list", "unvisited")):
+        if metric.startswith(("novelty", "intra_list", "unvisited", "hub_in_top")):
             continue  # descriptive, not better or worse
         text = f"{metric} ({found['difference']:+.3f} [{low:+.3f}, {high:+.3f}])"
         groups["wins" if low > 0 else "loses" if high < 0 else "ties"].append(text)
@@ -307,12 +346,15 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
                 "lift exponent",
                 "text weight",
                 "title weight",
+                "ranker",
             ],
-            [[f"{configuration[name]:g}" for name in names]],
+            [[*(f"{configuration[name]:g}" for name in names), str(configuration["ranker"])]],
         )
     )
     if evaluation.choice is not None and evaluation.choice.notes:
         blocks.append(" ".join(f"Note: {note}." for note in evaluation.choice.notes))
+    if _ranker_block(settings.get("ranker", {})):
+        blocks.append(_ranker_block(settings["ranker"]))
     blocks += [
         f"## Results on the test split (k = {k})",
         "Mean over queries, with the per-user bootstrap 95% interval "
@@ -330,8 +372,15 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
         ),
         "Beyond accuracy (coverage is one number for the catalogue: no interval):",
         _table(
-            ["method", *(f"{LABELS[m]}@{k}" for m in BEYOND)],
-            [[name, *(_with_interval(methods[name], f"{m}@{k}") for m in BEYOND)] for name in methods],
+            ["method", *(f"{LABELS[m]}@{k}" for m in BEYOND), "lists with a hub in their top 3"],
+            [
+                [
+                    name,
+                    *(_with_interval(methods[name], f"{m}@{k}") for m in BEYOND),
+                    _with_interval(methods[name], "hub_in_top_3"),
+                ]
+                for name in methods
+            ],
         ),
     ]
     comparison = content["comparison"]
@@ -371,7 +420,9 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
         blocks.append("## Sweeps (validation split)")
         metric = evaluation.choice.metric
         for sweep in content["sweeps"]:
-            fixed = ", ".join(f"{key.replace('_', ' ')} {value:g}" for key, value in sweep["fixed"].items())
+            fixed = ", ".join(
+                f"{key.replace('_', ' ')} {_setting(value)}" for key, value in sweep["fixed"].items()
+            )
             blocks.append(
                 f"Validation {metric}, {sweep['rows'].replace('_', ' ')} (rows) × "
                 f"{sweep['columns'].replace('_', ' ')} (columns), with {fixed}:"
@@ -391,6 +442,9 @@ DEFINITIONS = """\
   relevant pages, summed and divided by min(k, relevant); MRR: 1 / rank of the first relevant page.
 - nDCG@k (Järvelin & Kekäläinen 2002): DCG with discount 1 / log2(rank + 1), divided by the DCG of the
   ideal ranking of all held-out pages; binary gain 1, graded gain the number of held-out views of the page.
+- lists with a hub in their top 3: share of lists whose first three pages include a hub: a page linked
+  from at least 20% of all pages, or from 5% with at least half its in-links page chrome (home, license,
+  index, table-of-contents pages);
 - coverage@k: share of the catalogue in at least one list; novelty@k: mean self-information −log2 of a
   page's (add-one) share of training views; distinct spaces per page: spaces in a list divided by its
   length; share never visited: pages the reader never viewed in training.

@@ -20,13 +20,14 @@ import hashlib
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
 import scipy.sparse as sp
 
 from .._validation import check_choice, check_count, check_fraction, check_positive
-from ..build import Evidence, chrome_only, read_evidence
+from ..build import Evidence, chrome_in_share, chrome_only, read_evidence
 from ..configuration import Configuration
 from ..errors import CutoffOutsideSpan, InputError, NothingToEvaluate
 from ..progress import Progress
@@ -42,14 +43,18 @@ from .baselines import (
     check_recommendations,
     training_counts,
 )
-from .links import held_out_links_split
+from .links import editorial_pairs, editorial_split, held_out_links_split
 from .method import PersonalisedPageRank
 from .metrics import coverage, evaluate_lists, ndcg
 from .splits import SESSION_GAP_SECONDS, Split, last_n_split, session_split, temporal_split, training_pages
 from .statistics import bootstrap_ci, paired_difference
 from .sweeps import GRID_NAMES, Choice, Grid, choose_configuration, mean_metric, validation_split
 
-SPLITS = ("temporal", "last-n", "sessions", "links")
+SPLITS = ("temporal", "last-n", "sessions", "links", "editorial")
+# hub pages for the hub_in_top_3 figure (common practice: round thresholds): linked from a fifth of all
+# pages, or from a twentieth with mostly chrome links
+HUB_SHARE, CHROME_HUB_SHARE = 0.2, 0.05
+WITHOUT_RANKER = "rankrec, no ranker"  # the served lists with ranker "none": PageRank and the text mix
 DEFAULT_KS = (1, 3, 5, 10, 20)
 LEVEL = 0.95
 DEFAULT_GRID = Grid()
@@ -81,6 +86,20 @@ class EvaluationData:
     @property
     def size(self) -> int:
         return int(self.pages.size)
+
+    @cached_property
+    def hubs(self) -> np.ndarray:
+        """Hub and chrome pages: linked from at least ``HUB_SHARE`` of all pages (chrome links count), or
+        from at least ``CHROME_HUB_SHARE`` of them with at least half of its in-link occurrences page chrome
+        (home, license, index and table-of-contents pages of generated sites); never fewer than two
+        linking pages. Descriptive only (the ``hub_in_top_3`` figure): no method reads it."""
+        linked = sp.csr_matrix(self.adjacency, copy=True)
+        linked.data[:] = 1.0
+        sources = np.asarray(linked.sum(axis=0)).ravel()
+        chrome = chrome_in_share(self.evidence) if self.evidence is not None else np.zeros(self.size)
+        wide = sources >= max(2.0, HUB_SHARE * self.size)
+        navigation = (sources >= max(2.0, CHROME_HUB_SHARE * self.size)) & (chrome >= 0.5)
+        return wide | navigation
 
 
 def _fingerprint(graph_fingerprint: str, users, viewed, times, teams) -> str:
@@ -147,13 +166,25 @@ def make_split(
     n: int = 1,
     prefix: int = 1,
     seed: int = 0,
+    editorial: str | None = None,
 ) -> Split:
     """The test split of ``kind`` (graded gains: binary metrics count any held-out view, graded nDCG their
     number). ``cutoff`` (Unix seconds) must lie inside the views' span (CutoffOutsideSpan); for ``last-n``
-    it sets the share of the span whose last views are held out."""
+    it sets the share of the span whose last views are held out. ``editorial`` is the place pattern of the
+    editorial-block task (:func:`rankrec.evaluate.links.editorial_split`)."""
     check_choice("kind", kind, SPLITS)
     check_fraction("test_share", test_share, open_low=True, open_high=True)
     check_positive("gap", gap)
+    if kind == "editorial":
+        if not editorial:
+            raise ValueError("the editorial task needs a place pattern (--editorial-place)")
+        pairs = editorial_pairs(data.evidence.places, data.size, editorial)
+        split = editorial_split(data.adjacency, pairs, pattern=editorial, seed=seed)
+        if len(split.queries) == 0 or split.reserve is None:
+            raise NothingToEvaluate(
+                "test", kind, f"fewer than two pages hold links at a place matching {editorial!r}"
+            )
+        return split
     if kind == "links":
         split = held_out_links_split(
             data.adjacency, chrome=chrome_only(data.evidence), share=test_share, seed=seed
@@ -236,7 +267,13 @@ class Evaluation:
 
 def _scores(lists: np.ndarray, split: Split, ks, popularity, data, visited) -> tuple[dict, dict]:
     per_query = evaluate_lists(
-        lists, split.relevant, ks=ks, popularity=popularity, space_of_page=data.space, visited=visited
+        lists,
+        split.relevant,
+        ks=ks,
+        popularity=popularity,
+        space_of_page=data.space,
+        visited=visited,
+        hubs=data.hubs,
     )
     for k in ks:
         per_query[f"ndcg_graded@{k}"] = ndcg(lists, split.relevant, k, gains="graded")
@@ -312,10 +349,14 @@ def run_evaluation(
         validation_scores["rankrec"] = choice.score
     seconds = {"validation": time.perf_counter() - started}
     rankrec = PersonalisedPageRank(data.evidence, configuration, workers=workers)
+    variants = []
+    if configuration.ranker != "none" and split.task == "sessions":  # the same lists without the ranker
+        plain = configuration.with_values(ranker="none")
+        variants.append(PersonalisedPageRank(data.evidence, plain, workers=workers, name=WITHOUT_RANKER))
     popularity = training_counts(split.train)
     visited = training_pages(split)
     scored = {}
-    for method in [*methods, rankrec]:
+    for method in [*methods, *variants, rankrec]:
         begun = time.perf_counter()
         lists = check_recommendations(split, method.recommend(split, ks[-1]), ks[-1])
         elapsed = time.perf_counter() - begun
@@ -355,6 +396,7 @@ def run_evaluation(
         "grid": None if grid is None else {name: list(getattr(grid, name)) for name in GRID_NAMES},
         "start": start.to_dict(),
         "rankrec": configuration.to_dict(),
+        "ranker": dict(rankrec.trained),
         "chosen_by": None if grid is None else f"mean ndcg@{headline} on the validation split",
         "data": {"store": data.store, "fingerprint": data.fingerprint, **data.counts},
     }

@@ -7,10 +7,15 @@ choice sees is a training view of the test split, and the test period cannot rea
 :func:`choose_configuration` then runs two 2-D sweeps on that validation split, each scored by the
 mean nDCG@k over its queries:
 
-1. damping factor × lift exponent (half-life and navigation weight at their starting values);
+1. damping factor × lift exponent (half-life and navigation weight at their starting values; with the
+   learnt ranker, which weighs global PageRank itself, lift is not swept);
 2. half-life × navigation weight, at the best damping and lift of the first sweep (the session
    task restarts from the session's pages, so half-life has no effect there and only the navigation
-   weight is swept).
+   weight is swept);
+3. for related lists (session-like tasks) with page text, and whenever the configuration learns a ranker:
+   the lists *without* the ranker (``ranker="none"``: the PageRank and text mix), text weight × lift
+   (text weight at its start without page text; lift swept here when the ranker kept it out of the first
+   sweep), so validation chooses between the learnt ranker and the plain mix.
 
 Every configuration tried is scored on the lists an index built with it serves (:mod:`.method`).
 
@@ -28,12 +33,12 @@ from .._validation import check_count
 from ..configuration import Configuration
 from ..errors import NothingToEvaluate
 from ..progress import Progress, report
-from .links import held_out_links_split
+from .links import editorial_validation, held_out_links_split
 from .method import rankrec_lists
 from .metrics import evaluate_lists
 from .splits import Split, last_n_split, session_split, temporal_split
 
-SPLIT_NAMES = ("temporal", "last-n", "sessions", "links")
+SPLIT_NAMES = ("temporal", "last-n", "sessions", "links", "editorial")
 GRID_NAMES = ("damping", "lift", "half_life_days", "navigation_weight", "text_weight", "title_weight")
 
 
@@ -65,8 +70,8 @@ class Grid:
         return (
             len(self.damping) * len(self.lift)
             + len(self.half_life_days) * len(self.navigation_weight)
-            + len(self.text_weight) * len(self.title_weight)
-        )
+            + len(self.text_weight) * len(self.lift)
+        )  # an upper bound
 
 
 @dataclass(frozen=True, eq=False)
@@ -141,6 +146,8 @@ def validation_split(split: Split) -> Split:
             seed=settings["seed"] + 1,
             max_queries=settings["max_queries"],
         )
+    elif split.name == "editorial":  # the curated blocks of the pages the test queries left
+        made = editorial_validation(split)
     else:
         raise ValueError(f"split.name must be one of {', '.join(SPLIT_NAMES)}; got {split.name!r}")
     if len(made.queries) == 0:
@@ -192,14 +199,18 @@ def choose_configuration(
         report(progress, f"sweep {shown}", len(tried), grid.solves)
         return found
 
-    first = np.full((len(grid.damping), len(grid.lift)), np.nan)
+    lifts = grid.lift
+    notes = []
+    if start.ranker != "none" and split.task == "sessions":
+        lifts = (start.lift,)
+        notes.append("lift is not swept: the learnt ranker weighs global PageRank itself")
+    first = np.full((len(grid.damping), len(lifts)), np.nan)
     for row, damping in enumerate(grid.damping):
-        for column, lift in enumerate(grid.lift):
+        for column, lift in enumerate(lifts):
             first[row, column] = score(start.with_values(damping=damping, lift=lift))
     fixed = {"half_life_days": start.half_life_days, "navigation_weight": start.navigation_weight}
-    damping_sweep = Sweep("damping", "lift", grid.damping, grid.lift, first, MappingProxyType(fixed))
+    damping_sweep = Sweep("damping", "lift", grid.damping, lifts, first, MappingProxyType(fixed))
     damping, lift, _ = damping_sweep.best()
-    notes = []
     half_lives = grid.half_life_days
     if split.task == "sessions":
         half_lives = (start.half_life_days,)
@@ -212,7 +223,7 @@ def choose_configuration(
     for row, half_life in enumerate(half_lives):
         for column, weight in enumerate(navigation_weights):
             if half_life == start.half_life_days and weight == start.navigation_weight:
-                second[row, column] = first[grid.damping.index(damping), grid.lift.index(lift)]
+                second[row, column] = first[grid.damping.index(damping), lifts.index(lift)]
                 continue  # built in the first sweep already
             configuration = start.with_values(
                 damping=damping, lift=lift, half_life_days=half_life, navigation_weight=weight
@@ -232,21 +243,30 @@ def choose_configuration(
     best = max(finite, key=lambda pair: (pair[0], -pair[1]))[1]
     value, chosen = tried[best]
     sweeps = (damping_sweep, history_sweep)
-    if getattr(evidence, "has_text", False) and split.task == "sessions":  # related lists: text matters
+    with_text = getattr(evidence, "has_text", False) and split.task == "sessions"  # related lists mix text
+    if with_text or (start.ranker != "none" and split.task == "sessions"):
+        # without the learnt ranker: the PageRank and text mix, its text weight swept when pages have text
+        text_weights = grid.text_weight if with_text else (start.text_weight,)
         best = chosen
-        third = np.full((len(grid.text_weight), len(grid.title_weight)), np.nan)
-        for row, weight in enumerate(grid.text_weight):
-            for column, title in enumerate(grid.title_weight):
-                third[row, column] = score(best.with_values(text_weight=weight, title_weight=title))
-        fixed = {name: getattr(best, name) for name in ("damping", "lift", "navigation_weight")}
+        # the mix's lift was not swept while the ranker was on: it is here
+        mix_lifts = grid.lift if lifts != grid.lift else (best.lift,)
+        third = np.full((len(text_weights), len(mix_lifts)), np.nan)
+        for row, weight in enumerate(text_weights):
+            for column, lift in enumerate(mix_lifts):
+                if best.ranker == "none" and (weight, lift) == (best.text_weight, best.lift):
+                    third[row, column] = value
+                    continue
+                configuration = best.with_values(text_weight=weight, lift=lift, ranker="none")
+                third[row, column] = score(configuration)
+        fixed = {name: getattr(best, name) for name in ("damping", "navigation_weight", "title_weight")}
         sweeps += (
             Sweep(
                 "text_weight",
-                "title_weight",
-                grid.text_weight,
-                grid.title_weight,
+                "lift",
+                text_weights,
+                mix_lifts,
                 third,
-                MappingProxyType(fixed),
+                MappingProxyType(fixed | {"ranker": "none"}),
             ),
         )
         finite = [(value, position) for position, (value, _) in enumerate(tried) if np.isfinite(value)]

@@ -55,7 +55,7 @@ class Split:
 
     Attributes
     ----------
-    name : {"temporal", "last-n", "sessions", "links"}
+    name : {"temporal", "last-n", "sessions", "links", "editorial"}
     train : Views
         Everything a model may learn from.
     cutoff : float or None
@@ -77,6 +77,9 @@ class Split:
     chrome : scipy.sparse.csr_array or None
         Links judged page chrome, never hidden and never a target (held-out links: the validation split
         carved from the training part follows the same rule).
+    reserve : scipy.sparse.csr_array or None
+        Editorial blocks: the curated links of the pages kept out of the test queries, which the validation
+        split hides (:func:`rankrec.evaluate.links.editorial_validation`).
     """
 
     name: str
@@ -90,6 +93,7 @@ class Split:
     counts: MappingProxyType
     links: sp.csr_array | None = None
     chrome: sp.csr_array | None = None
+    reserve: sp.csr_array | None = None
 
     @property
     def size(self) -> int:
@@ -97,8 +101,9 @@ class Split:
 
     @property
     def task(self) -> str:
-        """``"sessions"`` (queries carry prefix pages: sessions, held-out links) or ``"users"``."""
-        return "sessions" if self.name in ("sessions", "links") else "users"
+        """``"sessions"`` (queries carry prefix pages: sessions, held-out links, editorial blocks) or
+        ``"users"``."""
+        return "sessions" if self.name in ("sessions", "links", "editorial") else "users"
 
     @property
     def new_only(self) -> bool:

@@ -16,10 +16,12 @@ from pathlib import Path
 import numpy as np
 
 from ..configuration import Configuration
-from ..index import Index, load_array, load_transition
+from ..index import Index, index_signals, load_array, load_transition
 from ..pagerank import Transition, personalised_pagerank, push
+from ..ranker.features import FEATURES, POOL, absent_values, candidate_pool, pair_features
+from ..ranker.model import load_ranker
 from ..text import load_text_neighbours
-from .explain import SIMILAR_TEXT, contributions
+from .explain import SIMILAR_TEXT, VIA_PAGE, contributions
 from .select import lifted, top_k
 
 DEFAULT_K_RELATED = 50  # enough candidates that access and "already linked" filters still leave 10-20
@@ -127,7 +129,48 @@ def candidates(
     }
 
 
-def _vectors(transition: Transition, seeds: np.ndarray, method: str, configuration: Configuration, workers=1):
+def ranked_candidates(transition, signals, ranker, space, seed, indices, values, *, damping, k) -> dict:
+    """The ``k`` best of the seed's candidate pool (:func:`rankrec.ranker.features.candidate_pool`) by the
+    learnt ranker, explained by the feature group with the largest attribution (occlusion:
+    :mod:`rankrec.ranker.model`): text similarity names the text, the seed's own link to the item names
+    the seed ("linked from"), else the walk's strongest in-link."""
+    pool = candidate_pool(signals, seed, indices, values, POOL)
+    features = pair_features(signals, seed, pool, indices, values)
+    scores = ranker.score(features)
+    order = top_k(scores, k)
+    pages = pool[order]
+    indices, values = np.asarray(indices), np.asarray(values)
+
+    def lookup(wanted):
+        if indices.size == values.size == signals.size:
+            return values[wanted]
+        position = np.minimum(np.searchsorted(indices, wanted), max(indices.size - 1, 0))
+        found = values[position] if indices.size else np.zeros(wanted.size)
+        return np.where(indices[position] == wanted, found, 0.0) if indices.size else found
+
+    explained = contributions(transition.backward, lookup, pages, np.asarray(space), damping=damping)
+    chosen = features[order]
+    text_absent, link_absent = absent_values(signals.text_top)
+    text_part = ranker.contribution(chosen, text_absent)
+    link_part = ranker.contribution(chosen, link_absent)
+    linked = chosen[:, FEATURES.index("out_link")] > 0
+    by_link = linked & (link_part > text_part) & (link_part > 0)
+    explained.via[by_link] = seed
+    explained.kind[by_link] = VIA_PAGE
+    explained.kind[(text_part > link_part) & (text_part > 0)] = SIMILAR_TEXT
+    return {
+        "pages": pages,
+        "scores": lookup(pages),
+        "combined": scores[order],
+        "via": explained.via,
+        "space": explained.space,
+        "kind": explained.kind,
+    }
+
+
+def seed_vectors(
+    transition: Transition, seeds: np.ndarray, method: str, configuration: Configuration, workers=1
+):
     """(indices, values) of each seed's personalised PageRank vector, one seed after another."""
     damping = configuration.damping
     if method == "power":
@@ -147,11 +190,19 @@ def _vectors(transition: Transition, seeds: np.ndarray, method: str, configurati
 
 
 def _block(arrays: tuple, seeds, method, configuration, k, workers=1) -> dict:
-    """Candidates of ``seeds``; ``arrays`` = (transition, global vector, archived, space codes, text)."""
-    transition, global_vector, archived, space, text = arrays
+    """Candidates of ``seeds``; ``arrays`` = (transition, global vector, archived, space codes, text,
+    ranker, its signals): :func:`ranked_candidates` when there is a ranker, else :func:`candidates`."""
+    transition, global_vector, archived, space, text, ranker, signals = arrays
     out = _empty(seeds.size, k)
-    columns = _vectors(transition, seeds, method, configuration, workers)
+    columns = seed_vectors(transition, seeds, method, configuration, workers)
     for row, (seed, (indices, values)) in enumerate(zip(seeds.tolist(), columns, strict=True)):
+        if ranker is not None:
+            found = ranked_candidates(
+                transition, signals, ranker, space, seed, indices, values, damping=configuration.damping, k=k
+            )
+            for name, array in found.items():
+                out[name][row, : array.size] = array
+            continue
         found = candidates(
             transition,
             global_vector,
@@ -176,7 +227,14 @@ def _read_arrays(folder: str) -> tuple:
     size = int(load_array(path, "archived").size)
     arrays = (load_array(path, name) for name in ("global", "archived", "space"))
     text = load_text_neighbours(path / "text") if (path / "text").is_dir() else None
-    return load_transition(path, size), *arrays, text
+    transition = load_transition(path, size)
+    global_vector, archived, space = arrays
+    ranker = load_ranker(path / "ranker")
+    signals = None
+    if ranker is not None:
+        views = load_array(path, "views")
+        signals = index_signals(path, transition, global_vector, space, views, archived, text)
+    return transition, global_vector, archived, space, text, ranker, signals
 
 
 _arrays = lru_cache(maxsize=2)(_read_arrays)  # a worker process reads the staging folder once
@@ -249,8 +307,17 @@ def page_candidates(index: Index, number: int) -> dict:
         return {name: np.asarray(values[row, :count]) for name, values in related.items() if name != "row"}
     found = index.cache.get(number)
     if found is None:
+        ranker = index.ranker
         block = _block(
-            (index.transition, index.global_vector, index.archived, index.space, index.text),
+            (
+                index.transition,
+                index.global_vector,
+                index.archived,
+                index.space,
+                index.text,
+                ranker,
+                None if ranker is None else index.signals,
+            ),
             np.array([number]),
             index.manifest.precompute["method"],
             index.configuration,

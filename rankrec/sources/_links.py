@@ -16,6 +16,7 @@ from pathlib import Path
 from urllib.parse import unquote, urljoin, urlsplit
 
 from ..errors import InputError
+from ._text import file_type_problem
 from .records import LinkRecord, Origin
 
 PAGE_SUFFIXES = (".md", ".markdown", ".html", ".htm")
@@ -39,10 +40,11 @@ _URI_PARTS = re.compile(r"^(([^:/?#]+):)?(//([^/?#]*))?([^?#]*)(\?([^#]*))?(#(.*
 
 @dataclass(slots=True)
 class FolderFiles:
-    """Page files of a wiki folder (in sorted order) and the other files it holds."""
+    """Page files of a wiki folder (in sorted order), the other files it holds, and refused page files."""
 
     pages: list[tuple[str, str]] = field(default_factory=list)  # (relative POSIX path, file name)
     others: set[str] = field(default_factory=set)  # relative POSIX paths of non-page files
+    refused: list[tuple[str, InputError]] = field(default_factory=list)  # (relative path, why)
 
 
 def walk_folder(folder: str | os.PathLike[str], suffixes: tuple[str, ...]) -> FolderFiles:
@@ -50,22 +52,58 @@ def walk_folder(folder: str | os.PathLike[str], suffixes: tuple[str, ...]) -> Fo
 
     A file is a page when its name ends with one of ``suffixes`` (case-insensitive).
     The file name given for a page is ``folder`` as given joined with the relative path.
+    A page file is refused (with the reason, in ``refused``) when it is a symbolic link whose
+    real path lies outside the folder, or is not a regular file (a FIFO, a device, a socket,
+    a folder; POSIX file types), or cannot be looked at. Symbolic links to folders are not
+    followed (so the walk cannot loop); links to files inside the folder are.
     """
     found = FolderFiles()
     root = os.fspath(folder)
-    for directory, subfolders, files in os.walk(root):
+    real_root = os.path.realpath(root)
+    for directory, subfolders, files in os.walk(root, followlinks=False):
         subfolders[:] = sorted(name for name in subfolders if not name.startswith("."))
         relative_dir = os.path.relpath(directory, root)
         prefix = "" if relative_dir == "." else Path(relative_dir).as_posix() + "/"
         for name in sorted(files):
             if name.startswith("."):
                 continue
-            if name.lower().endswith(suffixes):
-                found.pages.append((prefix + name, os.path.join(directory, name)))
+            relative, file = prefix + name, os.path.join(directory, name)
+            if not name.lower().endswith(suffixes):
+                found.others.add(relative)
+                continue
+            problem = page_file_problem(file, real_root)
+            if problem is None:
+                found.pages.append((relative, file))
             else:
-                found.others.add(prefix + name)
+                found.refused.append((relative, InputError(file, None, f"{problem}; file skipped")))
     found.pages.sort()
+    found.refused.sort(key=lambda item: item[0])
     return found
+
+
+def page_file_problem(file: str, real_root: str) -> str | None:
+    """Why the page file ``file`` of the folder whose real path is ``real_root`` is not read, or None.
+
+    A symbolic link must lead to a path inside the folder (checked on the real path, so a chain
+    of links or a ``..`` in one counts by where it ends); the file must be a regular file.
+    """
+    if os.path.islink(file):
+        real = os.path.realpath(file)
+        if not _inside(real, real_root):
+            shown = real if len(real) <= 80 else "..." + real[-77:]
+            return f"symbolic link leads outside the wiki folder (to {shown})"
+    try:
+        mode = os.stat(file).st_mode
+    except OSError as error:  # a broken link, a loop of links, no permission
+        return f"cannot open: {error.strerror or error}"
+    return file_type_problem(mode)
+
+
+def _inside(path: str, root: str) -> bool:
+    try:
+        return os.path.commonpath([path, root]) == root
+    except ValueError:  # different drives (Windows)
+        return False
 
 
 def page_id_for_path(path: str) -> str:
@@ -276,8 +314,12 @@ def folder_pages(
 ) -> tuple[FolderFiles | None, Iterator[tuple[str, str] | InputError]]:
     """The files of a wiki folder and its pages as ``(relative path, file)``, one per page id.
 
-    Yields an InputError instead of a page for a missing folder, for a second file giving a
-    page id already taken, and (at the end) for a folder without pages.
+    Yields an InputError instead of a page for a missing folder, for a page file refused by
+    :func:`walk_folder` (a link leaving the folder, not a regular file), for a second file
+    giving a page id already taken, and (at the end) for a folder without pages. Readers read
+    each page with :func:`rankrec.sources._text.read_text` or
+    :func:`~rankrec.sources._text.read_page_bytes`, which check the kind of file again (it may
+    have changed since the walk) and cap its size.
     """
     problem = folder_error(folder, what)
     if problem is not None:
@@ -286,7 +328,11 @@ def folder_pages(
 
     def pages() -> Iterator[tuple[str, str] | InputError]:
         first_file: dict[str, str] = {}
-        for relative, file in files.pages:
+        for relative, entry in sorted([*files.pages, *files.refused], key=lambda item: item[0]):
+            if isinstance(entry, InputError):
+                yield entry
+                continue
+            file = entry
             page = page_id_for_path(relative)
             if page in first_file:
                 yield duplicate_error(file, page, first_file[page])

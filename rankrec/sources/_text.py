@@ -1,21 +1,30 @@
-"""Reading text files for the readers: gzip, byte-order marks, encodings, provenance.
+"""Reading text files for the readers: regular files only, size caps, gzip, byte-order marks, encodings.
 
-Every function here turns what can go wrong with a file (missing, empty, not in the
-expected encoding, a truncated gzip stream) into an :class:`InputError` that names the
-file and line, so no reader needs its own try/except around I/O.
+Every function here turns what can go wrong with a file (missing, empty, not a regular file,
+too large, not in the expected encoding, a truncated gzip stream) into an :class:`InputError`
+that names the file and line, so no reader needs its own try/except around I/O.
+
+Only regular files are read (POSIX file types: a FIFO, a device, a socket or a folder is
+refused before anything is read from it, and a FIFO is never waited on). A page file is read
+up to :data:`~rankrec.sources.records.PAGE_FILE_BYTES` (decompressed, for gzip) and a line
+of a line-oriented file up to :data:`~rankrec.sources.records.LINE_BYTES`, counted while
+reading, so memory stays bounded whatever the file holds.
 """
 
 from __future__ import annotations
 
 import codecs
+import errno
 import gzip
 import io
+import os
+import stat
 import zlib
 from collections.abc import Iterator
 from pathlib import Path
 
 from ..errors import InputError
-from .records import clip_utf8
+from .records import LINE_BYTES, PAGE_FILE_BYTES, clip_utf8
 
 _BOMS = (
     (codecs.BOM_UTF8, "utf-8"),
@@ -24,6 +33,26 @@ _BOMS = (
     (codecs.BOM_UTF16_LE, "utf-16-le"),
     (codecs.BOM_UTF16_BE, "utf-16-be"),
 )
+_GZIP_MAGIC = b"\x1f\x8b"
+# Opening a FIFO for reading blocks until a writer comes, unless non-blocking (POSIX open()).
+_OPEN_FLAGS = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOCTTY", 0)
+_KINDS = (
+    (stat.S_ISDIR, "a folder"),
+    (stat.S_ISFIFO, "a FIFO (named pipe)"),
+    (stat.S_ISCHR, "a character device"),
+    (stat.S_ISBLK, "a block device"),
+    (stat.S_ISSOCK, "a socket"),
+)
+
+
+class FileRefused(OSError):
+    """A file that is not read (not a regular file, or over a cap); ``strerror`` says why.
+
+    An OSError, so code that reports OSErrors around a read reports this one too.
+    """
+
+    def __init__(self, reason: str, code: int = errno.EINVAL) -> None:
+        super().__init__(code, reason)
 
 
 def check_encoding(encoding: str) -> str:
@@ -41,12 +70,78 @@ def check_encoding(encoding: str) -> str:
     return encoding
 
 
-def _open_binary(path: Path) -> io.BufferedIOBase:
-    with open(path, "rb") as probe:
-        magic = probe.read(2)
-    if magic == b"\x1f\x8b":
-        return gzip.open(path, "rb")  # type: ignore[return-value]
-    return open(path, "rb")
+def file_type_problem(mode: int) -> str | None:
+    """Why a file of ``st_mode`` ``mode`` is not read, or None for a regular file.
+
+    >>> file_type_problem(stat.S_IFREG | 0o644) is None, file_type_problem(stat.S_IFIFO | 0o644)
+    (True, 'not a regular file but a FIFO (named pipe); only regular files are read')
+    """
+    if stat.S_ISREG(mode):
+        return None
+    kind = next((name for test, name in _KINDS if test(mode)), "another kind of file")
+    return f"not a regular file but {kind}; only regular files are read"
+
+
+def size_text(size: int) -> str:
+    """A byte count for messages: ``'8 MiB'`` when a whole number of MiB, else ``'1,000 bytes'``."""
+    return f"{size >> 20} MiB" if size and size % (1 << 20) == 0 else f"{size:,} bytes"
+
+
+def open_regular(path: str | Path) -> io.FileIO:
+    """Open a regular file for reading (unbuffered); FileRefused for any other kind of file.
+
+    The kind is checked before opening (a device is never opened) and again on what was
+    opened (the name may have changed in between); a FIFO opened meanwhile does not block.
+    """
+    name = os.fspath(path)
+    problem = file_type_problem(os.stat(name).st_mode)
+    if problem is not None:
+        raise FileRefused(problem)
+    descriptor = os.open(name, _OPEN_FLAGS)
+    try:
+        problem = file_type_problem(os.fstat(descriptor).st_mode)
+        if problem is not None:
+            raise FileRefused(problem)
+        os.set_blocking(descriptor, True)
+        return io.FileIO(descriptor, "rb", closefd=True)
+    except BaseException:
+        os.close(descriptor)
+        raise
+
+
+def _open_binary(path: str | Path, limit: int | None = PAGE_FILE_BYTES) -> io.BufferedReader:
+    """A regular file's bytes (decompressed if it starts with the gzip magic bytes).
+
+    Reading more than ``limit`` bytes from it (None: no limit) raises FileRefused; at most
+    ``limit + 1`` bytes are ever taken from the file or the decompressor.
+    """
+    raw = open_regular(path)
+    try:
+        magic = raw.read(2)
+        raw.seek(0)
+        inner: io.RawIOBase | gzip.GzipFile = gzip.GzipFile(fileobj=raw) if magic == _GZIP_MAGIC else raw
+    except BaseException:
+        raw.close()
+        raise
+    return io.BufferedReader(_Bounded(inner, raw, limit))
+
+
+def read_page_bytes(path: str | Path, limit: int = PAGE_FILE_BYTES) -> bytes:
+    """The bytes of a page file (gzip decompressed), or an InputError (raised) naming the file.
+
+    Refused: a missing file, anything but a regular file, more than ``limit`` bytes, a
+    damaged gzip stream. Memory stays within ``limit`` bytes whatever the file holds.
+    """
+    name = str(path)
+    try:
+        with _open_binary(Path(path), limit) as stream:
+            return stream.read()
+    except FileRefused as error:
+        raise InputError(name, None, f"{error.strerror}; file skipped") from None
+    except (EOFError, gzip.BadGzipFile, zlib.error) as error:  # BadGzipFile is an OSError: first
+        raise InputError(name, None, f"compressed stream is damaged or truncated ({error})") from None
+    except OSError as error:
+        raise InputError(name, None, f"cannot read: {error.strerror or error}") from None
 
 
 def _sniff_bom(head: bytes, encoding: str) -> tuple[str, int]:
@@ -68,19 +163,24 @@ def _decode_reason(error: UnicodeDecodeError, encoding: str) -> str:
 def iter_lines(path: str | Path, encoding: str = "utf-8") -> Iterator[tuple[int, str] | InputError]:
     """Yield ``(line_number, text)`` for each line (without its line ending), or InputErrors.
 
-    A line that does not decode yields an InputError and reading goes on; an empty
-    file, a missing file or a truncated gzip stream yields one InputError and stops.
-    ``.gz`` files (by their magic bytes, whatever their name) are read transparently.
-    UTF-16/32 files with a byte-order mark are read as such.
+    A line that does not decode yields an InputError and reading goes on; an empty file, a
+    missing file, a file that is not a regular file, a line longer than :data:`LINE_BYTES`
+    or a truncated gzip stream yields one InputError and stops. ``.gz`` files (by their
+    magic bytes, whatever their name) are read transparently. UTF-16/32 files with a
+    byte-order mark are read as such.
     """
     name = str(path)
     path = Path(path)
     try:
-        stream = _open_binary(path)
+        stream = _open_binary(path, limit=None)
+    except FileRefused as error:
+        yield InputError(name, None, f"{error.strerror}; file skipped")
+        return
     except OSError as error:
         yield InputError(name, None, f"cannot open: {error.strerror or error}")
         return
     number = 0
+    too_long = f"line is longer than {size_text(LINE_BYTES)}; the rest of the file is not read"
     try:
         with stream:
             head = stream.read(4)
@@ -88,11 +188,19 @@ def iter_lines(path: str | Path, encoding: str = "utf-8") -> Iterator[tuple[int,
             rest = io.BufferedReader(_Prefixed(head[skip:], stream))  # type: ignore[arg-type]
             if encoding.startswith(("utf-16", "utf-32")):
                 text = io.TextIOWrapper(rest, encoding=encoding, newline=None)
-                for number, line in enumerate(text, 1):
+                while line := text.readline(LINE_BYTES + 1):  # characters: a bound on memory all the same
+                    number += 1
+                    if len(line) > LINE_BYTES and not line.endswith("\n"):
+                        yield InputError(name, number, too_long)
+                        return
                     yield number, line.rstrip("\r\n")
             else:
                 decoder_name = codecs.lookup(encoding).name
-                for number, raw in enumerate(rest, 1):
+                while raw := rest.readline(LINE_BYTES + 1):
+                    number += 1
+                    if len(raw) > LINE_BYTES and not raw.endswith(b"\n"):
+                        yield InputError(name, number, too_long)
+                        return
                     try:
                         line = raw.decode(decoder_name)
                     except UnicodeDecodeError as error:
@@ -112,16 +220,13 @@ def iter_lines(path: str | Path, encoding: str = "utf-8") -> Iterator[tuple[int,
         yield InputError(name, None, "file is empty")
 
 
-def read_text(path: str | Path, encoding: str = "utf-8") -> str:
-    """Read a whole (small) text file, raising InputError for what `iter_lines` reports."""
+def read_text(path: str | Path, encoding: str = "utf-8", limit: int = PAGE_FILE_BYTES) -> str:
+    """Text of a page file (at most ``limit`` bytes), raising InputError as :func:`read_page_bytes` does.
+
+    A byte-order mark overrides ``encoding``; line endings become ``\\n``.
+    """
     name = str(path)
-    try:
-        with _open_binary(Path(path)) as stream:
-            data = stream.read()
-    except OSError as error:
-        raise InputError(name, None, f"cannot read: {error.strerror or error}") from None
-    except (EOFError, gzip.BadGzipFile, zlib.error) as error:
-        raise InputError(name, None, f"compressed stream is damaged or truncated ({error})") from None
+    data = read_page_bytes(path, limit)
     encoding, skip = _sniff_bom(data[:4], encoding)
     data = data[skip:]
     try:
@@ -194,3 +299,44 @@ class _Prefixed(io.RawIOBase):
         data = self._stream.read(len(buffer))
         buffer[: len(data)] = data
         return len(data)
+
+
+class _Bounded(io.RawIOBase):
+    """A raw stream over ``stream`` that refuses (FileRefused) to give more than ``limit`` bytes.
+
+    Closing it closes ``stream`` and the file ``raw`` below it (a GzipFile given a file object
+    leaves that file open).
+    """
+
+    def __init__(self, stream, raw: io.FileIO, limit: int | None) -> None:
+        self._stream = stream
+        self._raw = raw
+        self._limit = limit
+        self._count = 0
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer) -> int:  # type: ignore[override]
+        wanted = len(buffer)
+        if self._limit is not None:
+            wanted = min(wanted, self._limit + 1 - self._count)  # one byte past the cap tells
+        data = self._stream.read(wanted)
+        size = len(data)
+        buffer[:size] = data
+        self._count += size
+        if self._limit is not None and self._count > self._limit:
+            raise FileRefused(
+                f"file holds more than {size_text(self._limit)} (decompressed, if gzip), "
+                "the cap for one page file",
+                errno.EFBIG,
+            )
+        return size
+
+    def close(self) -> None:
+        if not self.closed:
+            try:
+                self._stream.close()
+            finally:
+                self._raw.close()
+                super().close()

@@ -1,4 +1,4 @@
-"""Reader for a folder of HTML pages (BeautifulSoup, CSS selectors by soupsieve).
+"""Reader for a folder of HTML pages (lxml's HTML parser, CSS selectors by cssselect).
 
 Each ``*.html`` / ``*.htm`` file is a page; its id is its path relative to the folder
 without the extension and its URL is the base URL plus that path. ``<a href>`` values are
@@ -9,11 +9,16 @@ elements matching the ``exclude`` selector (navigation, headers, footers) are ig
 A page's text is the text of its document outside ``<head>``, ``<script>``, ``<style>``,
 ``<template>``, ``<noscript>`` and the excluded elements, whitespace collapsed, at most
 64 KiB of UTF-8 (cut at a character); its headings are its title and then the text of every
-``<h1>``..``<h6>`` outside the excluded elements, one per line (at most 16 KiB). Every link
+``<h1>``..``<h6>`` outside those elements, one per line (at most 16 KiB). Every link
 records its place: the elements above it from ``<body>`` (exclusive) down to its parent, each
 as its tag name and its sorted class names (``div.related>ul>li``; at most four classes, each
 cut to 40 name characters, others written ``_``), inline formatting elements left out, the 12
-nearest at most. A link straight under ``<body>`` has the empty place.
+nearest at most. A link straight under ``<body>`` has the empty place. A link's line is the
+line of its ``<a`` (where its start tag begins).
+
+The tree is libxml2's (through lxml), which closes elements the HTML standard lets a page
+leave open (``<p>`` before a ``<div>``, ``<li>`` before the next); a page nested deeper than
+its limit (256 elements) is an InputError, never a partial page.
 """
 
 from __future__ import annotations
@@ -21,17 +26,16 @@ from __future__ import annotations
 import gzip
 import os
 import re
-import warnings
 import zlib
+from collections import Counter
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import PurePosixPath
 from urllib.parse import quote
 
-import soupsieve
-from bs4 import BeautifulSoup
 from bs4.dammit import EncodingDetector
-from bs4.exceptions import ParserRejectedMarkup
+from cssselect import HTMLTranslator, SelectorError
+from lxml import etree
 
 from ..errors import InputError
 from ._links import (
@@ -52,19 +56,28 @@ from .records import HEADINGS_BYTES, TEXT_BYTES, LinkRecord, Origin, PageRecord,
 __all__ = ["read_html_folder"]
 
 _SUFFIXES = (".html", ".htm")
-# The standard library's parser, because it is the one through which BeautifulSoup keeps
-# the source line of each tag (its lxml tree builder records none, and every link needs one).
-_PARSER = "html.parser"
-_HIDDEN = ("head", "title", "script", "style", "template", "noscript")  # no visible text
-_HEADINGS = ("h1", "h2", "h3", "h4", "h5", "h6")
+_HIDDEN = frozenset({"head", "title", "script", "style", "template", "noscript"})  # no visible text
+_HEADINGS = frozenset({"h1", "h2", "h3", "h4", "h5", "h6"})
 # Inline formatting: left out of a link's place (``<p><em><a>`` sits where ``<p><a>`` does).
 _INLINE = frozenset({"span", "em", "strong", "b", "i", "code", "small", "abbr", "sup", "sub", "font"})
-_TOP = frozenset({"body", "html", "[document]"})  # where a place stops (bs4 names the root "[document]")
+_TOP = frozenset({"body", "html"})  # where a place stops
 _PLACE_DEPTH = 12  # elements of a place, the nearest to the link
 _PLACE_STEPS = 64  # ancestors looked at per place: bounds the work on hostile nesting
 _CLASSES = 4  # class names per element, the first in sorted order
 _NAME_CHARS = 40  # of a tag or class name in a place
 _NOT_NAME = re.compile(r"[^\w-]")  # characters of a class name a place does not keep
+# libxml2 stops reading at ``</html>``; the HTML standard (and Python's html.parser) read on,
+# so the end tag is dropped before parsing (it holds no newline: line numbers stay).
+_END_HTML = re.compile(r"</html[ \t\f]*>", re.IGNORECASE)
+# Where each ``<a`` start tag begins and ends in the source, comments, scripts and styles
+# (whose ``<a`` are no elements) matched as a whole and passed over. libxml2 numbers an
+# element by the line where its start tag ends, and at most 65,535 (an unsigned short).
+_START_TAGS = re.compile(
+    r"<!--.*?(?:-->|\Z)|<(script|style)\b.*?(?:</\1|\Z)"
+    r"|<a(?=[\s/>])(?:[^>\"'=]+|=\s*\"[^\"]*\"|=\s*'[^']*'|[=\"'])*>?",
+    re.IGNORECASE | re.DOTALL,
+)
+_LAST_LINE = 65_535  # the largest line number libxml2 keeps
 
 
 @dataclass(slots=True)
@@ -73,40 +86,32 @@ class _Parsed:
     links: list[tuple[int | None, str, str]]  # (line, page id, place)
 
 
-def _text_of(tag) -> str:
-    return " ".join(tag.get_text(" ").split()) if tag is not None else ""
+def _text_of(element) -> str:
+    return " ".join(" ".join(element.itertext()).split()) if element is not None else ""
 
 
-def _soup(file: str, encoding: str | None) -> BeautifulSoup | InputError:
-    if encoding is None:
+def _markup(file: str, encoding: str | None) -> str | InputError:
+    if encoding is not None:
         try:
-            with _open_binary(file) as stream:  # type: ignore[arg-type]
-                markup: bytes | str = stream.read()
-        except OSError as error:
-            return InputError(file, None, f"cannot read: {error.strerror or error}")
-        except (EOFError, gzip.BadGzipFile, zlib.error) as error:
-            return InputError(file, None, f"compressed stream is damaged or truncated ({error})")
-        markup = _decode(markup)
-    else:
-        try:
-            markup = read_text(file, encoding)
+            return read_text(file, encoding)
         except InputError as error:
             return error
     try:
-        with warnings.catch_warnings():
-            # e.g. "looks like a file name" or "looks like XML": messy input is normal here
-            warnings.simplefilter("ignore")
-            return BeautifulSoup(markup, _PARSER)
-    except (ParserRejectedMarkup, RecursionError) as error:
-        return InputError(file, None, f"HTML could not be parsed ({error}); page skipped")
+        with _open_binary(file) as stream:  # type: ignore[arg-type]
+            data = stream.read()
+    except OSError as error:
+        return InputError(file, None, f"cannot read: {error.strerror or error}")
+    except (EOFError, gzip.BadGzipFile, zlib.error) as error:
+        return InputError(file, None, f"compressed stream is damaged or truncated ({error})")
+    return _decode(data)
 
 
 def _decode(data: bytes) -> str:
     """Text of an HTML file: byte-order mark, else ``<meta charset>``, else UTF-8, else windows-1252.
 
-    bs4's EncodingDetector finds the first two; decoding here (rather than in bs4) keeps its
-    log quiet, keeps a character-set guess from overriding valid UTF-8 and makes the last
-    resort explicit: UTF-8 with replacement characters.
+    bs4's EncodingDetector finds the first two; decoding here keeps a character-set guess
+    from overriding valid UTF-8 and makes the last resort explicit: UTF-8 with replacement
+    characters.
     """
     detector = EncodingDetector(data, is_html=True)
     declared = EncodingDetector.find_declared_encoding(detector.markup, is_html=True)
@@ -120,39 +125,52 @@ def _decode(data: bytes) -> str:
     return detector.markup.decode("utf-8", errors="replace")
 
 
+def _tree(file: str, markup: str, parser: etree.HTMLParser):
+    """The document's root element (an empty ``<html>`` for a page without elements), or an InputError."""
+    try:
+        root = etree.fromstring(_END_HTML.sub("", markup).encode("utf-8", "replace"), parser)
+    except (etree.LxmlError, ValueError) as error:
+        return InputError(file, None, f"HTML could not be parsed ({error}); page skipped")
+    fatal = [error for error in parser.error_log if error.level == etree.ErrorLevels.FATAL]
+    if fatal:
+        line = fatal[0].line if 0 < fatal[0].line < _LAST_LINE else None
+        return InputError(file, line, f"HTML could not be parsed ({fatal[0].message}); page skipped")
+    return etree.Element("html") if root is None else root
+
+
 def _parse_page(
-    relative: str, file: str, soup: BeautifulSoup, base_url: str, exclude, others: set[str]
+    relative: str, file: str, markup: str, root, base_url: str, exclude, others: set[str]
 ) -> _Parsed:
     page = page_id_for_path(relative)
     page_url = base_url + quote(relative, safe="/")
-    title = _text_of(soup.find("title")) or _text_of(soup.find("h1")) or PurePosixPath(relative).stem
+    title = _text_of(next(root.iter("title"), None)) or _text_of(next(root.iter("h1"), None))
+    title = title or PurePosixPath(relative).stem
     document_base = page_url
-    base = soup.find("base", href=True)
+    base = next((element for element in root.iter("base") if element.get("href") is not None), None)
     if base is not None:
-        document_base = resolve_reference(page_url, _clean(str(base["href"])))
+        document_base = resolve_reference(page_url, _clean(base.get("href")))
         if not has_scheme(document_base):
             document_base = page_url
-    for element in exclude.select(soup):
-        if not element.decomposed:
-            element.decompose()
+    lines = _anchor_lines(markup, list(root.iter("a")))
+    anchors, text, headings = _walk(root, set(exclude(root)) if exclude is not None else set())
     links: list[tuple[int | None, str, str]] = []
     external: set[str] = set()
-    places: dict[int, str] = {}  # id of a parent element -> its place (links often share one)
-    for anchor in soup.find_all("a", href=True):
-        href = _clean(str(anchor["href"]))
+    places: dict[object, str] = {}  # parent element -> its place (links often share one)
+    names: dict[object, str] = {}  # element -> its name in a place (places share ancestors)
+    for anchor in anchors:
+        href = _clean(anchor.get("href"))
         if href == "" or href.startswith("#") or href[:11].lower() == "javascript:":
             continue  # an in-page jump or a script, neither a link nor counted
         kind, value = url_link_target(resolve_reference(document_base, href), base_url, others)
         if kind == PAGE:
-            parent = anchor.parent
-            place = places.get(id(parent))
+            parent = anchor.getparent()
+            place = places.get(parent)
             if place is None:
-                place = places[id(parent)] = _place(parent)
-            links.append((anchor.sourceline, value, place))
+                place = places[parent] = _place(parent, names)
+            links.append((lines[anchor], value, place))
         elif kind == EXTERNAL:
             external.add(value.partition("#")[0])
         # NOT_A_PAGE (an image, a PDF of the folder) is dropped
-    text, headings = _text_and_headings(soup)
     record = PageRecord(
         page=page,
         title=title,
@@ -166,43 +184,99 @@ def _parse_page(
     return _Parsed(record, links)
 
 
-def _text_and_headings(soup: BeautifulSoup) -> tuple[str, str]:
-    """Visible text (whitespace collapsed) and headings (one per line) of a page; changes ``soup``."""
-    for element in soup.find_all(_HIDDEN):
-        if not element.decomposed:
-            element.decompose()
-    headings = CappedText(HEADINGS_BYTES, "\n")
-    for heading in soup.find_all(_HEADINGS):
-        if headings.full:
-            break
-        headings.add(heading.get_text(" "))
+def _walk(root, excluded: set) -> tuple[list, str, str]:
+    """Links (``<a href>``), visible text and headings of a page, outside the ``excluded`` elements.
+
+    One pass in document order; a text piece is an element's text or the tail after an
+    element or comment, so pieces on either side of a hidden element stay apart.
+    """
+    anchors = []
     text = CappedText(TEXT_BYTES)
-    for piece in soup.strings:
-        if text.full:
-            break
-        text.add(piece)
-    return text.text(), headings.text()
+    headings: list[list[str]] = []  # the pieces of each heading, in document order
+    open_headings: list[list[str]] = []
+    hidden = 0  # hidden elements around the current node (their links still count)
+    walk = etree.iterwalk(root, events=("start", "end", "comment", "pi"))
+    for event, node in walk:
+        if event == "start":
+            piece = None
+            if node in excluded:
+                walk.skip_subtree()
+            elif node.tag in _HIDDEN:
+                hidden += 1
+            else:
+                piece = node.text
+                if node.tag == "a" and node.get("href") is not None:
+                    anchors.append(node)
+                elif hidden == 0 and node.tag in _HEADINGS:
+                    headings.append([])
+                    open_headings.append(headings[-1])
+        elif event == "end":
+            if node in excluded:
+                pass  # its subtree was skipped: only its tail counts
+            elif node.tag in _HIDDEN:
+                hidden -= 1
+            elif hidden == 0 and node.tag in _HEADINGS:
+                open_headings.pop()
+            piece = node.tail
+        else:  # a comment or processing instruction: not text, what follows it is
+            piece = node.tail
+        if piece and hidden == 0 and not piece.isspace():  # blank pieces add nothing
+            text.add(piece)
+            for pieces in open_headings:
+                pieces.append(piece)
+    capped = CappedText(HEADINGS_BYTES, "\n")
+    for pieces in headings:
+        capped.add(" ".join(pieces))
+    return anchors, text.text(), capped.text()
 
 
-def _place(element) -> str:
-    """The elements from ``<body>`` (exclusive) down to ``element``, nearest last: ``div.footer>p``."""
-    names: list[str] = []
+def _anchor_lines(markup: str, anchors: list) -> dict:
+    """The line where each ``<a`` start tag begins (as Python's html.parser numbers it), by element.
+
+    libxml2 gives the line where a start tag ends, at most 65,535: the start tags found in
+    ``markup`` ending on a line replace, in order, the lines of the anchors libxml2 puts there,
+    when both count the same (else libxml2's line stays).
+    """
+    starts: dict[int, list[int]] = {}
+    line, at = 1, 0
+    for match in _START_TAGS.finditer(markup):
+        if match.group(1) is not None or match.group().startswith("<!"):
+            continue
+        line += markup.count("\n", at, match.start())
+        at = match.start()
+        end = line + markup.count("\n", at, match.end())
+        starts.setdefault(min(end, _LAST_LINE), []).append(line)
+    counts = Counter(anchor.sourceline for anchor in anchors)
+    queues = {key: iter(found) for key, found in starts.items() if len(found) == counts[key]}
+    return {
+        anchor: next(queues[anchor.sourceline]) if anchor.sourceline in queues else anchor.sourceline
+        for anchor in anchors
+    }
+
+
+def _place(element, names: dict) -> str:
+    """The elements from ``<body>`` (exclusive) down to ``element``, nearest last: ``div.footer>p``.
+
+    ``names`` caches each element's name (see _element_name) across the places of a page.
+    """
+    kept: list[str] = []
     for _ in range(_PLACE_STEPS):
-        if element is None or element.name in _TOP or len(names) == _PLACE_DEPTH:
+        if element is None or element.tag in _TOP or len(kept) == _PLACE_DEPTH:
             break
-        if element.name not in _INLINE:
-            names.append(_element_name(element))
-        element = element.parent
-    return ">".join(reversed(names))
+        if element.tag not in _INLINE:
+            name = names.get(element)
+            if name is None:
+                name = names[element] = _element_name(element)
+            kept.append(name)
+        element = element.getparent()
+    return ">".join(reversed(kept))
 
 
 def _element_name(element) -> str:
     """Tag name and sorted class names joined by dots; never an id, a position or text."""
-    classes = element.get("class") or ()
-    if isinstance(classes, str):
-        classes = classes.split()
+    classes = (element.get("class") or "").split()
     kept = sorted({_NOT_NAME.sub("_", name[:_NAME_CHARS]) for name in classes[: 8 * _CLASSES]})
-    return ".".join([_NOT_NAME.sub("_", element.name[:_NAME_CHARS]), *kept[:_CLASSES]])
+    return ".".join([_NOT_NAME.sub("_", element.tag[:_NAME_CHARS]), *kept[:_CLASSES]])
 
 
 def _clean(href: str) -> str:
@@ -232,7 +306,8 @@ def read_html_folder(
     base_url : str
         Absolute http(s) URL of the folder; a page's URL is this plus its relative path.
     exclude : str
-        CSS selector of elements whose links are ignored (empty: none).
+        CSS selector (as cssselect translates it) of elements whose links, text and headings
+        are ignored (empty: none).
     encoding : str or None
         Text encoding of the files; None detects it (byte-order mark, ``<meta charset>``).
 
@@ -247,12 +322,12 @@ def read_html_folder(
     base_url = check_base_url(base_url)
     if not isinstance(exclude, str):
         raise TypeError(f"exclude must be a CSS selector string, got {exclude!r}")
-    try:
-        selector = soupsieve.compile(exclude.strip() or ":not(*)")
-    except soupsieve.SelectorSyntaxError as error:
-        raise ValueError(
-            f"exclude is not a valid CSS selector: {exclude!r} ({str(error).splitlines()[0]})"
-        ) from None
+    selector = None
+    if exclude.strip():
+        try:
+            selector = etree.XPath(HTMLTranslator().css_to_xpath(exclude))
+        except SelectorError as error:
+            raise ValueError(f"exclude is not a valid CSS selector: {exclude!r} ({error})") from None
     if encoding is not None:
         check_encoding(encoding)
     return _read(folder, base_url, selector, encoding)
@@ -262,17 +337,20 @@ def _read(
     folder, base_url: str, selector, encoding: str | None
 ) -> Iterator[PageRecord | LinkRecord | InputError]:
     files, pages = folder_pages(folder, _SUFFIXES, "HTML")
+    # Markup goes in as UTF-8 bytes (already decoded, so an encoding declared in it is moot).
+    parser = etree.HTMLParser(encoding="utf-8", huge_tree=False, collect_ids=False)
     parsed: list[_Parsed] = []
     for entry in pages:
         if isinstance(entry, InputError):
             yield entry
             continue
         relative, file = entry
-        soup = _soup(file, encoding)
-        if isinstance(soup, InputError):
-            yield soup
+        markup = _markup(file, encoding)
+        root = markup if isinstance(markup, InputError) else _tree(file, markup, parser)
+        if isinstance(root, InputError):
+            yield root
             continue
-        item = _parse_page(relative, file, soup, base_url, selector, files.others)
+        item = _parse_page(relative, file, markup, root, base_url, selector, files.others)
         parsed.append(item)
         yield item.record
     for item in parsed:

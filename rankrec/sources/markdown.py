@@ -14,19 +14,33 @@ line (at most 16 KiB). Every link records its place: ``md:``, the chain of block
 holds the link) and, after ``@``, the nearest heading above it, lowercase, whitespace
 collapsed, at most 80 characters (``md:bullet_list>list_item>paragraph@see also``; no ``@``
 before the first heading).
+
+Hostile input is bounded. A file is read up to 8 MiB (:func:`~rankrec.sources._text.read_text`).
+Front matter longer than 64 KiB, or using a YAML alias (``*name``: a few bytes of aliases can
+stand for gigabytes), is refused before PyYAML builds anything. The search for a link's closing
+bracket, which markdown-it-py repeats from every ``[`` and which is quadratic on unbalanced
+brackets, spends a budget proportional to the length of its block (16 steps per character);
+once a block has spent it, no further link is looked for in it (its text is kept) and the
+page gets an InputError naming the block's line. A wiki link is at most 512 characters.
 """
 
 from __future__ import annotations
 
 import os
+import re
 from collections.abc import Iterator
+from contextvars import ContextVar
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import PurePosixPath
 
+import yaml
 from markdown_it import MarkdownIt
+from markdown_it import helpers as _commonmark_helpers
+from markdown_it.rules_core import StateCore
 from markdown_it.rules_inline import StateInline
 from markdown_it.rules_inline import link as _commonmark_link
+from markdown_it.token import Token
 
 from ..errors import InputError
 from ._front_matter import Meta, read_front_matter, split_front_matter
@@ -50,6 +64,15 @@ _SUFFIXES = (".md", ".markdown")
 _PLACE_DEPTH = 12  # blocks of a place, the nearest to the link
 _CODE_BLOCKS = ("fence", "code_block")
 _WIKI = "wiki"  # kind of a link whose target is resolved once every title is known
+_WIKI_CHARS = 512  # of a wiki link, brackets included: the search for its "]]" looks no further
+_WORK_PER_CHAR = 1  # link-search steps an inline block may take per character of its text
+_WORK_FLOOR = 4_096  # ... and this many more (a short block with a few links never runs short)
+_SCAN_CHARS = 16  # characters of a plain scan (str.find, a link destination) that count as one step
+_BRACKETS = re.compile(r"\\.|[\[\]]", re.DOTALL)
+_BLANK = re.compile(r"[\x00-\x20\x7f]")
+_FRONT_MATTER_CHARS = 65_536  # of a page's front matter (common practice: real ones are a few lines)
+_REASON_CHARS = 160  # of a front matter error: PyYAML and the field checks quote the input
+_YAML_SCANNER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 
 # ----------------------------------------------------------------------------- parser
@@ -74,7 +97,9 @@ def _wikilink(state: StateInline, silent: bool) -> bool:
     source = state.src
     if not source.startswith("[[", start):
         return False
-    end = source.find("]]", start + 2, state.posMax)
+    stop = min(state.posMax, start + _WIKI_CHARS)
+    end = source.find("]]", start + 2, stop)
+    _spend((end if end >= 0 else stop) - start, _SCAN_CHARS)
     if end < 0:
         return False
     inner = source[start + 2 : end]
@@ -89,11 +114,137 @@ def _wikilink(state: StateInline, silent: bool) -> bool:
     return True
 
 
+# -------------------------------------------------------------------- bounded work
+
+
+class _OutOfBudget(Exception):
+    """An inline block has spent its budget: its links are not looked for."""
+
+
+class _Budget:
+    __slots__ = ("left",)
+
+    def __init__(self, left: int) -> None:
+        self.left = left
+
+
+_BUDGET: ContextVar[_Budget | None] = ContextVar("rankrec_markdown_budget", default=None)
+
+
+def _spend(steps: int, per: int = 1) -> None:
+    """Take ``steps // per + 1`` steps from the current block's budget; _OutOfBudget once it is spent."""
+    budget = _BUDGET.get()
+    if budget is not None:
+        budget.left -= steps // per + 1
+        if budget.left < 0:
+            raise _OutOfBudget
+
+
+def _label_end(state: StateInline, start: int, disable_nested: bool = False) -> int:
+    """Position of the ``]`` closing the link label opened at ``start``, or -1.
+
+    The same search as markdown-it-py's ``parseLinkLabel`` (brackets counted outside other
+    inline tokens; with ``disable_nested``, a link inside the label ends the search with -1),
+    but every step spends the block's budget.
+    """
+    before, end, level = state.pos, -1, 1
+    state.pos = start + 1
+    while state.pos < state.posMax:
+        _spend(0)
+        marker = state.src[state.pos]
+        if marker == "]":
+            level -= 1
+            if level == 0:
+                end = state.pos
+                break
+        position = state.pos
+        state.md.inline.skipToken(state)
+        if marker == "[":
+            if state.pos == position + 1:  # a bracket of the text, not the start of a token
+                level += 1
+            elif disable_nested:
+                break
+    state.pos = before
+    return end
+
+
+def _destination(string: str, pos: int, maximum: int):
+    """markdown-it-py's ``parseLinkDestination``, spending the budget on what it may have read."""
+    result = _commonmark_helpers.parseLinkDestination(string, pos, maximum)
+    if result.ok:
+        _spend(result.pos - pos, _SCAN_CHARS)
+    else:  # it stops at the first blank or control character at the latest
+        stop = _BLANK.search(string, pos, maximum)
+        _spend((maximum if stop is None else stop.start()) - pos, _SCAN_CHARS)
+    return result
+
+
+class _Helpers:
+    """markdown-it-py's link helpers, with the bounded label and destination searches."""
+
+    parseLinkLabel = staticmethod(_label_end)
+    parseLinkDestination = staticmethod(_destination)
+    parseLinkTitle = staticmethod(_commonmark_helpers.parseLinkTitle)
+
+
+def _bracket_work(content: str) -> int:
+    """Steps the label searches of a block may take, estimated by matching its brackets.
+
+    Brackets are matched as a stack would (backslash escapes honoured, code spans not). A
+    matched pair costs the characters between its brackets that no inner pair holds (the
+    search steps over a nested link at once); a ``[`` without its ``]`` costs the rest of the
+    block, which the search reads to the end.
+    """
+    opened: list[list[int]] = []  # [position, characters held by inner pairs]
+    work = 0
+    for match in _BRACKETS.finditer(content):
+        char = match.group()
+        if char == "[":
+            opened.append([match.start(), 0])
+        elif char == "]" and opened:
+            start, inner = opened.pop()
+            distance = match.start() - start
+            work += distance - inner
+            if opened:
+                opened[-1][1] += distance
+    return work + sum(len(content) - start for start, _ in opened)
+
+
+def _bounded_inline(state: StateCore) -> None:
+    """markdown-it-py's inline step, within a budget per block; a block over it keeps its text only.
+
+    A block whose estimated bracket work (:func:`_bracket_work`) exceeds its budget is not
+    parsed; one that spends its budget while parsing is taken back. Either keeps its text as
+    one text token and is marked ``brackets_cut``.
+    """
+    for token in state.tokens:
+        if token.type != "inline":
+            continue
+        content = token.content
+        allowed = _WORK_PER_CHAR * len(content) + _WORK_FLOOR
+        children: list[Token] = []
+        reset = _BUDGET.set(_Budget(allowed))
+        try:
+            if _bracket_work(content) > allowed:
+                raise _OutOfBudget
+            state.md.inline.parse(content, state.md, state.env, children)
+        except _OutOfBudget:
+            text = Token("text", "", 0)
+            text.content = content
+            children = [text]
+            token.meta["brackets_cut"] = True
+        finally:
+            _BUDGET.reset(reset)
+        token.children = children
+
+
 @lru_cache(maxsize=1)
 def _parser() -> MarkdownIt:
     """One CommonMark parser (plus tables, strikethrough and wiki links), made once."""
     parser = MarkdownIt("commonmark").enable(["table", "strikethrough"])
     parser.validateLink = lambda url: True  # keep javascript: etc.; they are sorted out later
+    parser.helpers = _Helpers  # type: ignore[assignment]
+    parser.core.ruler.at("inline", _bounded_inline)
     parser.inline.ruler.at("link", _link_with_offset)
     parser.inline.ruler.before("link", "wikilink", _wikilink)
     return parser
@@ -137,6 +288,8 @@ class _Walk:
                 self.text.add(block.content)
             if block.type != "inline" or not block.children:
                 continue
+            if block.meta.get("brackets_cut"):
+                self.errors.append(_brackets_error(self.file, block))
             in_heading = bool(blocks) and blocks[-1] == "heading"
             shown = _inline_text(block.children) if in_heading or not self.text.full else ""
             if in_h1:
@@ -177,6 +330,16 @@ class _Walk:
                 self.errors.append(InputError(self.file, line, reason))
 
 
+def _brackets_error(file: str, block) -> InputError:
+    line = block.map[0] + 1 if block.map else None
+    return InputError(
+        file,
+        line,
+        "the block starting here has too many unbalanced or nested brackets to look for all its "
+        "links; links after the first ones may be missing (its text is kept)",
+    )
+
+
 def _place(blocks: list[str], heading: str) -> str:
     """``md:`` + the blocks around a link (a table as one block) + ``@`` + the heading above it."""
     if "table" in blocks:
@@ -191,7 +354,7 @@ def _parse_page(relative: str, file: str, text: str, others: set[str]) -> _Parse
         yaml_text, skipped = split_front_matter(text)
     except ValueError as error:
         return InputError(file, 1, f"{error}; page skipped")
-    meta = Meta() if yaml_text is None else read_front_matter(yaml_text, file)
+    meta = Meta() if yaml_text is None else _front_matter(yaml_text, file)
     if isinstance(meta, InputError):
         return meta
     body = "\n" * skipped + "\n".join(text.split("\n")[skipped:]) if skipped else text
@@ -216,6 +379,45 @@ def _parse_page(relative: str, file: str, text: str, others: set[str]) -> _Parse
         headings=clip_utf8(" ".join(title.split()) + ("\n" + headings if headings else ""), HEADINGS_BYTES),
     )
     return _Parsed(record, walk.links, walk.errors)
+
+
+def _front_matter(yaml_text: str, file: str) -> Meta | InputError:
+    """The front matter's fields, refusing (before PyYAML builds anything) what could blow up.
+
+    Refused: more than 64 Ki characters, and any YAML alias (YAML 1.2 section 3.2.2.2: an alias
+    node stands for its anchored node, so nested aliases multiply: the "billion laughs"). Error
+    messages are cut to a short prefix, since they quote the input.
+    """
+    if len(yaml_text) > _FRONT_MATTER_CHARS:
+        return InputError(
+            file, 2, f"front matter is longer than {_FRONT_MATTER_CHARS:,} characters; page skipped"
+        )
+    alias = _first_alias(yaml_text)
+    if alias is not None:
+        line, name = alias
+        shown = name if len(name) <= 40 else name[:37] + "..."
+        return InputError(
+            file,
+            line + 2,  # line 1 is the opening '---'
+            f"front matter uses the YAML alias *{shown}; aliases are not accepted in front matter "
+            "(each can stand for a whole copy of its anchor); page skipped",
+        )
+    meta = read_front_matter(yaml_text, file)
+    if isinstance(meta, InputError) and len(meta.reason) > _REASON_CHARS:
+        cut = meta.reason[: _REASON_CHARS - 28].rstrip()
+        return InputError(meta.file, meta.line, f"{cut}... (cut); page skipped")
+    return meta
+
+
+def _first_alias(yaml_text: str) -> tuple[int, str] | None:
+    """(0-based line, name) of the first YAML alias, or None: scanned as tokens, never expanded."""
+    try:
+        for token in yaml.scan(yaml_text, Loader=_YAML_SCANNER):
+            if isinstance(token, yaml.AliasToken):
+                return token.start_mark.line, str(token.value)
+    except yaml.YAMLError:  # not valid YAML: read_front_matter says where
+        return None
+    return None
 
 
 def _inline_text(children) -> str:

@@ -15,6 +15,13 @@ TEXT_BYTES = 65_536
 """Most UTF-8 bytes of a page's text that are kept (64 KiB); longer text is cut at a character."""
 HEADINGS_BYTES = 16_384
 """Most UTF-8 bytes of a page's headings that are kept (16 KiB), cut the same way."""
+PAGE_FILE_BYTES = 8 * 1024 * 1024
+"""Most bytes read from one page file (8 MiB; of a gzip file, once decompressed): a larger file is
+refused with an InputError. The size is counted while reading (at most this many bytes and one
+more are read), never taken from the file system, which reports 0 for ``/proc`` files."""
+LINE_BYTES = PAGE_FILE_BYTES
+"""Most bytes of one line of a line-oriented file (a page export's line holds one page): a longer
+line is an InputError that ends the reading of its file."""
 
 
 @dataclass(frozen=True, slots=True)

@@ -102,3 +102,34 @@ def test_link_baselines_answer_each_split_from_its_own_links():
     text = TextSimilarity(similar).recommend(validation, 1)
     expected = validation.queries.pages[:, 0] + 1
     assert np.array_equal(text[:, 0][expected < 60], expected[expected < 60])
+
+
+@settings(max_examples=20, deadline=None)
+@given(seed=st.integers(min_value=0, max_value=10_000), p=st.floats(min_value=0.05, max_value=0.4))
+def test_editorial_blocks_are_hidden_from_every_input_of_their_own_split(seed, p):
+    # Curated blocks: a random third of the links sit at a "see also" place; they are the targets.
+    from rankrec.evaluate.links import editorial_pairs, editorial_split, editorial_validation
+    from rankrec.graph import LinkPlaces
+
+    links = _graph(30, p, seed)
+    coo = sp.coo_array(links)
+    rng = np.random.default_rng(seed)
+    codes = (rng.random(coo.nnz) < 0.33).astype(np.int64)  # 1: "div.seealso>p", 0: "div.body>p"
+    places = LinkPlaces(
+        coo.row, coo.col, codes, np.ones(coo.nnz, dtype=np.int64), ["div.body>p", "div.seealso>p"]
+    )
+    pairs = editorial_pairs(places, 30, "*seealso*")
+    assert _pairs(pairs) == {(int(i), int(j)) for i, j, c in zip(coo.row, coo.col, codes, strict=True) if c}
+    split = editorial_split(links, pairs, pattern="*seealso*", seed=seed)
+    test_pages = set(split.queries.pages[:, 0].tolist())
+    hidden = _hidden(split)
+    assert hidden == {(i, j) for i, j in _pairs(pairs) if i in test_pages}  # every curated link, no other
+    assert hidden.isdisjoint(_pairs(split.links)) and _pairs(split.links) | hidden == _pairs(links)
+    if split.reserve is None:
+        return
+    validation = editorial_validation(split)
+    validation_pages = set(validation.queries.pages[:, 0].tolist())
+    assert validation_pages and validation_pages.isdisjoint(test_pages)
+    assert _hidden(validation) == {(i, j) for i, j in _pairs(pairs) if i in validation_pages}
+    assert _hidden(validation).isdisjoint(_pairs(validation.links))
+    assert hidden.isdisjoint(_pairs(validation.links))  # the test targets reach no validation input either

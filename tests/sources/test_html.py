@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import random
 import tempfile
+from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
@@ -276,7 +278,8 @@ def test_text_and_headings_of_a_small_page(tmp_path):
 
 
 def test_excluded_selector_text_never_appears(tmp_path):
-    # The exclude selector (CSS Selectors Level 4, by soupsieve) removes text and headings too.
+    # The exclude selector (CSS Selectors Level 3 class selector, by cssselect) removes text and
+    # headings too.
     page = "<body><div class='sidebar'><h2>Menu</h2>sidebar words</div><p>body words</p></body>"
     (record,) = pages(read(tmp_path, {"a.html": page}, exclude=".sidebar")).values()
     assert (record.text, record.headings) == ("body words", "a")
@@ -306,13 +309,25 @@ def test_a_repeated_link_is_counted_in_its_place(tmp_path):
 
 
 def test_places_are_bounded_on_deep_nesting(tmp_path):
-    # Treat input as hostile: 3,000 nested elements give a place of the 12 nearest, and the
-    # walk up stops after a bounded number of inline elements.
-    page = "<body>" + "<div class='d'>" * 3000 + "<p><a href='b.html'>b</a></p>" + "</div>" * 3000
-    page += "<em>" * 500 + "<a href='c.html'>c</a>"
+    # Treat input as hostile: 200 nested elements give a place of the 12 nearest, and the walk
+    # up stops after a bounded number (64) of inline elements.
+    page = "<body>" + "<div class='d'>" * 200 + "<p><a href='b.html'>b</a></p>" + "</div>" * 200
+    page += "<em>" * 200 + "<a href='c.html'>c</a>"
     links = {r.target: r.place for r in read(tmp_path, {"a.html": page}) if isinstance(r, LinkRecord)}
     assert links["b"] == ">".join(["div.d"] * 11 + ["p"])
     assert links["c"] == ""
+
+
+def test_nesting_deeper_than_the_parser_allows_is_an_input_error(tmp_path):
+    # libxml2 refuses documents nested deeper than 256 elements unless its "huge" option is set
+    # (libxml2 documentation, XML_PARSE_HUGE), which the reader leaves off: the page is an
+    # InputError, never a page cut short, and the other pages are read.
+    page = "<body>" + "<div>" * 3000 + "<a href='b.html'>b</a>" + "</div>" * 3000
+    records = read(tmp_path, {"deep.html": page, "fine.html": "<a href='deep.html'>d</a>"})
+    (error,) = [r for r in records if isinstance(r, InputError)]
+    assert error.file.endswith("deep.html") and "could not be parsed" in error.reason
+    assert "depth" in error.reason and error.line == 1
+    assert list(pages(records)) == ["fine"] and targets(records) == ["deep"]
 
 
 def test_class_names_in_places_keep_only_name_characters(tmp_path):
@@ -335,3 +350,109 @@ def test_many_headings_and_paragraphs_stop_at_their_caps(tmp_path):
     (record,) = pages(read(tmp_path, {"a.html": page})).values()
     assert len(record.headings.encode()) == 16_384 and record.headings.startswith("a\nHeading 00000\n")
     assert len(record.text.encode()) == 65_536 and record.text.startswith("Heading 00000 Paragraph 00000.")
+
+
+def test_text_pieces_stay_apart_around_hidden_elements_and_comments(tmp_path):
+    # Worked by hand: a page's text pieces (element text, and what follows an element or a comment)
+    # are joined by one space, so a hidden element or a comment between two words keeps them apart.
+    page = "<body><p>alpha<script>x</script>beta<!--c-->gamma<style>y</style>delta</p></body>"
+    (record,) = pages(read(tmp_path, {"a.html": page})).values()
+    assert record.text == "alpha beta gamma delta"
+
+
+def test_a_links_line_is_where_its_start_tag_begins(tmp_path):
+    # Python's html.parser (standard library) numbers a start tag by its "<": a tag spread over
+    # lines 2-4 is on line 2 (libxml2 alone would say 4, the line of its ">").
+    page = '<body>\n<a class="x"\n   href="b.html" title="two\nlines">b</a> <a href="c.html">c</a>\n'
+    lines = {r.target: r.origin.line for r in read(tmp_path, {"a.html": page}) if isinstance(r, LinkRecord)}
+    assert lines == {"b": 2, "c": 4}
+
+
+def test_implied_end_tags_follow_the_html_standard(tmp_path):
+    # WHATWG HTML Living Standard, 13.2.6.4.7 ("in body" insertion mode): a <ul> or <p> start
+    # tag first closes an open <p>; 13.2.6.4.22 ("after after body"): markup after </html> is
+    # reprocessed in the body, so its links and text count.
+    page = (
+        "<html><body><div class='body'><p>Intro<ul><li><a href='b.html'>b</a></li></ul>"
+        "<p class='note'>Note<p>Next <a href='c.html'>c</a></p></div></body></html>\n"
+        "<p>After <a href='d.html'>d</a></p>"
+    )
+    records = read(tmp_path, {"a.html": page})
+    places = {r.target: r.place for r in records if isinstance(r, LinkRecord)}
+    assert places == {"b": "div.body>ul>li", "c": "div.body>p", "d": "p"}
+    assert pages(records)["a"].text == "Intro b Note Next c After d"
+
+
+class _ReferenceLinks(HTMLParser):
+    """Links of a well-formed page by Python's html.parser (standard library): target, line of the
+    start tag's "<" (getpos), and the open elements above it from <body> (exclusive)."""
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.open: list[tuple[str, str]] = []  # (tag, name in a place)
+        self.links: set[tuple[str, int, str]] = set()
+
+    def handle_starttag(self, tag, attrs):
+        attributes = dict(attrs)
+        if tag == "a" and attributes.get("href"):
+            above = [name for kind, name in self.open[2:] if kind not in ("em", "span", "strong")]
+            target = attributes["href"].removesuffix(".html")
+            self.links.add((target, self.getpos()[0], ">".join(above)))
+        classes = sorted((attributes.get("class") or "").split())
+        self.open.append((tag, ".".join([tag, *classes])))
+
+    def handle_endtag(self, tag):
+        while self.open and self.open.pop()[0] != tag:
+            pass
+
+
+def _generated_page(seed: int) -> str:
+    """A well-formed page (every element closed) with links in blocks, lists and inline elements,
+    start tags spread over lines, decoy links in comments and scripts, and lines past 65,535."""
+    rng = random.Random(seed)
+    parts = ["<!DOCTYPE html>\n<html><head><title>Generated</title></head>\n<body>\n"]
+    numbers = iter(range(1_000_000))
+
+    def anchor() -> str:
+        gap = rng.choice([" ", "\n ", "\n\n   "])
+        title = rng.choice(["", ' title="one line"', ' title="two\nlines"'])
+        return f'<a{gap}href="t{next(numbers)}.html"{title}{rng.choice(["", chr(10)])}>link</a>'
+
+    def content(depth: int) -> None:
+        for _ in range(rng.randint(2, 4)):
+            kind = rng.random()
+            if depth < 5 and kind < 0.4:
+                tag = rng.choice(["div", "section", "article", "aside", "blockquote"])
+                classes = " ".join(rng.sample(["x", "y", "z", "w"], rng.randint(0, 3)))
+                parts.append(f"<{tag} class='{classes}'>\n" if classes else f"<{tag}>\n")
+                content(depth + 1)
+                parts.append(f"</{tag}>\n")
+            elif kind < 0.55:
+                parts.append("<ul>\n" + "".join(f"<li>{anchor()}</li>\n" for _ in range(3)) + "</ul>\n")
+            elif kind < 0.65:
+                parts.append("<!-- <a\nhref='x.html'>\n</a> -->\n")
+                parts.append("<script>var s = `<a\nhref='y.html'>`;</script>\n")
+            else:
+                inline = rng.choice(["em", "span", "strong"])
+                parts.append(f"<p>Some <{inline}>{anchor()}</{inline}> and {anchor()}\n</p>\n")
+
+    content(0)
+    parts.append("<p>gap" + "\n" * 70_000 + "</p>\n")
+    content(0)
+    parts.append("</body></html>\n")
+    return "".join(parts)
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_links_lines_and_places_match_the_standard_librarys_parser(tmp_path, seed):
+    # Reference: Python's html.parser (standard library) on a generated well-formed page, where its
+    # literal nesting is the document tree; every link's target, line and place must agree.
+    page = _generated_page(seed)
+    reference = _ReferenceLinks()
+    reference.feed(page)
+    reference.close()
+    records = read(tmp_path, {"g.html": page})
+    found = {(r.target, r.origin.line, r.place) for r in records if isinstance(r, LinkRecord)}
+    assert found == reference.links
+    assert len(found) > 20 and max(line for _, line, _ in found) > 65_535  # past libxml2's 16 bits
+    assert "x" not in targets(records) and "y" not in targets(records)  # no decoys

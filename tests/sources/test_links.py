@@ -2,16 +2,20 @@
 
 from __future__ import annotations
 
+import os
+import threading
 from urllib.parse import urljoin
 
 import pytest
 
+from rankrec.errors import InputError
 from rankrec.sources._links import (
     EXTERNAL,
     JUMP,
     NOT_A_PAGE,
     OUTSIDE,
     PAGE,
+    folder_pages,
     page_id_for_path,
     relative_link_target,
     remove_dot_segments,
@@ -170,3 +174,100 @@ def test_page_id_for_path():
     assert page_id_for_path("a.b.markdown") == "a.b"
     assert page_id_for_path("") == "index"
     assert page_id_for_path("x/.md") == "x/.md"  # a bare extension is a name, not a suffix
+
+
+# ------------------------------------------------------------------- walking a wiki folder
+# What a crafted folder may hold (POSIX file types; symbolic links resolved as realpath(3)
+# does): a link to a file outside the folder (CWE-59, "link following"), a link to a device,
+# a FIFO, a link loop. Only regular files inside the folder are pages.
+
+
+def pages_and_errors(folder):
+    _files, entries = folder_pages(folder, (".md",), "Markdown")
+    done: list = []
+    thread = threading.Thread(target=lambda: done.append(list(entries)), daemon=True)
+    thread.start()
+    thread.join(10)
+    assert done, "walking the folder blocked"
+    pages = [entry[0] for entry in done[0] if not isinstance(entry, InputError)]
+    errors = {os.path.basename(e.file): e.reason for e in done[0] if isinstance(e, InputError)}
+    return pages, errors
+
+
+def wiki_with_outside(tmp_path):
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    (outside / "secret.md").write_text("root:x:0:0:root:/root:/bin/sh\n")
+    wiki = tmp_path / "wiki"
+    (wiki / "sub").mkdir(parents=True)
+    (wiki / "a.md").write_text("# A\n")
+    (wiki / "sub" / "b.md").write_text("# B\n")
+    return wiki, outside
+
+
+posix_only = pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="FIFOs and symbolic links are POSIX")
+
+
+@posix_only
+def test_a_link_leaving_the_folder_is_refused_with_its_reason(tmp_path):
+    wiki, outside = wiki_with_outside(tmp_path)
+    (wiki / "leak.md").symlink_to(outside / "secret.md")
+    (wiki / "relative.md").symlink_to("../outside/secret.md")
+    (wiki / "chain.md").symlink_to(wiki / "sub" / "hop.md")  # a link inside to a link outside
+    (wiki / "sub" / "hop.md").symlink_to(outside / "secret.md")
+    pages, errors = pages_and_errors(wiki)
+    assert pages == ["a.md", "sub/b.md"]
+    for name in ("leak.md", "relative.md", "chain.md", "hop.md"):
+        assert errors[name].startswith("symbolic link leads outside the wiki folder"), name
+        assert errors[name].endswith("; file skipped")
+
+
+@posix_only
+@pytest.mark.skipif(not os.path.exists("/etc/passwd"), reason="needs /etc/passwd")
+def test_a_link_to_a_system_file_is_refused(tmp_path):
+    # The probe's case: a page that is a link to the system's password file was imported.
+    wiki, _outside = wiki_with_outside(tmp_path)
+    (wiki / "passwd.md").symlink_to("/etc/passwd")
+    pages, errors = pages_and_errors(wiki)
+    assert "passwd.md" not in pages
+    assert errors["passwd.md"] == "symbolic link leads outside the wiki folder (to /etc/passwd); file skipped"
+
+
+@posix_only
+def test_links_inside_the_folder_are_followed_and_folder_links_cannot_loop(tmp_path):
+    wiki, outside = wiki_with_outside(tmp_path)
+    (wiki / "alias.md").symlink_to("sub/b.md")
+    (wiki / "sub" / "loop").symlink_to(wiki, target_is_directory=True)  # a loop back to the root
+    (wiki / "away").symlink_to(outside, target_is_directory=True)  # a folder outside
+    pages, errors = pages_and_errors(wiki)
+    assert pages == ["a.md", "alias.md", "sub/b.md"]  # neither folder link is walked into
+    assert errors == {}
+
+
+@posix_only
+def test_a_fifo_a_device_link_and_a_broken_link_are_refused_and_the_rest_is_read(tmp_path):
+    wiki, _outside = wiki_with_outside(tmp_path)
+    os.mkfifo(wiki / "p.md")
+    (wiki / "broken.md").symlink_to(wiki / "nowhere.md")
+    (wiki / "self.md").symlink_to(wiki / "self.md")  # a link to itself: ELOOP
+    if os.path.exists("/dev/zero"):
+        (wiki / "zero.md").symlink_to("/dev/zero")
+    pages, errors = pages_and_errors(wiki)
+    assert pages == ["a.md", "sub/b.md"]
+    assert errors["p.md"] == (
+        "not a regular file but a FIFO (named pipe); only regular files are read; file skipped"
+    )
+    assert errors["broken.md"].startswith("cannot open: No such file")
+    assert errors["self.md"].startswith("cannot open:")
+    if os.path.exists("/dev/zero"):
+        assert "leads outside the wiki folder (to /dev/zero)" in errors["zero.md"]
+
+
+def test_only_page_files_are_checked(tmp_path):
+    # A FIFO that is not a page file is only a name of the folder (a link may point at it).
+    (tmp_path / "a.md").write_text("# A\n")
+    if hasattr(os, "mkfifo"):
+        os.mkfifo(tmp_path / "pipe.bin")
+    files, entries = folder_pages(tmp_path, (".md",), "Markdown")
+    assert [entry[0] for entry in entries] == ["a.md"]
+    assert files.refused == [] and files.others == ({"pipe.bin"} if hasattr(os, "mkfifo") else set())

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import tempfile
+import time
+import tracemalloc
 from pathlib import Path
 
 import pytest
@@ -336,3 +338,141 @@ def test_long_pages_are_read_in_linear_time(tmp_path):
     (link,) = [r for r in records if isinstance(r, LinkRecord)]
     assert link.places == (("md:paragraph", 20_000),)
     assert len(next(r for r in records if isinstance(r, PageRecord)).text.encode()) <= 65_536
+
+
+# ------------------------------------------------------------------------ hostile input
+# Front matter: the "billion laughs" attack (OWASP, XML External Entity / entity expansion; the
+# same shape in YAML): nine levels of nine aliases stand for 9**9 strings in under 400 bytes.
+# YAML 1.2.2 section 3.2.2.2 (aliases): an alias node is the node of its anchor again, so a
+# loader that copies (or a message that prints) the value expands every level.
+
+_LAUGHS = (
+    '---\na: &a ["lol","lol","lol","lol","lol","lol","lol","lol","lol"]\n'
+    + "".join(
+        f"{name}: &{name} [" + ",".join([f"*{prev}"] * 9) + "]\n"
+        for prev, name in zip("abcdefgh", "bcdefghi", strict=True)
+    )
+    + "tags: *i\n---\n# Bomb\n[b](b.md)\n"
+)
+
+
+def test_a_yaml_alias_bomb_in_front_matter_is_refused_without_expanding_it(tmp_path):
+    assert len(_LAUGHS.encode()) < 400
+    tracemalloc.start()
+    try:
+        records = read(tmp_path, {"bomb.md": _LAUGHS, "b.md": "# B\n"})
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    (error,) = [r for r in records if isinstance(r, InputError)]
+    assert error.file.endswith("bomb.md") and error.line == 3  # the first alias, *a on line 3
+    assert error.reason.startswith("front matter uses the YAML alias *a; aliases are not accepted")
+    assert len(str(error)) < 300 and "lol" not in error.reason  # nothing of the value is quoted
+    assert [r.page for r in records if isinstance(r, PageRecord)] == ["b"]  # the import goes on
+    assert peak < 8 << 20  # the expansion would take gigabytes
+
+
+def test_any_alias_is_refused_but_an_anchor_alone_is_read(tmp_path):
+    records = read(
+        tmp_path,
+        {"alias.md": "---\ntitle: &t Hello\nspace: *t\n---\n", "anchor.md": "---\ntags: &t [db]\n---\n"},
+    )
+    (error,) = [r for r in records if isinstance(r, InputError)]
+    assert error.file.endswith("alias.md") and error.line == 3 and "alias *t" in error.reason
+    (page,) = [r for r in records if isinstance(r, PageRecord)]
+    assert (page.page, page.tags) == ("anchor", ("db",))
+
+
+def test_front_matter_over_64_ki_characters_is_refused(tmp_path):
+    front = "---\ntitle: x\nnote: " + "y" * 65_536 + "\n---\n"
+    (error,) = [r for r in read(tmp_path, {"big.md": front}) if isinstance(r, InputError)]
+    assert error.line == 2 and "front matter is longer than 65,536 characters" in error.reason
+
+
+def test_a_long_bad_value_is_quoted_by_a_short_prefix_only(tmp_path):
+    # Common practice: quote a bad value by a short prefix (about 80 characters), not whole.
+    front = "---\ntitle: [" + ", ".join(f"item{i}" for i in range(5_000)) + "]\n---\n"
+    (error,) = [r for r in read(tmp_path, {"long.md": front}) if isinstance(r, InputError)]
+    assert error.reason.startswith("front matter: title must be a string, got list ['item0'")
+    assert len(error.reason) <= 160 and error.reason.endswith("... (cut); page skipped")
+    assert "item100" not in error.reason
+
+
+# Markdown: markdown-it-py looks for a link label's closing "]" from every "[", so unbalanced
+# brackets make the searches quadratic. Cases from cmark's pathological tests
+# (commonmark/cmark, test/pathological_tests.py: "many link openers with no closers", "link
+# openers and emph closers", "nested brackets", "unclosed links B") and the probe's "![[a](".
+
+
+def _parse_seconds(text: str, repeats: int) -> float:
+    best = float("inf")
+    for _ in range(repeats):
+        started = time.perf_counter()
+        parsed = _parse_page("p.md", "p.md", text, set())
+        best = min(best, time.perf_counter() - started)
+    assert not isinstance(parsed, InputError)
+    return best
+
+
+@pytest.fixture(scope="module")
+def prose_seconds():
+    """Seconds to parse 120,000 characters of ordinary Markdown (links, emphasis, code, wiki links)."""
+    sentence = "Restart the [database](ops/db.md) as the *runbook* says; check `status`. See [[Backups]].\n"
+    text = (sentence * (120_000 // len(sentence) + 1))[:120_000]
+    text = "\n\n".join(text[start : start + 2_000] for start in range(0, len(text), 2_000))
+    return _parse_seconds(text, 3)
+
+
+@pytest.mark.parametrize(
+    "text",
+    [
+        "![[a](" * 20_000,
+        "[a" * 60_000,
+        "[ a_" * 30_000,
+        "[" * 60_000 + "a" + "]" * 60_000,
+        "[a](b" * 24_000,
+        "[[" * 60_000,
+        "[`]`" * 30_000,  # a code span hides the "]" a bracket count would match
+    ],
+    ids=[
+        "probe",
+        "link-openers",
+        "openers-emph-closers",
+        "nested-brackets",
+        "unclosed-b",
+        "wiki",
+        "code-span",
+    ],
+)
+def test_unbalanced_brackets_parse_about_as_fast_as_prose(text, prose_seconds):
+    # A ratio, not a speed target: both are parsed here, now. Before the bound these took from 5
+    # to 100 times as long as prose of the same length (120,000 characters), and the ratio grew
+    # with the length; bounded, they take 0.2 to 1.3 times as long. 3 leaves room for noise.
+    assert abs(len(text) - 120_000) <= 1
+    assert _parse_seconds(text, 2) < 3 * prose_seconds
+
+
+def test_a_hostile_block_keeps_its_text_and_the_other_blocks_keep_their_links(tmp_path):
+    page = "# T\n\nSee [b](b.md).\n\n" + "![[a](" * 5_000 + "\n\nAnd [c](c.md).\n"
+    records = read(tmp_path, {"a.md": page, "b.md": "b\n", "c.md": "c\n"})
+    errors = [r for r in records if isinstance(r, InputError)]
+    assert [(error.line, "too many unbalanced or nested brackets" in error.reason) for error in errors] == [
+        (5, True)
+    ]
+    assert {(r.target, r.origin.line) for r in records if isinstance(r, LinkRecord)} == {("b", 3), ("c", 7)}
+    (text,) = [r.text for r in records if isinstance(r, PageRecord) and r.page == "a"]
+    assert "And c." in text and "![[a](![[a](" in text  # the hostile block's text, as written
+
+
+def test_a_paragraph_of_many_links_is_not_cut():
+    # Common practice (a generated index page): 2,000 links and 2,000 wiki links in one paragraph,
+    # some nested in brackets, all found.
+    markdown = " ".join(f"[see [page] {i}](p{i}.md) or [[Q{i}]]," for i in range(2_000))
+    parsed = _parse_page("x.md", "x.md", markdown, set())
+    assert not isinstance(parsed, InputError) and parsed.errors == []
+    assert len(parsed.links) == 4_000
+
+
+def test_a_wiki_link_is_at_most_512_characters():
+    parsed = _parse_page("x.md", "x.md", "[[" + "a" * 508 + "]] [[" + "b" * 509 + "]]", set())
+    assert [value for _line, _kind, value, _place in parsed.links] == ["a" * 508]

@@ -1,0 +1,185 @@
+"""Candidates of a related list and the features a learnt ranker scores them by.
+
+One :class:`Signals` holds every array the features read (the transition, global PageRank, spaces,
+views, the text neighbours and the share of each page's in-links that are page chrome); a build makes
+it from its staging folder, a loaded index from its own files, and the ranker's training from the
+training graph, so candidates and features are computed by the same code wherever a list is made.
+
+A seed's candidates (:func:`candidate_pool`) are the union of the best ``pool`` pages of its
+personalised PageRank vector, its text neighbours, its out-links and its in-links (the strongest
+``LINKS_PER_SIDE`` of each side), and the ``pool`` pages most often co-cited with it (linked from its
+strongest ``NEIGHBOURS_SAMPLED`` in-link sources).
+:data:`FEATURES` names the columns of :func:`pair_features`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+POOL = 100  # best pages of a seed's personalised PageRank vector among its candidates
+LINKS_PER_SIDE = 200  # out-links and in-links of the seed taken as candidates, strongest first
+NEIGHBOURS_SAMPLED = 256  # in-link sources of the seed read for co-citation, strongest first
+
+FEATURES = (
+    "ppr_log",  # log of the candidate's score in the seed's personalised PageRank vector
+    "ppr_rank_log",  # log(1 + its rank among the vector's candidates)
+    "ppr_lifted_log",  # ppr_log − global_log: how much the seed raises it over its global score
+    "global_log",  # log of its global PageRank
+    "out_link",  # the seed's transition share to it (a link or an observed move from the seed)
+    "in_link",  # its transition share to the seed
+    "two_step_log",  # log of the two-step transition probability seed -> ? -> candidate
+    "cocitation_log",  # log(1 + pages linking to both), over the seed's strongest in-link sources
+    "coupling_log",  # log(1 + pages both link to)
+    "text_similarity",  # TF-IDF cosine (0 when not among the seed's text neighbours)
+    "text_rank_log",  # log(1 + its rank among the seed's text neighbours); log(1 + top) when absent
+    "same_space",  # 1 when seed and candidate share a space
+    "views_log",  # log(1 + its views)
+    "in_degree_log",  # log(1 + its in-links)
+    "chrome_in_share",  # share of its in-link occurrences that are page chrome
+)
+TEXT_FEATURES = frozenset({"text_similarity", "text_rank_log"})
+LINK_FEATURES = frozenset({"out_link", "in_link"})
+
+
+def absent_values(text_top: int) -> tuple[dict[int, float], dict[int, float]]:
+    """Column -> value of a candidate without text evidence, and of one without a direct link (either
+    direction): what the occlusion attribution of :mod:`rankrec.ranker.model` sets."""
+    text = {
+        FEATURES.index("text_similarity"): 0.0,
+        FEATURES.index("text_rank_log"): float(np.log1p(text_top)),
+    }
+    link = {FEATURES.index("out_link"): 0.0, FEATURES.index("in_link"): 0.0}
+    return text, link
+
+
+_TINY = 1e-12
+
+
+@dataclass(frozen=True, eq=False)
+class Signals:
+    """The arrays features are read from (see the module docstring); ``similar`` may be None (no text)."""
+
+    forward: sp.csr_array
+    backward: sp.csr_array
+    global_vector: np.ndarray
+    space: np.ndarray
+    views: np.ndarray
+    archived: np.ndarray
+    chrome_in_share: np.ndarray
+    similar: sp.csr_array | None = None
+    text_top: int = 30
+
+    @property
+    def size(self) -> int:
+        return int(self.global_vector.size)
+
+
+def _row(matrix, row: int) -> tuple[np.ndarray, np.ndarray]:
+    start, end = int(matrix.indptr[row]), int(matrix.indptr[row + 1])
+    return np.asarray(matrix.indices[start:end], dtype=np.int64), np.asarray(matrix.data[start:end])
+
+
+def _strongest(pages: np.ndarray, weights: np.ndarray, count: int) -> np.ndarray:
+    """The ``count`` pages of largest weight (all of them when there are no more)."""
+    return pages if pages.size <= count else pages[np.argpartition(-np.asarray(weights), count - 1)[:count]]
+
+
+def candidate_pool(signals: Signals, seed: int, indices, values, pool: int) -> np.ndarray:
+    """Sorted candidate pages of ``seed`` (its vector given as sorted ``indices`` and ``values``): see the
+    module docstring. The seed itself and archived pages are never candidates."""
+    scored = np.asarray(indices, dtype=np.int64)[np.asarray(values) > 0]
+    best = _strongest(scored, np.asarray(values)[np.asarray(values) > 0], pool)
+    parts = [best]
+    if signals.similar is not None:
+        parts.append(_row(signals.similar, seed)[0])
+    out_pages, out_weights = _row(signals.forward, seed)
+    parts.append(_strongest(out_pages, out_weights, LINKS_PER_SIDE))
+    in_pages, in_weights = _row(signals.backward, seed)
+    parts.append(_strongest(in_pages, in_weights, LINKS_PER_SIDE))
+    sources = _strongest(in_pages, in_weights, NEIGHBOURS_SAMPLED)
+    if sources.size:  # co-cited pages: linked from the pages that link to the seed, most often first
+        linked = sp.csr_array(signals.forward[sources] > 0, dtype=np.float64)
+        siblings = np.flatnonzero(np.asarray(linked.sum(axis=0)).ravel())
+        counts = np.asarray(linked.sum(axis=0)).ravel()[siblings]
+        parts.append(_strongest(siblings, counts, pool))
+    union = np.unique(np.concatenate(parts))
+    return union[(union != seed) & ~np.asarray(signals.archived)[union]]
+
+
+def _lookup(indices, values, wanted: np.ndarray) -> np.ndarray:
+    indices, values = np.asarray(indices), np.asarray(values, dtype=np.float64)
+    if indices.size == values.size and indices.size and indices[-1] == indices.size - 1:
+        return values[wanted]  # a whole vector
+    if indices.size == 0:
+        return np.zeros(wanted.size)
+    position = np.minimum(np.searchsorted(indices, wanted), indices.size - 1)
+    return np.where(indices[position] == wanted, values[position], 0.0)
+
+
+def _dense_row(matrix, row: int, size: int) -> np.ndarray:
+    pages, weights = _row(matrix, row)
+    dense = np.zeros(size)
+    dense[pages] = weights
+    return dense
+
+
+def pair_features(signals: Signals, seed: int, candidates: np.ndarray, indices, values) -> np.ndarray:
+    """Features (:data:`FEATURES`, float32 columns) of ``candidates`` for ``seed``, whose personalised
+    PageRank vector is given as sorted ``indices`` and ``values``."""
+    candidates = np.asarray(candidates, dtype=np.int64)
+    m, size = candidates.size, signals.size
+    out = np.zeros((m, len(FEATURES)), dtype=np.float32)
+    if m == 0:
+        return out
+    column = {name: position for position, name in enumerate(FEATURES)}
+    ppr = _lookup(indices, values, candidates)
+    overall = np.asarray(signals.global_vector, dtype=np.float64)[candidates]
+    order = np.argsort(-ppr, kind="stable")
+    rank = np.empty(m)
+    rank[order] = np.arange(m)
+    out[:, column["ppr_log"]] = np.log(ppr + _TINY)
+    out[:, column["ppr_rank_log"]] = np.log1p(rank)
+    out[:, column["global_log"]] = np.log(overall + _TINY)
+    out[:, column["ppr_lifted_log"]] = out[:, column["ppr_log"]] - out[:, column["global_log"]]
+    forward_row = _dense_row(signals.forward, seed, size)
+    out[:, column["out_link"]] = forward_row[candidates]
+    # in_link: P[c, seed] is row ``seed`` of the backward (transposed) matrix
+    out[:, column["in_link"]] = _dense_row(signals.backward, seed, size)[candidates]
+    out_pages, out_weights = _row(signals.forward, seed)
+    two_step = np.zeros(size)
+    if out_pages.size:  # only the seed's out-link rows are read
+        two_step = np.asarray(out_weights @ signals.forward[out_pages]).ravel()
+    out[:, column["two_step_log"]] = np.log(two_step[candidates] + _TINY)
+    in_pages, in_weights = _row(signals.backward, seed)
+    sources = _strongest(in_pages, in_weights, NEIGHBOURS_SAMPLED)
+    if sources.size:  # pages linking to the seed and to the candidate
+        linked = sp.csr_array(signals.forward[sources] > 0, dtype=np.float64)
+        cocited = np.asarray(linked.sum(axis=0)).ravel()
+        out[:, column["cocitation_log"]] = np.log1p(cocited[candidates])
+    if out_pages.size:  # pages the seed and the candidate both link to
+        targets = np.zeros(size)
+        targets[out_pages] = 1.0
+        shared = sp.csr_array(signals.forward[candidates] > 0, dtype=np.float64) @ targets
+        out[:, column["coupling_log"]] = np.log1p(shared)
+    text_rank = np.full(m, np.log1p(signals.text_top))
+    if signals.similar is not None:
+        similar_pages, sims = _row(signals.similar, seed)
+        if similar_pages.size:
+            position = np.searchsorted(similar_pages, candidates)
+            position = np.minimum(position, similar_pages.size - 1)
+            present = similar_pages[position] == candidates
+            out[present, column["text_similarity"]] = sims[position[present]]
+            ranks = np.empty(similar_pages.size)
+            ranks[np.argsort(-sims, kind="stable")] = np.arange(similar_pages.size)
+            text_rank[present] = np.log1p(ranks[position[present]])
+    out[:, column["text_rank_log"]] = text_rank
+    space = np.asarray(signals.space)
+    out[:, column["same_space"]] = (space[candidates] == space[seed]) & (space[seed] >= 0)
+    out[:, column["views_log"]] = np.log1p(np.asarray(signals.views, dtype=np.float64)[candidates])
+    in_degree = np.diff(signals.backward.indptr)
+    out[:, column["in_degree_log"]] = np.log1p(in_degree[candidates])
+    out[:, column["chrome_in_share"]] = np.asarray(signals.chrome_in_share)[candidates]
+    return out

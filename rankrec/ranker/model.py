@@ -1,0 +1,95 @@
+"""A learnt ranker: LightGBM's lambdarank (gradient-boosted trees trained on a listwise nDCG objective;
+Burges 2010, "From RankNet to LambdaRank to LambdaMART") or a linear model (logistic regression on
+standardised features), saved in an index folder and scored there.
+
+An item's reason comes from the model's own attribution by occlusion: the score an item loses when one
+group of its features is set to what a page without that evidence has (no text neighbour; no link
+between the two pages) is that group's contribution (for the linear model exactly its terms; for the
+trees the same question asked of the trees, three predictions per list instead of TreeSHAP's cost per
+row). An explanation names the group with the largest contribution. Feature importances in the
+training summary are LightGBM's total split gain, or the linear model's absolute coefficients (of
+standardised features).
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from .features import FEATURES
+
+RANKER_FORMAT = 1
+KINDS = ("lightgbm", "linear")
+
+
+@dataclass(frozen=True, eq=False)
+class Ranker:
+    """A trained model: ``kind``, the feature names it reads, its parameters and its training summary."""
+
+    kind: str
+    features: tuple[str, ...]
+    summary: dict
+    booster: object = None  # lightgbm.Booster (kind "lightgbm")
+    mean: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    scale: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    coef: np.ndarray = field(default_factory=lambda: np.zeros(0))
+
+    def score(self, features: np.ndarray) -> np.ndarray:
+        """One score per row (higher first)."""
+        features = np.asarray(features, dtype=np.float64)
+        if features.shape[0] == 0:
+            return np.zeros(0)
+        if self.kind == "lightgbm":
+            return np.asarray(self.booster.predict(features, num_threads=1), dtype=np.float64)
+        return ((features - self.mean) / self.scale) @ self.coef
+
+    def contribution(self, features: np.ndarray, absent: dict[int, float]) -> np.ndarray:
+        """Per row, the score lost when the columns of ``absent`` take its values (see the module
+        docstring): ``score(x) − score(x with those columns absent)``."""
+        features = np.asarray(features, dtype=np.float64)
+        occluded = features.copy()
+        for column, value in absent.items():
+            occluded[:, column] = value
+        return self.score(features) - self.score(occluded)
+
+    def importances(self) -> dict[str, float]:
+        """Each feature's importance (see the module docstring), largest 1."""
+        if self.kind == "lightgbm":
+            values = np.asarray(self.booster.feature_importance(importance_type="gain"), dtype=np.float64)
+        else:
+            values = np.abs(self.coef)
+        top = values.max() if values.size and values.max() > 0 else 1.0
+        return {name: round(float(value / top), 4) for name, value in zip(self.features, values, strict=True)}
+
+    def save(self, folder: Path) -> None:
+        folder.mkdir(parents=True, exist_ok=True)
+        meta = {"format": RANKER_FORMAT, "kind": self.kind, "features": list(self.features)}
+        meta["summary"] = self.summary
+        if self.kind == "lightgbm":
+            (folder / "model.txt").write_text(self.booster.model_to_string(), encoding="utf-8")
+        else:
+            meta |= {"mean": self.mean.tolist(), "scale": self.scale.tolist(), "coef": self.coef.tolist()}
+        (folder / "ranker.json").write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
+
+
+def load_ranker(folder: Path) -> Ranker | None:
+    """The ranker saved in ``folder`` (None when there is none); InputError when it does not fit this
+    rankrec (another format, other features)."""
+    path = folder / "ranker.json"
+    if not path.exists():
+        return None
+    meta = json.loads(path.read_text(encoding="utf-8"))
+    if meta.get("format") != RANKER_FORMAT or tuple(meta.get("features", ())) != FEATURES:
+        raise InputError(str(path), None, "the index's ranker was made by another rankrec; rebuild the index")
+    kind = meta["kind"]
+    if kind == "lightgbm":
+        import lightgbm
+
+        booster = lightgbm.Booster(model_str=(folder / "model.txt").read_text(encoding="utf-8"))
+        return Ranker(kind, FEATURES, meta["summary"], booster=booster)
+    arrays = {name: np.asarray(meta[name], dtype=np.float64) for name in ("mean", "scale", "coef")}
+    return Ranker(kind, FEATURES, meta["summary"], **arrays)
