@@ -34,8 +34,10 @@ _BOMS = (
     (codecs.BOM_UTF16_BE, "utf-16-be"),
 )
 _GZIP_MAGIC = b"\x1f\x8b"
+_CHUNK_BYTES = 1 << 16  # read at a time when splitting lines
 # Opening a FIFO for reading blocks until a writer comes, unless non-blocking (POSIX open()).
-_OPEN_FLAGS = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOCTTY", 0)
+_NONBLOCK = getattr(os, "O_NONBLOCK", 0)  # absent on Windows, which has no FIFOs of this kind
+_OPEN_FLAGS = os.O_RDONLY | _NONBLOCK | getattr(os, "O_NOCTTY", 0)
 _KINDS = (
     (stat.S_ISDIR, "a folder"),
     (stat.S_ISFIFO, "a FIFO (named pipe)"),
@@ -102,7 +104,8 @@ def open_regular(path: str | Path) -> io.FileIO:
         problem = file_type_problem(os.fstat(descriptor).st_mode)
         if problem is not None:
             raise FileRefused(problem)
-        os.set_blocking(descriptor, True)
+        if _NONBLOCK:
+            os.set_blocking(descriptor, True)
         return io.FileIO(descriptor, "rb", closefd=True)
     except BaseException:
         os.close(descriptor)
@@ -130,7 +133,7 @@ def read_page_bytes(path: str | Path, limit: int = PAGE_FILE_BYTES) -> bytes:
     """The bytes of a page file (gzip decompressed), or an InputError (raised) naming the file.
 
     Refused: a missing file, anything but a regular file, more than ``limit`` bytes, a
-    damaged gzip stream. Memory stays within ``limit`` bytes whatever the file holds.
+    damaged gzip stream. Memory stays a small multiple of ``limit`` whatever the file holds.
     """
     name = str(path)
     try:
@@ -196,9 +199,9 @@ def iter_lines(path: str | Path, encoding: str = "utf-8") -> Iterator[tuple[int,
                     yield number, line.rstrip("\r\n")
             else:
                 decoder_name = codecs.lookup(encoding).name
-                while raw := rest.readline(LINE_BYTES + 1):
+                for raw in _split_lines(rest, LINE_BYTES):
                     number += 1
-                    if len(raw) > LINE_BYTES and not raw.endswith(b"\n"):
+                    if raw is None:
                         yield InputError(name, number, too_long)
                         return
                     try:
@@ -242,6 +245,35 @@ def read_text(path: str | Path, encoding: str = "utf-8", limit: int = PAGE_FILE_
             "re-save the file as UTF-8 or give its encoding (--encoding)",
         ) from None
     return text.replace("\r\n", "\n").replace("\r", "\n")
+
+
+def _split_lines(stream: io.BufferedIOBase, limit: int) -> Iterator[bytes | None]:
+    """The lines of ``stream`` (split at ``\\n``, which is dropped), read in chunks.
+
+    A line of more than ``limit`` bytes gives None and ends the lines: memory stays within
+    ``limit`` and one chunk, and splitting runs in C (``bytes.split``), not a call per line.
+    """
+    held: list[bytes] = []  # the start of a line that continues in the next chunk
+    size = 0
+    while chunk := stream.read(_CHUNK_BYTES):
+        lines = chunk.split(b"\n")
+        if len(lines) > 1:
+            if held:
+                lines[0] = b"".join([*held, lines[0]])
+                held, size = [], 0
+            for line in lines[:-1]:
+                if len(line) > limit:
+                    yield None
+                    return
+                yield line
+        if lines[-1]:
+            held.append(lines[-1])
+            size += len(lines[-1])
+            if size > limit:
+                yield None
+                return
+    if held:
+        yield b"".join(held)
 
 
 class CappedText:

@@ -16,12 +16,13 @@ collapsed, at most 80 characters (``md:bullet_list>list_item>paragraph@see also`
 before the first heading).
 
 Hostile input is bounded. A file is read up to 8 MiB (:func:`~rankrec.sources._text.read_text`).
-Front matter longer than 64 KiB, or using a YAML alias (``*name``: a few bytes of aliases can
-stand for gigabytes), is refused before PyYAML builds anything. The search for a link's closing
-bracket, which markdown-it-py repeats from every ``[`` and which is quadratic on unbalanced
-brackets, spends a budget proportional to the length of its block (16 steps per character);
-once a block has spent it, no further link is looked for in it (its text is kept) and the
-page gets an InputError naming the block's line. A wiki link is at most 512 characters.
+Front matter longer than 64 Ki characters, or using a YAML alias (``*name``: a few bytes of
+aliases can stand for gigabytes), is refused before PyYAML builds anything. markdown-it-py
+searches for a link's closing ``]`` from every ``[``, which is quadratic on unbalanced
+brackets; here each inline block may spend one search step per character (plus 4,096). A
+block that would need more, by a linear estimate made before parsing (:func:`_bracket_work`)
+or by what its parse spends, keeps its text but none of its links, and the page gets an
+InputError naming the block's first line. A wiki link is at most 512 characters.
 """
 
 from __future__ import annotations
@@ -99,7 +100,7 @@ def _wikilink(state: StateInline, silent: bool) -> bool:
         return False
     stop = min(state.posMax, start + _WIKI_CHARS)
     end = source.find("]]", start + 2, stop)
-    _spend((end if end >= 0 else stop) - start, _SCAN_CHARS)
+    _spend(_scan_steps((end if end >= 0 else stop) - start))
     if end < 0:
         return False
     inner = source[start + 2 : end]
@@ -128,16 +129,23 @@ class _Budget:
         self.left = left
 
 
+# The budget of the inline block being parsed (None outside one): markdown-it-py hands its link
+# helpers no state of ours, and a context variable keeps concurrent parses apart.
 _BUDGET: ContextVar[_Budget | None] = ContextVar("rankrec_markdown_budget", default=None)
 
 
-def _spend(steps: int, per: int = 1) -> None:
-    """Take ``steps // per + 1`` steps from the current block's budget; _OutOfBudget once it is spent."""
+def _spend(steps: int) -> None:
+    """Take ``steps`` from the current block's budget; _OutOfBudget once it is spent."""
     budget = _BUDGET.get()
     if budget is not None:
-        budget.left -= steps // per + 1
+        budget.left -= steps
         if budget.left < 0:
             raise _OutOfBudget
+
+
+def _scan_steps(characters: int) -> int:
+    """Steps a plain scan of ``characters`` costs (one per 16 characters, at least one)."""
+    return characters // _SCAN_CHARS + 1
 
 
 def _label_end(state: StateInline, start: int, disable_nested: bool = False) -> int:
@@ -150,7 +158,7 @@ def _label_end(state: StateInline, start: int, disable_nested: bool = False) -> 
     before, end, level = state.pos, -1, 1
     state.pos = start + 1
     while state.pos < state.posMax:
-        _spend(0)
+        _spend(1)
         marker = state.src[state.pos]
         if marker == "]":
             level -= 1
@@ -171,11 +179,13 @@ def _label_end(state: StateInline, start: int, disable_nested: bool = False) -> 
 def _destination(string: str, pos: int, maximum: int):
     """markdown-it-py's ``parseLinkDestination``, spending the budget on what it may have read."""
     result = _commonmark_helpers.parseLinkDestination(string, pos, maximum)
+    if _BUDGET.get() is None:  # a reference definition, parsed with the blocks
+        return result
     if result.ok:
-        _spend(result.pos - pos, _SCAN_CHARS)
+        _spend(_scan_steps(result.pos - pos))
     else:  # it stops at the first blank or control character at the latest
         stop = _BLANK.search(string, pos, maximum)
-        _spend((maximum if stop is None else stop.start()) - pos, _SCAN_CHARS)
+        _spend(_scan_steps((maximum if stop is None else stop.start()) - pos))
     return result
 
 
@@ -335,8 +345,8 @@ def _brackets_error(file: str, block) -> InputError:
     return InputError(
         file,
         line,
-        "the block starting here has too many unbalanced or nested brackets to look for all its "
-        "links; links after the first ones may be missing (its text is kept)",
+        "the block starting here has too many unbalanced or nested brackets to look for its links "
+        "in bounded time; its links are dropped, its text is kept",
     )
 
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import contextlib
 import gzip
+import io
 import os
 import socket
 import threading
@@ -12,6 +13,8 @@ import zlib
 from pathlib import Path
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from rankrec.errors import InputError
 from rankrec.sources import _text
@@ -221,3 +224,21 @@ def test_utf16_lines_are_capped_too(monkeypatch, tmp_path):
     path.write_bytes("\ufeffshort\n".encode("utf-16-le") + ("w" * 50 + "\n").encode("utf-16-le"))
     items = list(iter_lines(path))
     assert items[0] == (1, "short") and isinstance(items[1], InputError) and items[1].line == 2
+
+
+@settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(
+    content=st.lists(st.sampled_from([b"a", b"bc", b"\n", b"\r\n", b"\r", "é".encode()]), max_size=60).map(
+        b"".join
+    ),
+    chunk=st.integers(1, 7),
+)
+def test_lines_split_across_chunks_come_out_whole(monkeypatch, tmp_path, content, chunk):
+    # Reference: Python's own line iteration over a binary file (io.BufferedReader: lines end at
+    # b"\n"), line endings then dropped as iter_lines documents. Tiny chunks put every line
+    # ending, and every two-byte character, across a chunk boundary somewhere.
+    monkeypatch.setattr(_text, "_CHUNK_BYTES", chunk)
+    path = tmp_path / "lines.txt"
+    path.write_bytes(b"x" + content)  # never empty (an empty file is an error of its own)
+    expected = [line.decode().rstrip("\r\n") for line in io.BytesIO(b"x" + content)]
+    assert [item[1] for item in iter_lines(path)] == expected
