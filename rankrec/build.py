@@ -108,16 +108,9 @@ def _signals(evidence: Evidence, configuration: Configuration, text, chrome_shar
     overall = personalised_pagerank(
         transition, damping=configuration.damping, tol=min(configuration.tol, 1e-8), workers=workers
     ).vectors
-    signals = Signals(
-        forward=transition.forward,
-        backward=transition.backward,
-        global_vector=overall,
-        space=evidence.space_codes,
-        views=evidence.views.counts(evidence.size),
-        archived=evidence.archived,
-        chrome_in_share=chrome_share,
-        similar=None if text is None else text.similar,
-        text_top=30 if text is None else text.top,
+    views = evidence.views.counts(evidence.size)
+    signals = Signals.of(
+        transition, overall, evidence.space_codes, views, evidence.archived, chrome_share, text
     )
     return signals, transition
 

@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
+from ._arrays import StringTable, load_array, load_csr, load_strings, save_csr, save_strings
 from .basis import Basis, _versions, load_basis
 from .configuration import Configuration
 from .errors import InputError, StaleIndex, UnknownPage
@@ -36,6 +37,16 @@ from .ranker.features import Signals
 from .ranker.model import Ranker, load_ranker
 from .store import Store
 from .text import TextNeighbours, load_text_neighbours
+
+__all__ = [
+    "INDEX_FORMAT",
+    "Index",
+    "IndexManifest",
+    "StringTable",
+    "load_array",
+    "load_index",
+    "write_tables",
+]
 
 INDEX_FORMAT = 3
 RELATED_ARRAYS = ("row", "pages", "scores", "combined", "via", "space", "kind")
@@ -85,80 +96,22 @@ def _sklearn_version() -> str | None:
     return sklearn.__version__
 
 
-# -- strings and CSR on disk ------------------------------------------------------------------------
-def _save_strings(folder: Path, name: str, values) -> None:
-    encoded = [str(value).encode() for value in values]
-    lengths = np.fromiter((len(item) for item in encoded), dtype=np.int64, count=len(encoded))
-    np.save(folder / f"{name}.offsets.npy", np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64))
-    np.save(folder / f"{name}.bytes.npy", np.frombuffer(b"".join(encoded), dtype=np.uint8))
-
-
-@dataclass(frozen=True, eq=False)
-class StringTable:
-    """Strings stored as one UTF-8 blob with offsets (memory-mapped); ``table[i]`` decodes one.
-
-    >>> table = StringTable(np.frombuffer("abé".encode(), dtype=np.uint8), np.array([0, 2, 4]))
-    >>> len(table), table[0], table[1]
-    (2, 'ab', 'é')
-    """
-
-    blob: np.ndarray
-    offsets: np.ndarray
-    # memoryviews of the same memory: indexing one gives a Python int or a slice without making
-    # numpy scalars or views, several times cheaper per string (lookups read some hundred a request)
-    _bytes: memoryview = field(init=False, repr=False)
-    _starts: memoryview = field(init=False, repr=False)
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "_bytes", memoryview(np.ascontiguousarray(self.blob, dtype=np.uint8)))
-        object.__setattr__(self, "_starts", memoryview(np.ascontiguousarray(self.offsets, dtype=np.int64)))
-
-    def __len__(self) -> int:
-        return int(self.offsets.size - 1)
-
-    def __getitem__(self, index: int) -> str:
-        return str(self._bytes[self._starts[index] : self._starts[index + 1]], "utf-8")
-
-
-def _load_strings(folder: Path, name: str) -> StringTable:
-    return StringTable(load_array(folder, f"{name}.bytes"), load_array(folder, f"{name}.offsets"))
-
-
-def _save_csr(folder: Path, name: str, matrix) -> None:
-    for part in ("indptr", "indices", "data"):
-        np.save(folder / f"{name}.{part}.npy", np.asarray(getattr(matrix, part)))
-
-
-def _load_csr(folder: Path, name: str, shape: tuple[int, int]) -> sp.csr_array:
-    parts = [load_array(folder, f"{name}.{part}") for part in ("data", "indices", "indptr")]
-    return sp.csr_array(tuple(parts), shape=shape)
-
-
-def load_array(folder: Path, name: str) -> np.ndarray:
-    """Memory-map one array, as a plain ndarray view of the mapping (no copy).
-
-    Element reads from an ``np.memmap`` go through its subclass hooks and cost several times
-    those of a plain ndarray; the view keeps the mapping alive through its ``base``.
-    """
-    return np.asarray(np.load(folder / f"{name}.npy", mmap_mode="r"))
-
-
 def write_tables(
     folder: Path, evidence, transition: Transition, global_vector, views, team_names, team_vectors
 ):
     """Write the page table, the transition, the global vector and the team vectors into ``folder``."""
     graph = evidence.graph
-    _save_strings(folder, "pages", graph.pages.tolist())
-    _save_strings(folder, "titles", evidence.titles)
+    save_strings(folder, "pages", graph.pages.tolist())
+    save_strings(folder, "titles", evidence.titles)
     np.save(folder / "page_order.npy", np.argsort(graph.pages.astype(str), kind="stable").astype(np.int64))
     np.save(folder / "row_ids.npy", graph.row_ids)
     np.save(folder / "archived.npy", evidence.archived)
     np.save(folder / "space.npy", evidence.space_codes)
     np.save(folder / "views.npy", views)
-    _save_csr(folder, "page_groups", evidence.group_incidence)
-    _save_csr(folder, "group_pages", sp.csr_array(evidence.group_incidence.T))
+    save_csr(folder, "page_groups", evidence.group_incidence)
+    save_csr(folder, "group_pages", sp.csr_array(evidence.group_incidence.T))
     for name in ("forward", "backward"):
-        _save_csr(folder, name, getattr(transition, name))
+        save_csr(folder, name, getattr(transition, name))
     for name in ("dangling", "out_degree", "out_weight"):
         np.save(folder / f"{name}.npy", getattr(transition, name))
     np.save(folder / "global.npy", global_vector)
@@ -170,24 +123,15 @@ def write_tables(
 
 def index_signals(folder: Path, transition, global_vector, space, views, archived, text) -> Signals:
     """The ranker's :class:`~rankrec.ranker.features.Signals` over the arrays of an index folder."""
-    return Signals(
-        forward=transition.forward,
-        backward=transition.backward,
-        global_vector=global_vector,
-        space=space,
-        views=views,
-        archived=archived,
-        chrome_in_share=load_array(folder, "chrome_in_share"),
-        similar=None if text is None else text.similar,
-        text_top=30 if text is None else text.top,
-    )
+    chrome = load_array(folder, "chrome_in_share")
+    return Signals.of(transition, global_vector, space, views, archived, chrome, text)
 
 
 def load_transition(folder: Path, size: int) -> Transition:
     """The transition arrays of an index folder (memory-mapped)."""
     return Transition(
-        forward=_load_csr(folder, "forward", (size, size)),
-        backward=_load_csr(folder, "backward", (size, size)),
+        forward=load_csr(folder, "forward", (size, size)),
+        backward=load_csr(folder, "backward", (size, size)),
         dangling=load_array(folder, "dangling"),
         out_degree=load_array(folder, "out_degree"),
         out_weight=load_array(folder, "out_weight"),
@@ -444,15 +388,15 @@ def load_index(folder: str | Path, *, graph: WikiGraph | None = None) -> Index:
             folder=folder,
             manifest=manifest,
             transition=load_transition(folder, size),
-            pages=_load_strings(folder, "pages"),
-            titles=_load_strings(folder, "titles"),
+            pages=load_strings(folder, "pages"),
+            titles=load_strings(folder, "titles"),
             page_order=load_array(folder, "page_order"),
             row_ids=load_array(folder, "row_ids"),
             archived=load_array(folder, "archived"),
             space=load_array(folder, "space"),
             views=load_array(folder, "views"),
-            page_groups=_load_csr(folder, "page_groups", (size, groups)),
-            group_pages=_load_csr(folder, "group_pages", (groups, size)),
+            page_groups=load_csr(folder, "page_groups", (size, groups)),
+            group_pages=load_csr(folder, "group_pages", (groups, size)),
             space_names=tuple(names["spaces"]),
             group_names=tuple(names["groups"]),
             global_vector=load_array(folder, "global"),

@@ -9,7 +9,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rankrec.index import StringTable, _save_strings, load_index
+from rankrec._arrays import save_strings
+from rankrec.index import StringTable, load_index
 from rankrec.recommend import related
 from rankrec.recommend.select import select_pages
 from tests.evaluate.test_method import _reference_selection
@@ -76,7 +77,7 @@ def test_related_refuses_a_bad_page_number(wiki, page, error, match):  # noqa: F
 def test_string_table_decodes_like_python(tmp_path):
     # Python's own str.encode/bytes.decode are the reference; empty, accented and non-BMP strings
     values = ["", "ops/patching", "réseau/übergabe", "a" * 300, "\U0001f4d8 handbook", "x/y/z"]
-    _save_strings(tmp_path, "names", values)
+    save_strings(tmp_path, "names", values)
     table = StringTable(
         np.load(tmp_path / "names.bytes.npy", mmap_mode="r"),
         np.load(tmp_path / "names.offsets.npy", mmap_mode="r"),

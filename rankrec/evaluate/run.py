@@ -16,22 +16,17 @@ The test split's held-out pages are read only in step 3, to score lists already 
 
 from __future__ import annotations
 
-import hashlib
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass, field
-from functools import cached_property
-from pathlib import Path
+from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse as sp
 
 from .._validation import check_choice, check_count, check_fraction, check_positive
-from ..build import Evidence, chrome_in_share, chrome_only, read_evidence
+from ..build import chrome_only
 from ..configuration import Configuration
 from ..errors import CutoffOutsideSpan, InputError, NothingToEvaluate
 from ..progress import Progress
-from ..store import Store
 from .baselines import (
     CoVisitation,
     GlobalPageRank,
@@ -43,6 +38,7 @@ from .baselines import (
     check_recommendations,
     training_counts,
 )
+from .data import EvaluationData, load_data, open_store
 from .links import editorial_pairs, editorial_split, held_out_links_split
 from .method import PersonalisedPageRank
 from .metrics import coverage, evaluate_lists, ndcg
@@ -50,110 +46,14 @@ from .splits import SESSION_GAP_SECONDS, Split, last_n_split, session_split, tem
 from .statistics import bootstrap_ci, paired_difference
 from .sweeps import GRID_NAMES, Choice, Grid, choose_configuration, mean_metric, validation_split
 
+__all__ = ["EvaluationData", "Evaluation", "load_data", "make_split", "open_store", "run_evaluation"]
+
 SPLITS = ("temporal", "last-n", "sessions", "links", "editorial")
-# hub pages for the hub_in_top_3 figure (common practice: round thresholds): linked from a fifth of all
-# pages, or from a twentieth with mostly chrome links
-HUB_SHARE, CHROME_HUB_SHARE = 0.2, 0.05
 WITHOUT_RANKER = "rankrec, no ranker"  # the served lists with ranker "none": PageRank and the text mix
 DEFAULT_KS = (1, 3, 5, 10, 20)
 LEVEL = 0.95
 DEFAULT_GRID = Grid()
 DEFAULT_CONFIGURATION = Configuration()
-
-
-@dataclass(frozen=True, eq=False)
-class EvaluationData:
-    """A store's links and views in page numbers: everything an evaluation reads from it.
-
-    ``users`` are the store's user row ids (codes), ``teams[user]`` a team code or -1, ``space`` each
-    page's space code (``space_names``; pages without a space share the code of ``"(none)"``).
-    """
-
-    store: str
-    pages: np.ndarray
-    adjacency: sp.csr_matrix
-    users: np.ndarray
-    viewed: np.ndarray
-    times: np.ndarray
-    space: np.ndarray
-    space_names: tuple[str, ...]
-    teams: np.ndarray | None
-    team_names: tuple[str, ...]
-    fingerprint: str
-    counts: dict = field(default_factory=dict)
-    evidence: Evidence | None = None  # the store as a build reads it (rankrec's lists are built from it)
-
-    @property
-    def size(self) -> int:
-        return int(self.pages.size)
-
-    @cached_property
-    def hubs(self) -> np.ndarray:
-        """Hub and chrome pages: linked from at least ``HUB_SHARE`` of all pages (chrome links count), or
-        from at least ``CHROME_HUB_SHARE`` of them with at least half of its in-link occurrences page chrome
-        (home, license, index and table-of-contents pages of generated sites); never fewer than two
-        linking pages. Descriptive only (the ``hub_in_top_3`` figure): no method reads it."""
-        linked = sp.csr_matrix(self.adjacency, copy=True)
-        linked.data[:] = 1.0
-        sources = np.asarray(linked.sum(axis=0)).ravel()
-        chrome = chrome_in_share(self.evidence) if self.evidence is not None else np.zeros(self.size)
-        wide = sources >= max(2.0, HUB_SHARE * self.size)
-        navigation = (sources >= max(2.0, CHROME_HUB_SHARE * self.size)) & (chrome >= 0.5)
-        return wide | navigation
-
-
-def _fingerprint(graph_fingerprint: str, users, viewed, times, teams) -> str:
-    """The graph's own fingerprint (pages and links, already hashed by load_graph) and the views."""
-    digest = hashlib.sha256(graph_fingerprint.encode())
-    for array in (users, viewed, times):
-        digest.update(np.ascontiguousarray(array).tobytes())
-    if teams is not None:
-        digest.update(np.ascontiguousarray(teams).tobytes())
-    return digest.hexdigest()[:16]
-
-
-def load_data(store: Store, *, topics: str = "spaces") -> EvaluationData:
-    """Read ``store`` for an evaluation (:func:`rankrec.build.read_evidence`: one snapshot, what a build
-    reads); InputError when it holds fewer than two pages. A store without views can still be evaluated
-    on held-out links (:func:`make_split` says so for the other tasks)."""
-    evidence = read_evidence(store, topics=topics)
-    graph, views = evidence.graph, evidence.views
-    inside = views.pages >= 0
-    names = ["(none)" if code < 0 else evidence.space_names[code] for code in evidence.space_codes.tolist()]
-    space_names, space = np.unique(np.array(names, dtype=object), return_inverse=True)
-    teams, team_names = None, tuple(evidence.teams)
-    users, dense, times = views.users[inside], views.pages[inside], views.times[inside]
-    if team_names:
-        members = [(int(user), name) for name in team_names for user in evidence.teams[name]]
-        top = max(int(users.max(initial=0)), max(user for user, _ in members))
-        teams = np.full(top + 1, -1, dtype=np.int64)
-        for user, name in reversed(members):  # a member of several teams counts in the first by name
-            teams[user] = team_names.index(name)
-    adjacency = sp.csr_matrix(graph.adjacency)
-    counts = {
-        "pages": graph.size,
-        "links": int(adjacency.nnz),
-        "views": int(inside.sum()),
-        "views_outside_the_graph": int((~inside).sum()),
-        "users": int(np.unique(users).size),
-        "spaces": len(space_names),
-        "teams": len(team_names),
-    }
-    return EvaluationData(
-        store=str(store.path),
-        pages=graph.pages,
-        adjacency=adjacency,
-        users=users,
-        viewed=dense,
-        times=times,
-        space=space.astype(np.int64).ravel(),
-        space_names=tuple(map(str, space_names)),
-        teams=teams,
-        team_names=team_names,
-        fingerprint=_fingerprint(graph.fingerprint, users, dense, times, teams),
-        counts=counts,
-        evidence=evidence,
-    )
 
 
 def make_split(
@@ -450,10 +350,3 @@ def _comparison(scored, best, candidates, k, samples, seed, chosen_on, users) ->
         "metrics": metrics,
         "against_every_baseline": every,
     }
-
-
-def open_store(path: str | Path) -> Store:
-    """The store at ``path`` (InputError when there is no such file: evaluation never creates one)."""
-    if not Path(path).is_file():
-        raise InputError(str(path), None, "no wiki store here; create one with `rankrec import`")
-    return Store(path, create=False)

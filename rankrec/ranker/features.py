@@ -76,6 +76,21 @@ class Signals:
     def size(self) -> int:
         return int(self.global_vector.size)
 
+    @classmethod
+    def of(cls, transition, global_vector, space, views, archived, chrome_in_share, text) -> Signals:
+        """The signals of a transition, its global vector, the page arrays and ``text`` neighbours (None)."""
+        return cls(
+            forward=transition.forward,
+            backward=transition.backward,
+            global_vector=global_vector,
+            space=space,
+            views=views,
+            archived=archived,
+            chrome_in_share=chrome_in_share,
+            similar=None if text is None else text.similar,
+            text_top=30 if text is None else text.top,
+        )
+
 
 def _row(matrix, row: int) -> tuple[np.ndarray, np.ndarray]:
     start, end = int(matrix.indptr[row]), int(matrix.indptr[row + 1])
