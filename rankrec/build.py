@@ -24,6 +24,7 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
+from ._arrays import save_csr
 from ._atomic import publish_folder
 from ._validation import check_choice, check_count, check_fraction
 from .basis import build_basis, save_basis
@@ -31,16 +32,20 @@ from .configuration import Configuration
 from .errors import GroupTooSmall
 from .evidence import Evidence, read_evidence
 from .graph import blend_navigation, chrome_pairs, content_matrix, dense_numbers, navigation_counts
-from .index import IndexManifest, write_tables
+from .index import READING, IndexManifest, write_tables
 from .pagerank import personalised_pagerank, prepare
 from .profiles import SECONDS_PER_DAY, reader_profiles, team_restart
 from .progress import Progress, report
+from .ranker.covisits import covisited_pages, session_successors
 from .ranker.features import Signals
 from .recommend.candidates import DEFAULT_K_RELATED, seed_vectors, write_related
 from .store import Store
 from .text import save_text_neighbours
 
 EXACT_LIMIT = 5_000  # method "auto": block power iteration up to this many pages, push above
+# site hubs (common practice: round thresholds): linked from a fifth of all pages, or from a twentieth
+# with mostly chrome links
+HUB_SHARE, CHROME_HUB_SHARE = 0.2, 0.05
 
 
 def chrome_only(evidence: Evidence) -> sp.csr_matrix | None:
@@ -101,6 +106,30 @@ def chrome_in_share(evidence: Evidence) -> np.ndarray:
     return share
 
 
+def site_hubs(adjacency, chrome_share) -> np.ndarray:
+    """Site hubs and chrome pages, a boolean per page: linked from at least ``HUB_SHARE`` of all pages
+    (chrome links count), or from at least ``CHROME_HUB_SHARE`` of them with at least half of the link
+    occurrences pointing at the page chrome (``chrome_share``: :func:`chrome_in_share`; home, license,
+    index and contents pages of generated sites); never fewer than two linking pages."""
+    linked = sp.coo_array(adjacency)
+    linked.sum_duplicates()
+    size = linked.shape[0]
+    other = (linked.row != linked.col) & (linked.data != 0)
+    sources = np.bincount(linked.col[other], minlength=size).astype(np.float64)
+    wide = sources >= max(2.0, HUB_SHARE * size)
+    navigation = (sources >= max(2.0, CHROME_HUB_SHARE * size)) & (np.asarray(chrome_share) >= 0.5)
+    return wide | navigation
+
+
+def reading_neighbours(evidence: Evidence, configuration: Configuration) -> tuple:
+    """(co-visited pages, session successors) of the evidence's views (:mod:`rankrec.ranker.covisits`)."""
+    gap = configuration.session_gap_seconds
+    return (
+        covisited_pages(evidence.views, evidence.size, gap=gap),
+        session_successors(evidence.views, evidence.size, gap=gap),
+    )
+
+
 def _signals(evidence: Evidence, configuration: Configuration, text, chrome_share, workers: int):
     """The ranker's signals of ``evidence`` (its own transition and global PageRank), and the transition."""
     adjacency, _ = navigation_matrix(evidence, configuration)
@@ -110,7 +139,14 @@ def _signals(evidence: Evidence, configuration: Configuration, text, chrome_shar
     ).vectors
     views = evidence.views.counts(evidence.size)
     signals = Signals.of(
-        transition, overall, evidence.space_codes, views, evidence.archived, chrome_share, text
+        transition,
+        overall,
+        evidence.space_codes,
+        views,
+        evidence.archived,
+        chrome_share,
+        text,
+        reading_neighbours(evidence, configuration),
     )
     return signals, transition
 
@@ -291,6 +327,7 @@ def build_from_evidence(
 
     started = time.perf_counter()
     chrome_share = chrome_in_share(evidence)
+    hubs = site_hubs(evidence.graph.adjacency, chrome_share)
     ranker, ranker_summary = _ranker(evidence, configuration, text, chrome_share, method, workers, progress)
     seconds["ranker"] = time.perf_counter() - started
 
@@ -308,8 +345,12 @@ def build_from_evidence(
         if text is not None:
             save_text_neighbours(text, staging / "text")
         np.save(staging / "chrome_in_share.npy", chrome_share)
+        np.save(staging / "hubs.npy", hubs)
         if ranker is not None:
             ranker.save(staging / "ranker")
+            for name, matrix in zip(READING, reading_neighbours(evidence, configuration), strict=True):
+                if matrix is not None:
+                    save_csr(staging, name, matrix)
         begun = time.perf_counter()
         write_related(staging, chosen, method, configuration, k_related, workers, progress)
         seconds["related"] = time.perf_counter() - begun
@@ -330,6 +371,7 @@ def build_from_evidence(
                 "topics": len(evidence.topics),
                 "teams": len(team_names),
                 "hubs": int(hub_pages.size),
+                "site_hubs": int(hubs.sum()),
                 "precomputed": int(chosen.size),
                 "views": int(views.sum()),
                 "skipped": int(skipped.sum()),

@@ -80,6 +80,10 @@ class Configuration:
     editorial_place : str
         Shell pattern of the link places of the wiki's curated "related"/"see also" blocks (empty: none):
         when set, the ranker learns from those blocks first (:mod:`rankrec.ranker.training`).
+    hub_free_top : int >= 0
+        The first places of a related list that no site hub or chrome page takes while another
+        candidate can (:func:`rankrec.build.site_hubs`: pages linked from a fifth of all pages, or
+        mostly from page chrome); hubs move down, not out (0: no rule).
     """
 
     damping: float = 0.85
@@ -101,6 +105,7 @@ class Configuration:
     ranker: str = "auto"
     ranker_queries: int = 2000
     editorial_place: str = ""
+    hub_free_top: int = 3
 
     def __post_init__(self) -> None:
         set_value = object.__setattr__
@@ -130,6 +135,7 @@ class Configuration:
         set_value(self, "skip_pages", tuple(self.skip_pages))
         check_choice("ranker", self.ranker, RANKER_MODES)
         check_count("ranker_queries", self.ranker_queries)
+        check_count("hub_free_top", self.hub_free_top, minimum=0)
         if not isinstance(self.editorial_place, str):
             raise TypeError(f"editorial_place must be a shell pattern string, not {self.editorial_place!r}")
 

@@ -48,7 +48,8 @@ __all__ = [
     "write_tables",
 ]
 
-INDEX_FORMAT = 3
+INDEX_FORMAT = 4
+READING = ("covisited", "successors")  # the ranker's reading neighbours (rankrec.ranker.covisits)
 RELATED_ARRAYS = ("row", "pages", "scores", "combined", "via", "space", "kind")
 
 
@@ -124,7 +125,12 @@ def write_tables(
 def index_signals(folder: Path, transition, global_vector, space, views, archived, text) -> Signals:
     """The ranker's :class:`~rankrec.ranker.features.Signals` over the arrays of an index folder."""
     chrome = load_array(folder, "chrome_in_share")
-    return Signals.of(transition, global_vector, space, views, archived, chrome, text)
+    size = int(np.asarray(archived).size)
+    reading = tuple(
+        load_csr(folder, name, (size, size)) if (folder / f"{name}.data.npy").exists() else None
+        for name in READING
+    )
+    return Signals.of(transition, global_vector, space, views, archived, chrome, text, reading)
 
 
 def load_transition(folder: Path, size: int) -> Transition:
@@ -162,6 +168,7 @@ class Index:
     related: dict
     team_names: tuple[str, ...]
     team_vectors: np.ndarray
+    hubs: np.ndarray | None = None  # site hubs and chrome pages (rankrec.build.site_hubs)
     text: TextNeighbours | None = None  # each page's text neighbours (rankrec.text), when pages had text
     ranker: Ranker | None = None  # the learnt related-list ranker (rankrec.ranker), when one was trained
     cache: dict = field(default_factory=dict, repr=False)  # candidates made on first request
@@ -405,6 +412,7 @@ def load_index(folder: str | Path, *, graph: WikiGraph | None = None) -> Index:
             basis=load_basis(folder / "basis") if (folder / "basis").exists() else None,
             text=load_text_neighbours(folder / "text") if (folder / "text").exists() else None,
             ranker=load_ranker(folder / "ranker"),
+            hubs=load_array(folder, "hubs"),
             related={name: load_array(folder, f"related_{name}") for name in RELATED_ARRAYS},
         )
     except (OSError, ValueError, TypeError, KeyError) as error:

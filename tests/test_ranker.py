@@ -129,7 +129,8 @@ def test_training_is_deterministic_under_a_seed_and_occlusion_matches_the_linear
     )
     # occlusion of a linear model is exactly its terms: coef · (x − absent) / scale (a worked identity)
     rng = np.random.default_rng(0)
-    mean, scale, coef = rng.normal(size=15), rng.uniform(0.5, 2, size=15), rng.normal(size=15)
+    width = len(FEATURES)
+    mean, scale, coef = rng.normal(size=width), rng.uniform(0.5, 2, size=width), rng.normal(size=width)
     linear = Ranker("linear", FEATURES, {}, mean=mean, scale=scale, coef=coef)
     absent = {FEATURES.index("out_link"): 0.0, FEATURES.index("in_link"): 0.0}
     expected = sum(coef[c] * (features[:, c] - value) / scale[c] for c, value in absent.items())

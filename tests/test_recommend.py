@@ -372,3 +372,34 @@ def test_landing_reasons_never_give_exact_or_whole_team_counts(wiki):
     assert team_readers(4, 9, 5) is None and team_readers(9, 9, 5) == "widely read in your team"
     assert team_readers(7, 9, 5) == "read by 5 or more of your team"
     assert str(GroupTooSmall("ops", 3, 5)).count("3") == 0
+
+
+def test_site_hubs_move_below_the_first_places_of_a_related_list(tmp_path):
+    # a page linked from every other page is a site hub (rankrec.build.site_hubs); with lift 0 and no text,
+    # a related list is the exact personalised PageRank order (checked against solve_exact above), so
+    # with hub_free_top 3 it must be that order with the hub moved to the fourth place
+    path = make_wiki(tmp_path / "wiki.db", pages=40, seed=3, density=0.08, groups=0, archived=0.0)
+    with Store(path) as store:
+        ids = [f"s{number % 3}/page-{number}" for number in range(40)]  # make_wiki's page ids
+        hub = ids[0]
+        with store.transaction():
+            store.put_links((page, hub, 3.0) for page in ids[1:])
+        lists = {}
+        for top in (0, 3):
+            settings = Configuration(tol=1e-10, lift=0.0, navigation_weight=0.0, ranker="none")
+            build_index(store, tmp_path / f"index{top}", settings.with_values(hub_free_top=top), k_related=25)
+            index = load_index(tmp_path / f"index{top}")
+            assert bool(index.hubs[index.page_number(hub)])
+            lists[top] = [
+                [item.page for item in related(index, page, k=8).items] for page in ids[1:] if page != hub
+            ]
+    moved = 0
+    for plain, served in zip(lists[0], lists[3], strict=True):
+        assert hub not in served[:3]
+        if hub in plain[:3]:
+            moved += 1
+            others = [page for page in plain if page != hub]
+            assert served == [*others[:3], hub, *others[3:7]]
+        else:
+            assert served == plain
+    assert moved >= 10  # the hub led most plain lists: the rule was exercised

@@ -1,11 +1,11 @@
 """Share of served related lists with a hub or chrome page in their top 3, over every page of an index.
 
-A hub is what ``rankrec evaluate`` counts in its "lists with a hub in their top 3" figure
-(:attr:`rankrec.evaluate.run.EvaluationData.hubs`): a page linked from a fifth of all pages, or from a
-twentieth with mostly page-chrome links. The lists are those the index serves a public viewer
-(:func:`rankrec.recommend.related`)::
+A hub is what ``rankrec evaluate`` counts in its "lists with a hub in their top 3" figure and what
+serving keeps out of a list's first places (:func:`rankrec.build.site_hubs`, stored in the index): a page
+linked from a fifth of all pages, or from a twentieth with mostly page-chrome links. The lists are those
+the index serves a public viewer (:func:`rankrec.recommend.related`)::
 
-    .venv/bin/python tools/hub_share.py --wiki WIKI.db --index DIR
+    .venv/bin/python tools/hub_share.py --index DIR
 """
 
 from __future__ import annotations
@@ -15,21 +15,17 @@ import argparse
 import numpy as np
 
 from rankrec.errors import RankrecError
-from rankrec.evaluate.run import load_data, open_store
 from rankrec.index import load_index
 from rankrec.recommend import related
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--wiki", required=True, help="the wiki store the index was built from")
     parser.add_argument("--index", required=True, help="the index folder")
     parser.add_argument("--show", type=int, default=10, metavar="N", help="hub pages to name")
     args = parser.parse_args(argv)
-    with open_store(args.wiki) as store:
-        data = load_data(store)
     index = load_index(args.index)
-    hubs = {str(page) for page in data.pages[data.hubs]}
+    hubs = {index.pages[int(number)] for number in np.flatnonzero(index.hubs)}
     with_hub, lists, counts = 0, 0, {}
     for number in range(index.size):
         page = index.pages[number]

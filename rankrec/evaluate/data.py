@@ -11,13 +11,9 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
-from ..build import Evidence, chrome_in_share, read_evidence
+from ..build import Evidence, chrome_in_share, read_evidence, site_hubs
 from ..errors import InputError
 from ..store import Store
-
-# hub pages for the hub_in_top_3 figure (common practice: round thresholds): linked from a fifth of all
-# pages, or from a twentieth with mostly chrome links
-HUB_SHARE, CHROME_HUB_SHARE = 0.2, 0.05
 
 
 @dataclass(frozen=True, eq=False)
@@ -48,17 +44,10 @@ class EvaluationData:
 
     @cached_property
     def hubs(self) -> np.ndarray:
-        """Hub and chrome pages: linked from at least ``HUB_SHARE`` of all pages (chrome links count), or
-        from at least ``CHROME_HUB_SHARE`` of them with at least half of its in-link occurrences page chrome
-        (home, license, index and table-of-contents pages of generated sites); never fewer than two
-        linking pages. Descriptive only (the ``hub_in_top_3`` figure): no method reads it."""
-        linked = sp.csr_matrix(self.adjacency, copy=True)
-        linked.data[:] = 1.0
-        sources = np.asarray(linked.sum(axis=0)).ravel()
+        """Site hubs and chrome pages (:func:`rankrec.build.site_hubs`, what serving keeps out of the
+        first ``hub_free_top`` places of a related list), for the ``hub_in_top_3`` figure."""
         chrome = chrome_in_share(self.evidence) if self.evidence is not None else np.zeros(self.size)
-        wide = sources >= max(2.0, HUB_SHARE * self.size)
-        navigation = (sources >= max(2.0, CHROME_HUB_SHARE * self.size)) & (chrome >= 0.5)
-        return wide | navigation
+        return site_hubs(self.adjacency, chrome)
 
 
 def _fingerprint(graph_fingerprint: str, users, viewed, times, teams) -> str:

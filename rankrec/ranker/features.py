@@ -7,8 +7,9 @@ training graph, so candidates and features are computed by the same code whereve
 
 A seed's candidates (:func:`candidate_pool`) are the union of the best ``pool`` pages of its
 personalised PageRank vector, its text neighbours, its out-links and its in-links (the strongest
-``LINKS_PER_SIDE`` of each side), and the ``pool`` pages most often co-cited with it (linked from its
-strongest ``NEIGHBOURS_SAMPLED`` in-link sources).
+``LINKS_PER_SIDE`` of each side), the ``pool`` pages most often co-cited with it (linked from its
+strongest ``NEIGHBOURS_SAMPLED`` in-link sources) and, with reading history, the pages most often read in
+the same sessions and the pages sessions went on to from it (:mod:`rankrec.ranker.covisits`).
 :data:`FEATURES` names the columns of :func:`pair_features`.
 """
 
@@ -18,6 +19,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
+
+from .covisits import NEIGHBOURS_KEPT
 
 POOL = 100  # best pages of a seed's personalised PageRank vector among its candidates
 LINKS_PER_SIDE = 200  # out-links and in-links of the seed taken as candidates, strongest first
@@ -39,6 +42,10 @@ FEATURES = (
     "views_log",  # log(1 + its views)
     "in_degree_log",  # log(1 + its in-links)
     "chrome_in_share",  # share of its in-link occurrences that are page chrome
+    "covisit",  # cosine co-visitation of seed and candidate in reading sessions (0: never read together)
+    "covisit_rank_log",  # log(1 + its rank among the seed's co-visited pages); log(1 + top) when absent
+    "goes_on",  # share of the sessions reading the seed that read the candidate later
+    "goes_on_rank_log",  # log(1 + its rank among the seed's successors); log(1 + top) when absent
 )
 TEXT_FEATURES = frozenset({"text_similarity", "text_rank_log"})
 LINK_FEATURES = frozenset({"out_link", "in_link"})
@@ -71,14 +78,19 @@ class Signals:
     chrome_in_share: np.ndarray
     similar: sp.csr_array | None = None
     text_top: int = 30
+    covisited: sp.csr_array | None = None  # :func:`rankrec.ranker.covisits.covisited_pages`
+    successors: sp.csr_array | None = None  # :func:`rankrec.ranker.covisits.session_successors`
 
     @property
     def size(self) -> int:
         return int(self.global_vector.size)
 
     @classmethod
-    def of(cls, transition, global_vector, space, views, archived, chrome_in_share, text) -> Signals:
-        """The signals of a transition, its global vector, the page arrays and ``text`` neighbours (None)."""
+    def of(
+        cls, transition, global_vector, space, views, archived, chrome_in_share, text, reading=(None, None)
+    ) -> Signals:
+        """The signals of a transition, its global vector, the page arrays, ``text`` neighbours (None)
+        and ``reading``: (co-visited pages, session successors), either None."""
         return cls(
             forward=transition.forward,
             backward=transition.backward,
@@ -89,6 +101,8 @@ class Signals:
             chrome_in_share=chrome_in_share,
             similar=None if text is None else text.similar,
             text_top=30 if text is None else text.top,
+            covisited=reading[0],
+            successors=reading[1],
         )
 
 
@@ -120,6 +134,9 @@ def candidate_pool(signals: Signals, seed: int, indices, values, pool: int) -> n
         siblings = np.flatnonzero(np.asarray(linked.sum(axis=0)).ravel())
         counts = np.asarray(linked.sum(axis=0)).ravel()[siblings]
         parts.append(_strongest(siblings, counts, pool))
+    for matrix in (signals.covisited, signals.successors):
+        if matrix is not None:
+            parts.append(_row(matrix, seed)[0])
     union = np.unique(np.concatenate(parts))
     return union[(union != seed) & ~np.asarray(signals.archived)[union]]
 
@@ -139,6 +156,23 @@ def _dense_row(matrix, row: int, size: int) -> np.ndarray:
     dense = np.zeros(size)
     dense[pages] = weights
     return dense
+
+
+def _neighbour_values(matrix, seed: int, candidates: np.ndarray, top: int):
+    """The candidates' values in the seed's row of a neighbour list (0 when absent), and log(1 + their
+    rank in that row) (log(1 + ``top``) when absent)."""
+    values, ranks = np.zeros(candidates.size), np.full(candidates.size, np.log1p(top))
+    if matrix is None:
+        return values, ranks
+    pages, weights = _row(matrix, seed)
+    if pages.size:
+        position = np.minimum(np.searchsorted(pages, candidates), pages.size - 1)
+        present = pages[position] == candidates
+        values[present] = weights[position[present]]
+        order = np.empty(pages.size)
+        order[np.argsort(-weights, kind="stable")] = np.arange(pages.size)
+        ranks[present] = np.log1p(order[position[present]])
+    return values, ranks
 
 
 def pair_features(signals: Signals, seed: int, candidates: np.ndarray, indices, values) -> np.ndarray:
@@ -179,18 +213,12 @@ def pair_features(signals: Signals, seed: int, candidates: np.ndarray, indices, 
         targets[out_pages] = 1.0
         shared = sp.csr_array(signals.forward[candidates] > 0, dtype=np.float64) @ targets
         out[:, column["coupling_log"]] = np.log1p(shared)
-    text_rank = np.full(m, np.log1p(signals.text_top))
-    if signals.similar is not None:
-        similar_pages, sims = _row(signals.similar, seed)
-        if similar_pages.size:
-            position = np.searchsorted(similar_pages, candidates)
-            position = np.minimum(position, similar_pages.size - 1)
-            present = similar_pages[position] == candidates
-            out[present, column["text_similarity"]] = sims[position[present]]
-            ranks = np.empty(similar_pages.size)
-            ranks[np.argsort(-sims, kind="stable")] = np.arange(similar_pages.size)
-            text_rank[present] = np.log1p(ranks[position[present]])
-    out[:, column["text_rank_log"]] = text_rank
+    for matrix, value, rank_column, top in (
+        (signals.similar, "text_similarity", "text_rank_log", signals.text_top),
+        (signals.covisited, "covisit", "covisit_rank_log", NEIGHBOURS_KEPT),
+        (signals.successors, "goes_on", "goes_on_rank_log", NEIGHBOURS_KEPT),
+    ):
+        out[:, column[value]], out[:, column[rank_column]] = _neighbour_values(matrix, seed, candidates, top)
     space = np.asarray(signals.space)
     out[:, column["same_space"]] = (space[candidates] == space[seed]) & (space[seed] >= 0)
     out[:, column["views_log"]] = np.log1p(np.asarray(signals.views, dtype=np.float64)[candidates])

@@ -22,7 +22,7 @@ import numpy as np
 from ..errors import InputError
 from .features import FEATURES
 
-RANKER_FORMAT = 1
+RANKER_FORMAT = 2
 KINDS = ("lightgbm", "linear")
 
 

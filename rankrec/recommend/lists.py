@@ -25,7 +25,7 @@ from ..pagerank import push
 from .audience import Reader, Team
 from .candidates import mix_text, page_candidates, text_row
 from .explain import FROM_RESTART, NO_LINK, SIMILAR_TEXT, VIA_PAGE, contributions, restart_scale
-from .select import cap_per_space, choose_pages, lifted
+from .select import cap_per_space, choose_pages, hubs_later, lifted
 
 READ_BY_BAND = 5  # "read by N or more of your team": N a multiple of 5, never the exact count
 
@@ -237,6 +237,7 @@ def related(
     if per_space is not None:
         check_count("per_space", per_space)
     lift = _lift(index, lift)
+    hub_free_top = index.configuration.hub_free_top
     seed = _seed_number(index, page)
     page = index.pages[seed]
     visible = index.visible(None if reader is None else reader.groups)
@@ -246,6 +247,7 @@ def related(
     if personal_share == 0 and lift == index.configuration.lift:
         found = page_candidates(index, seed)
         ordered = np.flatnonzero(eligible[found["pages"]])
+        ordered = ordered[hubs_later(found["pages"][ordered], index.hubs, hub_free_top)]
         if per_space is not None:
             codes = np.asarray(index.space)[found["pages"][ordered]]
             ordered = ordered[cap_per_space(codes, k, per_space, {})]
@@ -265,12 +267,15 @@ def related(
         restart = personal_share * reader.restart
         restart[seed] = 0.0
     mixed, text_part = _with_text(index, seed, vector, lift)
+    wider = k + hub_free_top  # room to move hubs down without leaving the list short
     if mixed is None:
-        chosen = _select(index, vector, eligible, k, lift, per_space)
+        chosen = _select(index, vector, eligible, wider, lift, per_space)
+        chosen = chosen[hubs_later(chosen, index.hubs, hub_free_top)][:k]
         explained = _explain_full(index, vector, chosen, restart)
         items = _items(index, chosen, vector[chosen], lift, explained, audience)
     else:
-        chosen = _select(index, mixed, eligible, k, 0.0, per_space)
+        chosen = _select(index, mixed, eligible, wider, 0.0, per_space)
+        chosen = chosen[hubs_later(chosen, index.hubs, hub_free_top)][:k]
         explained = _explain_full(index, vector, chosen, restart)
         explained.kind[text_part[chosen] > mixed[chosen] - text_part[chosen]] = SIMILAR_TEXT
         items = _items(index, chosen, vector[chosen], lift, explained, audience, mixed[chosen])

@@ -3,7 +3,8 @@
 - :func:`top_k`: the indices of the largest entries, ties to the lower index;
 - :func:`select_pages`: the best ``k`` eligible pages of one vector or of a block of them (lifted scores
   first, then eligible pages by global PageRank);
-- :func:`cap_per_space`: at most ``per_space`` pages of one space in a list.
+- :func:`cap_per_space`: at most ``per_space`` pages of one space in a list;
+- :func:`hubs_later`: no site hub in a related list's first places while another candidate can take them.
 """
 
 from __future__ import annotations
@@ -156,6 +157,25 @@ def _top_of_columns(ranked: np.ndarray, k: int) -> np.ndarray:
     rows, values = np.take_along_axis(rows, order, 1), np.take_along_axis(values, order, 1)
     lists[:, :width] = np.where(np.isfinite(values), rows, -1)
     return lists
+
+
+def hubs_later(pages, hubs, top: int) -> np.ndarray:
+    """Positions of ``pages`` (a list, best first) in the order that keeps site hubs (``hubs``: a boolean
+    per page, or None) out of the first ``top`` places: the first ``top`` pages that are not hubs lead,
+    every other page follows in its own order. A list with too few other pages keeps hubs where needed.
+
+    >>> hubs_later([7, 3, 5, 9], np.array([0, 0, 0, 1, 0, 0, 0, 1, 0, 0], dtype=bool), 2).tolist()
+    [2, 3, 0, 1]
+    """
+    pages = np.asarray(pages, dtype=np.int64)
+    positions = np.arange(pages.size)
+    if hubs is None or top == 0 or pages.size == 0:
+        return positions
+    is_hub = np.asarray(hubs)[pages]
+    if not is_hub[:top].any():
+        return positions
+    lead = np.flatnonzero(~is_hub)[:top]
+    return np.concatenate([lead, positions[~np.isin(positions, lead)]])
 
 
 def cap_per_space(codes, k: int, per_space: int, taken: dict) -> list[int]:
