@@ -239,12 +239,13 @@ def split_links(adjacency, split: Split) -> sp.csr_array:
 
 
 def check_adjacency(adjacency, split: Split) -> sp.csr_array:
-    """A float64 CSR copy of ``adjacency``, refused unless it is sparse and ``split.size`` square."""
+    """A float64 CSR copy of ``adjacency`` (never a view of it), refused unless it is sparse and
+    ``split.size`` square."""
     if not sp.issparse(adjacency):
         raise TypeError(f"adjacency must be a scipy sparse matrix, not {type(adjacency).__name__}")
     if adjacency.shape != (split.size, split.size):
         raise ValueError(f"adjacency must have shape {(split.size, split.size)!r}; got {adjacency.shape!r}")
-    return sp.csr_array(adjacency, dtype=np.float64)
+    return sp.csr_array(adjacency, dtype=np.float64, copy=True)  # a copy: baselines may rewrite weights
 
 
 # -------------------------------------------------------------------------------------- the methods

@@ -288,7 +288,8 @@ def markdown(evaluation: Evaluation, content: dict, plots: list[str]) -> str:
         f"## rankrec against the best baseline, {best}",
         f"The best baseline is the one with the highest {comparison['best_baseline_chosen_on']}"
         + (f" (validation: {validation})" if validation else "")
-        + ". Differences are rankrec minus the baseline, paired by query, users resampled whole.",
+        + ". Differences are rankrec minus the baseline, paired by query, users resampled whole."
+        + _tuned_note(content["settings"]),
         _table(
             header,
             [
@@ -347,3 +348,13 @@ DEFINITIONS = """\
   length; share never visited: pages the reader never viewed in training.
 - Intervals: percentile bootstrap over users (a user's sessions are drawn together); paired differences
   draw the same users for both methods."""
+
+
+def _tuned_note(settings: dict) -> str:
+    """Which settings each tuned baseline got on validation, and which were skipped and why."""
+    tuned = settings.get("tuned_baselines") or {}
+    parts = [f"{name}: {found['chosen']}" for name, found in tuned.items()]
+    note = f" Tuned on the validation split: {'; '.join(parts)}." if parts else ""
+    for message in (settings.get("skipped_baselines") or {}).values():
+        note += f" {message}."
+    return note

@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -38,6 +38,7 @@ from .baselines import (
     check_recommendations,
     training_counts,
 )
+from .collaborative import EASE, ItemKNN, RP3beta
 from .data import EvaluationData, load_data, open_store
 from .links import editorial_pairs, editorial_split, held_out_links_split
 from .method import PersonalisedPageRank
@@ -139,6 +140,38 @@ def baselines(data: EvaluationData, split: Split, *, seed: int = 0) -> list:
     return found
 
 
+TUNED_FAMILIES = (ItemKNN, RP3beta, EASE)  # baselines with settings, each tuned on the validation split
+
+
+def tuned_grids(split: Split) -> tuple[list[list], dict]:
+    """The grids of the baselines tuned on validation (:mod:`rankrec.evaluate.collaborative`), and the
+    families skipped with the reason (EASE above its size bound)."""
+    grids, skipped = [], {}
+    for family in TUNED_FAMILIES:
+        grid = family.grid()
+        if family is EASE:
+            fits, message = grid[0].applicable(split)
+            if not fits:
+                skipped[family.family] = message
+                continue
+        grids.append(grid)
+    return grids, skipped
+
+
+def _tune(grid: list, validation: Split | None, headline: int, advance) -> tuple[object, str, dict]:
+    """The grid point with the best validation nDCG (ties: the earlier) renamed to its family, its own
+    name, and the validation score of every point; without a validation split, the family's defaults."""
+    family = grid[0].family
+    if validation is None:
+        return replace(type(grid[0])(), name=family), "defaults", {}
+    scores = {}
+    for candidate in grid:
+        scores[candidate.name] = mean_metric(candidate.recommend(validation, headline), validation, headline)
+        advance(f"validation: {candidate.name}")
+    best = max(grid, key=lambda candidate: (_finite(scores[candidate.name]), -grid.index(candidate)))
+    return replace(best, name=family), best.name, scores
+
+
 @dataclass(frozen=True, eq=False)
 class MethodScores:
     """One method on the test split: metric means, their 95% intervals, and the per-query values."""
@@ -208,7 +241,9 @@ def run_evaluation(
     samples = check_count("samples", samples)
     headline = 10 if 10 in ks else ks[-1]
     methods = baselines(data, split, seed=seed)
+    grids, skipped = tuned_grids(split)
     total = (grid.solves if grid is not None else 0) + 2 * len(methods) + 2
+    total += sum(len(points) + 1 for points in grids)
     done = [0]
 
     def advance(description: str, *_counts) -> None:
@@ -230,6 +265,13 @@ def run_evaluation(
                 method.recommend(validation, headline), validation, headline
             )
             advance(f"validation: {method.name}")
+    tuned = {}
+    for points in grids:
+        chosen, best_point, scores = _tune(points, validation, headline, advance)
+        tuned[chosen.name] = {"chosen": best_point, "validation": scores}
+        if scores:
+            validation_scores[chosen.name] = scores[best_point]
+        methods.append(chosen)
     choice = None
     if "gap" in split.settings:  # navigation moves follow the split's own session rule
         start = start.with_values(session_gap_seconds=float(split.settings["gap"]))
@@ -297,6 +339,8 @@ def run_evaluation(
         "start": start.to_dict(),
         "rankrec": configuration.to_dict(),
         "ranker": dict(rankrec.trained),
+        "tuned_baselines": tuned,
+        "skipped_baselines": skipped,
         "chosen_by": None if grid is None else f"mean ndcg@{headline} on the validation split",
         "data": {"store": data.store, "fingerprint": data.fingerprint, **data.counts},
     }

@@ -30,6 +30,9 @@ BASELINES = {
     "co-visitation",
     "team-most-read",
     "text similarity",
+    "item-kNN",
+    "RP3beta",
+    "EASE",
 }
 
 
@@ -116,6 +119,7 @@ def test_every_method_and_rankrec_see_the_same_splits(demo, monkeypatch):
         run_module.CoVisitation,
         run_module.TeamMostRead,
         run_module.TextSimilarity,
+        *run_module.TUNED_FAMILIES,
         PersonalisedPageRank,
     ]
     for cls in classes:
@@ -140,11 +144,17 @@ def test_every_method_and_rankrec_see_the_same_splits(demo, monkeypatch):
         grid=Grid(damping=(0.85,), lift=(0.5,), half_life_days=(30.0,), navigation_weight=(0.3,)),
         samples=50,
     )
-    assert set(seen) == BASELINES | {"rankrec"}
+    families = {cls.family for cls in run_module.TUNED_FAMILIES}
+    points = {name for name in seen if name not in BASELINES | {"rankrec"}}  # tuned baselines' grid points
+    assert set(seen) - points == BASELINES | {"rankrec"}
+    assert points and all(any(name.startswith(family + " ") for family in families) for name in points)
     validation = sweep_splits[0]
     assert all(given is validation for given in sweep_splits)
     for name, splits in seen.items():
-        expected = [split] if name == "rankrec" else [validation, split]
+        # a tuned family is tried on validation at every grid point, and the chosen one alone on the test
+        expected = [split] if name in families | {"rankrec"} else [validation]
+        if name not in families | points | {"rankrec"}:
+            expected = [validation, split]
         assert len(splits) == len(expected) and all(a is b for a, b in zip(splits, expected, strict=True))
     assert_no_leakage(split)
     assert_no_leakage(validation)
