@@ -50,7 +50,7 @@ def test_session_successors_follow_their_definition(seed, gap):
             for later in first[position + 1 :]:
                 expected[page, later] += 1
     expected = np.divide(expected, readers[:, None], out=np.zeros_like(expected), where=readers[:, None] > 0)
-    found = session_successors(views, size, gap=gap, top=size)
+    found = session_successors(views, size, gap=gap, top=size, minimum=1)
     dense = np.zeros((size, size)) if found is None else found.toarray()
     assert np.allclose(dense, expected, atol=1e-6)
 
@@ -81,7 +81,7 @@ def test_reading_neighbours_join_the_candidates_and_their_features():
     forward = sp.csr_array(np.eye(size, k=1))
     views = ViewLog(np.zeros(6, dtype=np.int64), np.array([0, 5, 6, 0, 5, 3]), np.arange(6.0) * 10)
     covisited = covisited_pages(views, size, gap=100)
-    successors = session_successors(views, size, gap=100)
+    successors = session_successors(views, size, gap=100, minimum=1)
     signals = Signals(
         forward=forward,
         backward=sp.csr_array(forward.T),
@@ -101,3 +101,14 @@ def test_reading_neighbours_join_the_candidates_and_their_features():
     # one session read 0 twice: 5, 6 and 3 came after its first view; page 1 never did
     assert shown[5] == shown[6] == shown[3] == 1.0 and shown[1] == 0.0
     assert features[pool.tolist().index(1), column["covisit"]] == 0.0
+
+
+def test_successor_pairs_read_by_fewer_than_the_minimum_of_sessions_are_dropped():
+    # k-anonymity (Sweeney 2002): a pair seen in fewer than `minimum` sessions tells of single readers
+    sessions = [[0, 1]] * 5 + [[0, 2]] * 4  # 0 -> 1 in five sessions, 0 -> 2 in four
+    users = np.repeat(np.arange(len(sessions)), 2)
+    pages = np.array([page for pair in sessions for page in pair])
+    views = ViewLog(users, pages, np.tile([0.0, 1.0], len(sessions)))
+    found = session_successors(views, 3, gap=10, minimum=5).toarray()
+    assert found[0, 1] == np.float32(5 / 9) and found[0, 2] == 0.0
+    assert session_successors(views, 3, gap=10, minimum=6) is None

@@ -26,8 +26,8 @@ from rankrec.ranker.features import FEATURES, Signals, candidate_pool, pair_feat
 from rankrec.ranker.model import Ranker
 from rankrec.ranker.training import examples, fit_lightgbm
 from rankrec.recommend import Reader, related
-from rankrec.recommend.candidates import ranked_candidates
-from rankrec.recommend.explain import SIMILAR_TEXT
+from rankrec.recommend.candidates import ranked_block, ranked_candidates
+from rankrec.recommend.explain import READ_ON, SIMILAR_TEXT
 
 
 def _adjacency(size: int, p: float, seed: int) -> sp.csr_array:
@@ -163,6 +163,23 @@ def test_the_reason_names_the_feature_group_with_the_largest_attribution():
         transition, signals, link_ranker, signals.space, 0, indices, values, damping=0.85, k=5
     )
     assert not np.any(found["kind"] == SIMILAR_TEXT)
+    # sessions went on from page 0 to pages 1..29, and the reading features carry the score
+    successors = sp.csr_array(
+        (np.linspace(0.9, 0.1, 29, dtype=np.float32), (np.zeros(29, dtype=np.int64), np.arange(1, 30))),
+        shape=(30, 30),
+    )
+    reading_signals = Signals(**{**signals.__dict__, "successors": successors})
+    coef = np.zeros(len(FEATURES))
+    coef[FEATURES.index("goes_on")] = 5.0
+    coef[FEATURES.index("text_similarity")] = 0.5
+    reading_ranker = Ranker(
+        "linear", FEATURES, {}, mean=np.zeros(len(FEATURES)), scale=np.ones(len(FEATURES)), coef=coef
+    )
+    found = ranked_candidates(
+        transition, reading_signals, reading_ranker, signals.space, 0, indices, values, damping=0.85, k=5
+    )
+    assert np.all(found["kind"] == READ_ON)
+    assert found["pages"].tolist() == [1, 2, 3, 4, 5]  # the strongest successors first
 
 
 def test_a_restricted_page_never_enters_a_list_through_any_candidate_source(tmp_path):
@@ -191,3 +208,23 @@ def test_a_restricted_page_never_enters_a_list_through_any_candidate_source(tmp_
         assert listed and not listed & hidden, page
         seen_by_member |= {item.page for item in related(index, f"p{page}", reader=member, k=20).items}
     assert seen_by_member & hidden  # the restricted pages are real candidates: only access keeps them out
+
+
+def test_a_block_of_seeds_is_ranked_and_explained_as_each_seed_alone():
+    # batching the model's calls over a block must not change any list, score or reason
+    adjacency, _ = _adjacency(60, 0.08, seed=21)
+    split = held_out_links_split(adjacency, share=0.3, seed=2)
+    signals, transition = _signals(split.links)
+    seeds = split.queries.pages[:, 0]
+    vectors = [_vector(transition, int(page)) for page in seeds]
+    features, labels, groups, _, _ = examples(signals, seeds, vectors, split.relevant)
+    ranker = Ranker("lightgbm", FEATURES, {}, booster=fit_lightgbm(features, labels, groups, seed=1))
+    block = ranked_block(
+        transition, signals, ranker, signals.space, seeds.tolist(), vectors, damping=0.85, k=7
+    )
+    for seed, (indices, values), found in zip(seeds.tolist(), vectors, block, strict=True):
+        alone = ranked_candidates(
+            transition, signals, ranker, signals.space, seed, indices, values, damping=0.85, k=7
+        )
+        assert alone.keys() == found.keys()
+        assert all(np.array_equal(alone[name], found[name]) for name in alone)

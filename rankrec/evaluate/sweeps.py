@@ -15,7 +15,10 @@ mean nDCG@k over its queries:
 3. for related lists (session-like tasks) with page text, and whenever the configuration learns a ranker:
    the lists *without* the ranker (``ranker="none"``: the PageRank and text mix), text weight × lift
    (text weight at its start without page text; lift swept here when the ranker kept it out of the first
-   sweep), so validation chooses between the learnt ranker and the plain mix.
+   sweep), so validation chooses between the learnt ranker and the plain mix;
+4. on the sessions task (readers' own sessions as evidence), the chosen configuration again without the
+   rule that keeps site hubs out of a related list's first places (``hub_free_top`` 0): on a wiki read
+   through its hubs, they belong there. Without reading history the rule stays as configured.
 
 Every configuration tried is scored on the lists an index built with it serves (:mod:`.method`).
 
@@ -71,6 +74,7 @@ class Grid:
             len(self.damping) * len(self.lift)
             + len(self.half_life_days) * len(self.navigation_weight)
             + len(self.text_weight) * len(self.lift)
+            + 1
         )  # an upper bound
 
 
@@ -273,4 +277,21 @@ def choose_configuration(
         value, chosen = tried[max(finite, key=lambda pair: (pair[0], -pair[1]))[1]]
     elif getattr(evidence, "has_text", False):
         notes.append("text weight is not swept: personal lists do not mix in text (related lists do)")
+    if split.name == "sessions" and len(validation.train) and chosen.hub_free_top:
+        # readers' own sessions say whether site hubs belong at the top of a related list (on a wiki
+        # browsed through its hubs they do); without reading history the rule stays as configured
+        plain = chosen.with_values(hub_free_top=0)
+        fourth = np.array([[value], [score(plain)]])
+        sweeps += (
+            Sweep(
+                "hub_free_top",
+                "lift",
+                (float(chosen.hub_free_top), 0.0),
+                (chosen.lift,),
+                fourth,
+                MappingProxyType({"damping": chosen.damping, "ranker": chosen.ranker}),
+            ),
+        )
+        if fourth[1, 0] > value:
+            value, chosen = float(fourth[1, 0]), plain
     return Choice(chosen, metric, float(value), sweeps, validation, tuple(notes))

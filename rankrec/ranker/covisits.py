@@ -22,6 +22,9 @@ import scipy.sparse as sp
 from ..profiles import ViewLog
 
 NEIGHBOURS_KEPT = 50  # co-visited or successor pages kept per page (a candidate pool takes them all)
+# fewest sessions that read a page after another for the pair to count: fewer would let a list (and its
+# reason "readers go on to it from here") tell what one or two readers did (common practice: k-anonymity)
+MIN_SESSIONS = 5
 MAX_SESSION_PAGES = 100
 _PAIRS_PER_CHUNK = 1 << 22  # ordered pairs counted at once (bounded memory on long histories)
 
@@ -58,14 +61,14 @@ def covisited_pages(
 
 
 def session_successors(
-    views: ViewLog, size: int, *, gap: float, top: int = NEIGHBOURS_KEPT
+    views: ViewLog, size: int, *, gap: float, top: int = NEIGHBOURS_KEPT, minimum: int = MIN_SESSIONS
 ) -> sp.csr_array | None:
     """Pages × pages, float32: entry (a, b) is the share of the sessions that read ``a`` in which ``b``
-    was first read after ``a``'s first view; each row keeps its ``top`` largest. None when no session
-    reads two pages.
+    was first read after ``a``'s first view, kept when at least ``minimum`` sessions did so; each row
+    keeps its ``top`` largest. None when no pair is left.
 
     >>> views = ViewLog(np.array([0, 0, 0, 1, 1]), np.array([0, 1, 2, 0, 2]), np.array([0.0, 1, 2, 0, 1]))
-    >>> session_successors(views, 3, gap=10).toarray().round(2).tolist()
+    >>> session_successors(views, 3, gap=10, minimum=1).toarray().round(2).tolist()
     [[0.0, 0.5, 1.0], [0.0, 0.0, 1.0], [0.0, 0.0, 0.0]]
     """
     from ..evaluate.tasks import session_numbers
@@ -99,6 +102,7 @@ def session_successors(
     if counts.nnz == 0:
         return None
     counts.sum_duplicates()
+    counts.data[counts.data < minimum] = 0.0
     scale = np.divide(1.0, readers, out=np.zeros(size), where=readers > 0)
     share = sp.csr_array(sp.diags_array(scale) @ counts)
     share.setdiag(0.0)

@@ -51,15 +51,22 @@ TEXT_FEATURES = frozenset({"text_similarity", "text_rank_log"})
 LINK_FEATURES = frozenset({"out_link", "in_link"})
 
 
-def absent_values(text_top: int) -> tuple[dict[int, float], dict[int, float]]:
-    """Column -> value of a candidate without text evidence, and of one without a direct link (either
-    direction): what the occlusion attribution of :mod:`rankrec.ranker.model` sets."""
+def absent_values(text_top: int) -> tuple[dict[int, float], dict[int, float], dict[int, float]]:
+    """Column -> value of a candidate without text evidence, of one without a direct link (either
+    direction) and of one no session read with the seed: what the occlusion attribution of
+    :mod:`rankrec.ranker.model` sets."""
     text = {
         FEATURES.index("text_similarity"): 0.0,
         FEATURES.index("text_rank_log"): float(np.log1p(text_top)),
     }
     link = {FEATURES.index("out_link"): 0.0, FEATURES.index("in_link"): 0.0}
-    return text, link
+    reading = {
+        FEATURES.index("covisit"): 0.0,
+        FEATURES.index("covisit_rank_log"): float(np.log1p(NEIGHBOURS_KEPT)),
+        FEATURES.index("goes_on"): 0.0,
+        FEATURES.index("goes_on_rank_log"): float(np.log1p(NEIGHBOURS_KEPT)),
+    }
+    return text, link, reading
 
 
 _TINY = 1e-12

@@ -21,7 +21,7 @@ from ..pagerank import Transition, personalised_pagerank, push
 from ..ranker.features import FEATURES, POOL, absent_values, candidate_pool, pair_features
 from ..ranker.model import load_ranker
 from ..text import load_text_neighbours
-from .explain import SIMILAR_TEXT, VIA_PAGE, contributions
+from .explain import READ_ON, SIMILAR_TEXT, VIA_PAGE, contributions
 from .select import lifted, top_k
 
 DEFAULT_K_RELATED = 50  # enough candidates that access and "already linked" filters still leave 10-20
@@ -133,39 +133,68 @@ def ranked_candidates(transition, signals, ranker, space, seed, indices, values,
     """The ``k`` best of the seed's candidate pool (:func:`rankrec.ranker.features.candidate_pool`) by the
     learnt ranker, explained by the feature group with the largest attribution (occlusion:
     :mod:`rankrec.ranker.model`): text similarity names the text, the seed's own link to the item names
-    the seed ("linked from"), else the walk's strongest in-link."""
-    pool = candidate_pool(signals, seed, indices, values, POOL)
-    features = pair_features(signals, seed, pool, indices, values)
-    scores = ranker.score(features)
-    order = top_k(scores, k)
-    pages = pool[order]
-    indices, values = np.asarray(indices), np.asarray(values)
+    the seed ("linked from"), the reading features the sessions that went on from the seed to it, else
+    the walk's strongest in-link. One seed of :func:`ranked_block`."""
+    vectors = [(indices, values)]
+    return ranked_block(transition, signals, ranker, space, [seed], vectors, damping=damping, k=k)[0]
 
+
+def _lookup(indices: np.ndarray, values: np.ndarray, size: int):
     def lookup(wanted):
-        if indices.size == values.size == signals.size:
+        if indices.size == values.size == size:
             return values[wanted]
         position = np.minimum(np.searchsorted(indices, wanted), max(indices.size - 1, 0))
         found = values[position] if indices.size else np.zeros(wanted.size)
         return np.where(indices[position] == wanted, found, 0.0) if indices.size else found
 
-    explained = contributions(transition.backward, lookup, pages, np.asarray(space), damping=damping)
-    chosen = features[order]
-    text_absent, link_absent = absent_values(signals.text_top)
-    text_part = ranker.contribution(chosen, text_absent)
-    link_part = ranker.contribution(chosen, link_absent)
+    return lookup
+
+
+def ranked_block(transition, signals, ranker, space, seeds, vectors, *, damping, k) -> list[dict]:
+    """:func:`ranked_candidates` of several seeds (``vectors``: each seed's sorted indices and values),
+    the ranker scoring every pool of the block in one call and each attribution in one more (the model's
+    per-call cost, not its per-row cost, dominates a single pool)."""
+    pools, blocks = [], []
+    for seed, (indices, values) in zip(seeds, vectors, strict=True):
+        pools.append(candidate_pool(signals, int(seed), indices, values, POOL))
+        blocks.append(pair_features(signals, int(seed), pools[-1], indices, values))
+    features = np.vstack(blocks) if blocks else np.zeros((0, len(FEATURES)), dtype=np.float32)
+    scores = ranker.score(features)
+    bounds = np.cumsum([0] + [pool.size for pool in pools])
+    orders = [top_k(scores[bounds[row] : bounds[row + 1]], k) for row in range(len(pools))]
+    chosen_rows = np.concatenate([bounds[row] + order for row, order in enumerate(orders)]).astype(np.int64)
+    chosen = features[chosen_rows]
+    text_part, link_part, reading_part = (
+        ranker.contribution(chosen, absent) for absent in absent_values(signals.text_top)
+    )
     linked = chosen[:, FEATURES.index("out_link")] > 0
-    by_link = linked & (link_part > text_part) & (link_part > 0)
-    explained.via[by_link] = seed
-    explained.kind[by_link] = VIA_PAGE
-    explained.kind[(text_part > link_part) & (text_part > 0)] = SIMILAR_TEXT
-    return {
-        "pages": pages,
-        "scores": lookup(pages),
-        "combined": scores[order],
-        "via": explained.via,
-        "space": explained.space,
-        "kind": explained.kind,
-    }
+    by_link = linked & (link_part > np.maximum(text_part, reading_part)) & (link_part > 0)
+    textual = (text_part > np.maximum(link_part, reading_part)) & (text_part > 0)
+    # sessions went on from the seed to the page (pairs of fewer than MIN_SESSIONS sessions are not kept)
+    read_on = chosen[:, FEATURES.index("goes_on")] > 0
+    read_on &= (reading_part > np.maximum(link_part, text_part)) & (reading_part > 0)
+    found, first = [], 0
+    for row, (seed, (indices, values)) in enumerate(zip(seeds, vectors, strict=True)):
+        part = slice(first, first + orders[row].size)
+        first = part.stop
+        pages = pools[row][orders[row]]
+        lookup = _lookup(np.asarray(indices), np.asarray(values), signals.size)
+        explained = contributions(transition.backward, lookup, pages, np.asarray(space), damping=damping)
+        explained.via[by_link[part]] = seed
+        explained.kind[by_link[part]] = VIA_PAGE
+        explained.kind[textual[part]] = SIMILAR_TEXT
+        explained.kind[read_on[part]] = READ_ON
+        found.append(
+            {
+                "pages": pages,
+                "scores": lookup(pages),
+                "combined": scores[chosen_rows[part]],
+                "via": explained.via,
+                "space": explained.space,
+                "kind": explained.kind,
+            }
+        )
+    return found
 
 
 def seed_vectors(
@@ -195,14 +224,15 @@ def _block(arrays: tuple, seeds, method, configuration, k, workers=1) -> dict:
     transition, global_vector, archived, space, text, ranker, signals = arrays
     out = _empty(seeds.size, k)
     columns = seed_vectors(transition, seeds, method, configuration, workers)
-    for row, (seed, (indices, values)) in enumerate(zip(seeds.tolist(), columns, strict=True)):
-        if ranker is not None:
-            found = ranked_candidates(
-                transition, signals, ranker, space, seed, indices, values, damping=configuration.damping, k=k
-            )
+    if ranker is not None:
+        ranked = ranked_block(
+            transition, signals, ranker, space, seeds.tolist(), columns, damping=configuration.damping, k=k
+        )
+        for row, found in enumerate(ranked):
             for name, array in found.items():
                 out[name][row, : array.size] = array
-            continue
+        return out
+    for row, (seed, (indices, values)) in enumerate(zip(seeds.tolist(), columns, strict=True)):
         found = candidates(
             transition,
             global_vector,

@@ -17,9 +17,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-VIA_PAGE, VIA_SPACE, FROM_RESTART, NO_LINK, SIMILAR_TEXT = 0, 1, 2, 3, 4
-"""Kinds of explanation: a page, a space, the restart itself (read before), none (score zero), and text
-similarity (the larger part of a related score that mixes in text: :mod:`rankrec.recommend.candidates`)."""
+VIA_PAGE, VIA_SPACE, FROM_RESTART, NO_LINK, SIMILAR_TEXT, READ_ON = 0, 1, 2, 3, 4, 5
+"""Kinds of explanation: a page, a space, the restart itself (read before), none (score zero), text
+similarity (the larger part of a related score that mixes in text: :mod:`rankrec.recommend.candidates`),
+and readers going on to the page from the seed (the ranker's reading features weigh most)."""
 
 
 @dataclass(frozen=True)

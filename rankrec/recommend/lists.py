@@ -24,7 +24,7 @@ from ..index import Index
 from ..pagerank import push
 from .audience import Reader, Team
 from .candidates import mix_text, page_candidates, text_row
-from .explain import FROM_RESTART, NO_LINK, SIMILAR_TEXT, VIA_PAGE, contributions, restart_scale
+from .explain import FROM_RESTART, NO_LINK, READ_ON, SIMILAR_TEXT, VIA_PAGE, contributions, restart_scale
 from .select import cap_per_space, choose_pages, hubs_later, lifted
 
 READ_BY_BAND = 5  # "read by N or more of your team": N a multiple of 5, never the exact count
@@ -148,6 +148,8 @@ def _reason(index: Index, page: int, kind: int, via: int, space: int, audience: 
             return said
     if kind == SIMILAR_TEXT:
         return "similar text" if audience.seed is None else f"similar text to {index.titles[audience.seed]}"
+    if kind == READ_ON and audience.seed is not None:
+        return "readers go on to it from here"
     if kind == NO_LINK:
         return "among the most linked-to pages of the wiki"
     if kind == FROM_RESTART and audience.personal:

@@ -87,6 +87,25 @@ def test_session_task_does_not_sweep_half_life():
     assert choice.sweeps[1].rows == (30.0,) and choice.notes
 
 
+def test_the_session_task_tries_related_lists_with_hubs_at_the_top_and_keeps_the_better():
+    views = _random_views(8, views=900, span=20_000.0)
+    split = _splits("sessions", views)
+    evidence = Evidence.from_links(_random_graph(views[3], 8))
+    start = Configuration(ranker="none", hub_free_top=3)
+    choice = choose_configuration(split, evidence, grid=SMALL, start=start, k=5)
+    hubs = [sweep for sweep in choice.sweeps if sweep.row_name == "hub_free_top"]
+    assert len(hubs) == 1 and hubs[0].rows == (3.0, 0.0)
+    kept, without = hubs[0].scores[:, 0]
+    assert choice.configuration.hub_free_top == (0 if without > kept else 3)
+    # the rule-free cell is what that configuration earns on validation, computed afresh
+    plain = choice.configuration.with_values(hub_free_top=0)
+    lists = rankrec_lists(choice.validation, evidence, 5, plain)
+    assert mean_metric(lists, choice.validation, 5) == pytest.approx(without)
+    # a temporal task (personal lists) has no such sweep
+    temporal = choose_configuration(_splits("temporal", views), evidence, grid=SMALL, start=start, k=5)
+    assert all(sweep.row_name != "hub_free_top" for sweep in temporal.sweeps)
+
+
 def test_a_training_part_without_validation_queries_is_refused():
     split = temporal_split([0, 0], [0, 1], [0.0, 10.0], 3, cutoff=5.0)  # one training view in all
     with pytest.raises(NothingToEvaluate, match="validation"):
