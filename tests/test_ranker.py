@@ -137,6 +137,13 @@ def test_training_is_deterministic_under_a_seed_and_occlusion_matches_the_linear
     assert np.allclose(linear.contribution(features, absent), expected)
 
 
+def _linear(coef: np.ndarray) -> Ranker:
+    """A linear ranker scoring ``features @ coef`` (no centring, unit scale)."""
+    return Ranker(
+        "linear", FEATURES, {}, mean=np.zeros(len(FEATURES)), scale=np.ones(len(FEATURES)), coef=coef
+    )
+
+
 def test_the_reason_names_the_feature_group_with_the_largest_attribution():
     adjacency, _ = _adjacency(30, 0.1, seed=8)
     similar = sp.csr_array(
@@ -147,18 +154,14 @@ def test_the_reason_names_the_feature_group_with_the_largest_attribution():
     coef = np.zeros(len(FEATURES))
     coef[FEATURES.index("text_similarity")] = 5.0  # text carries nearly all of every score
     coef[FEATURES.index("ppr_log")] = 0.01
-    text_ranker = Ranker(
-        "linear", FEATURES, {}, mean=np.zeros(len(FEATURES)), scale=np.ones(len(FEATURES)), coef=coef
-    )
+    text_ranker = _linear(coef)
     found = ranked_candidates(
         transition, signals, text_ranker, signals.space, 0, indices, values, damping=0.85, k=5
     )
     assert np.all(found["kind"] == SIMILAR_TEXT)
     coef = np.zeros(len(FEATURES))
     coef[FEATURES.index("ppr_log")] = 1.0  # now only the link walk counts: no item is "similar text"
-    link_ranker = Ranker(
-        "linear", FEATURES, {}, mean=np.zeros(len(FEATURES)), scale=np.ones(len(FEATURES)), coef=coef
-    )
+    link_ranker = _linear(coef)
     found = ranked_candidates(
         transition, signals, link_ranker, signals.space, 0, indices, values, damping=0.85, k=5
     )
@@ -172,9 +175,7 @@ def test_the_reason_names_the_feature_group_with_the_largest_attribution():
     coef = np.zeros(len(FEATURES))
     coef[FEATURES.index("goes_on")] = 5.0
     coef[FEATURES.index("text_similarity")] = 0.5
-    reading_ranker = Ranker(
-        "linear", FEATURES, {}, mean=np.zeros(len(FEATURES)), scale=np.ones(len(FEATURES)), coef=coef
-    )
+    reading_ranker = _linear(coef)
     found = ranked_candidates(
         transition, reading_signals, reading_ranker, signals.space, 0, indices, values, damping=0.85, k=5
     )

@@ -103,12 +103,17 @@ def _from_scores(scores: sp.csr_array, excluded: sp.csr_array, k: int) -> np.nda
     rows = np.repeat(np.arange(scores.shape[0], dtype=np.int64), np.diff(scores.indptr))
     columns, values = scores.indices.astype(np.int64), scores.data
     keep = (values > 0) & ~_isin_sorted(rows * scores.shape[1] + columns, _keys(excluded))
-    rows, columns, values = rows[keep], columns[keep], values[keep]
+    return ranked_entries(rows[keep], columns[keep], values[keep], scores.shape[0], k)
+
+
+def ranked_entries(rows, columns, values, queries: int, k: int) -> np.ndarray:
+    """Lists (queries, k) of the entries ``(rows, columns, values)``: each row's ``k`` largest values'
+    columns, best first, ties to the lower column, ``-1`` padded."""
     order = np.lexsort((columns, -values, rows))
     rows, columns = rows[order], columns[order]
     rank = np.arange(rows.size) - np.searchsorted(rows, rows)
     chosen = rank < k
-    lists = np.full((scores.shape[0], k), -1, dtype=np.int64)
+    lists = np.full((queries, k), -1, dtype=np.int64)
     lists[rows[chosen], rank[chosen]] = columns[chosen]
     return lists
 

@@ -33,7 +33,7 @@ import scipy.linalg
 import scipy.sparse as sp
 
 from .._validation import check_count, check_positive, check_real
-from .baselines import _CHUNK_ELEMENTS, _ranked_product, _seeds, _strongest, split_links
+from .baselines import _CHUNK_ELEMENTS, _ranked_product, _seeds, _strongest, ranked_entries, split_links
 from .splits import SESSION_GAP_SECONDS, Split, excluded_pages, session_numbers
 
 # ------------------------------------------------------------------------------ what the methods learn
@@ -225,13 +225,7 @@ def _dense_top(scores: np.ndarray, allowed: np.ndarray, k: int) -> np.ndarray:
         threshold = np.partition(values, width - k, axis=1)[:, width - k]
         candidate = allowed & (values >= threshold[:, None])
     rows, columns = np.nonzero(candidate)
-    order = np.lexsort((columns, -values[rows, columns], rows))
-    rows, columns = rows[order], columns[order]
-    rank = np.arange(rows.size) - np.searchsorted(rows, rows)
-    chosen = rank < k
-    lists = np.full((scores.shape[0], k), -1, dtype=np.int64)
-    lists[rows[chosen], rank[chosen]] = columns[chosen]
-    return lists
+    return ranked_entries(rows, columns, values[rows, columns], scores.shape[0], k)
 
 
 _TIE_DIGITS = 9  # decimal digits, relative to a query's largest score, that EASE scores are ranked by
@@ -274,6 +268,13 @@ def _label(value: float) -> str:
 # -------------------------------------------------------------------------------------- the methods
 
 
+def _summed_from_seeds(split: Split, weights: sp.csr_array, history: int, k: int) -> np.ndarray:
+    """Each query's lists of summed item-item ``weights`` from its starting pages (positive scores)."""
+    k = check_count("k", k)
+    seeds = _seeds(split, check_count("history", history), last_only=False)
+    return _ranked_product(seeds, weights, excluded_pages(split), k)
+
+
 @dataclass(frozen=True)
 class ItemKNN:
     """Sum of :func:`item_similarity` cosines to the query's pages; pages never co-consumed are not listed.
@@ -299,10 +300,8 @@ class ItemKNN:
         ]
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
-        k = check_count("k", k)
         similarity = item_similarity(interactions(split), shrink=self.shrink, neighbours=self.neighbours)
-        seeds = _seeds(split, check_count("history", self.history), last_only=False)
-        return _ranked_product(seeds, similarity, excluded_pages(split), k)
+        return _summed_from_seeds(split, similarity, self.history, k)
 
 
 @dataclass(frozen=True)
@@ -331,12 +330,10 @@ class RP3beta:
         ]
 
     def recommend(self, split: Split, k: int) -> np.ndarray:
-        k = check_count("k", k)
         weights = rp3beta_similarity(
             interactions(split), alpha=self.alpha, beta=self.beta, neighbours=self.neighbours
         )
-        seeds = _seeds(split, check_count("history", self.history), last_only=False)
-        return _ranked_product(seeds, weights, excluded_pages(split), k)
+        return _summed_from_seeds(split, weights, self.history, k)
 
 
 @dataclass(frozen=True)

@@ -37,6 +37,7 @@ from rankrec.evaluate.collaborative import (
 )
 from rankrec.evaluate.links import held_out_links_split
 from rankrec.evaluate.splits import Views, excluded_pages, session_split, temporal_split
+from tests.evaluate.test_baselines import _random_views as random_views
 
 GAP = 1800.0
 
@@ -44,13 +45,7 @@ GAP = 1800.0
 
 
 def _random_views(seed: int, views: int = 500, users: int = 25, pages: int = 20, span: float = 20_000.0):
-    rng = np.random.default_rng(seed)
-    return (
-        rng.integers(0, users, views),
-        np.minimum(rng.zipf(1.6, views) - 1, pages - 1),
-        np.round(rng.uniform(0, span, views)),
-        pages,
-    )
+    return random_views(seed, views=views, users=users, pages=pages, span=span)
 
 
 def _reference_sessions(views: Views, gap: float, max_pages: int | None) -> np.ndarray:
