@@ -110,6 +110,11 @@ class StoreReads:
         ).fetchall()
         return [(title, space, bool(archived)) for title, space, archived in rows]
 
+    def page_urls(self) -> dict[str, str]:
+        """Page id -> URL of the present pages that have one (from ``--base-url`` or a page export)."""
+        rows = self.connection.execute("SELECT page, url FROM pages WHERE present = 1 AND url IS NOT NULL")
+        return dict(rows.fetchall())
+
     def page_group_pairs(self) -> list[tuple[int, str]]:
         """``(page row id, access group)`` for every access group of every present page (any order)."""
         return self.connection.execute(

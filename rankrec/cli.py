@@ -26,6 +26,7 @@ _COMMAND_MODULES = (
     "rankrec.import_command",  # import, stats
     "rankrec.rank_command",  # rank
     "rankrec.lists_command",  # build, related, recommend, landing
+    "rankrec.export_command",  # export
     "rankrec.synth_command",  # synth
     "rankrec.demo",  # demo
     "rankrec.evaluate.command",  # evaluate

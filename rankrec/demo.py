@@ -67,6 +67,7 @@ def run_demo(workdir: Path, out: TextIO) -> None:
         print_mapping(wiki_stats(store, worst=5), "table", out)
         settings = show_evaluation(store, workdir / "report", out)
         show_lists(store, workdir / "index", settings, out)
+        show_blocks(store, workdir, out)
 
 
 def _demo_choices(store) -> tuple[list[str], str, str]:
@@ -110,6 +111,28 @@ def show_lists(store, folder: Path, settings: Path, out: TextIO) -> None:
     out.write(f"\nLanding ordering for team {team} (only pages every member may see):\n")
     print_rows(landing(index, team_from_store(store, index, team), k=8).rows(), "table", out)
     out.write(f"\nThe index is in {folder} (try `rankrec related PAGE --index {folder}`).\n")
+
+
+def show_blocks(store, workdir: Path, out: TextIO) -> None:
+    """Write every page's related block into a copy of the demo wiki's pages (``workdir/pages``) and
+    print one page as it now ends."""
+    from .blocks import START
+    from .export import stored_page_hashes, write_into_wiki
+    from .index import load_index
+
+    copy = workdir / "pages"
+    if copy.exists():
+        shutil.rmtree(copy)
+    shutil.copytree(demo_sources(workdir) / "pages", copy)
+    index = load_index(workdir / "index")
+    done = write_into_wiki(index, copy, stored_hashes=stored_page_hashes(store))
+    out.write(
+        f"\nWrote a related-pages block into {done.written} of the {done.files} pages of a copy of the "
+        f"demo wiki ({copy}; `rankrec export --into` does this to a wiki folder). One of them ends:\n\n"
+    )
+    page = next(path for path in sorted(copy.rglob("*.md")) if START in path.read_text(encoding="utf-8"))
+    text = page.read_text(encoding="utf-8")
+    out.write(f"{page.relative_to(copy)}:\n{text[text.index(START) :]}")
 
 
 def _shown(configuration) -> str:

@@ -71,7 +71,7 @@ def test_commands_are_listed_in_their_usual_order(capsys):
         main(["--help"])
     text = capsys.readouterr().out
     commands = [line.split()[0] for line in text.splitlines() if line.startswith("    ") and line[4] != " "]
-    expected = ["import", "stats", "rank", "build", "related", "recommend", "landing"]
+    expected = ["import", "stats", "rank", "build", "related", "recommend", "landing", "export"]
     assert commands == [*expected, "synth", "demo", "evaluate", "serve", "token"]
 
 

@@ -34,6 +34,7 @@ from pathlib import PurePosixPath
 
 import yaml
 
+from ..blocks import strip_block
 from ..errors import InputError
 from ._front_matter import Meta, read_front_matter, split_front_matter
 from ._links import (
@@ -53,7 +54,7 @@ from .records import HEADINGS_BYTES, TEXT_BYTES, LinkRecord, Origin, PageRecord,
 
 __all__ = ["read_markdown_folder"]
 
-_SUFFIXES = (".md", ".markdown")
+MARKDOWN_SUFFIXES = _SUFFIXES = (".md", ".markdown")
 _PLACE_DEPTH = 12  # blocks of a place, the nearest to the link
 _CODE_BLOCKS = ("fence", "code_block")
 _FRONT_MATTER_CHARS = 65_536  # of a page's front matter (common practice: real ones are a few lines)
@@ -159,8 +160,15 @@ def _place(blocks: list[str], heading: str) -> str:
     return chain + "@" + heading if heading else chain
 
 
+def parse_page(relative: str, file: str, text: str, others: set[str]) -> PageRecord | InputError:
+    """The page record the reader makes of one file's ``text`` (``\n`` line endings), or why not."""
+    parsed = _parse_page(relative, file, text, others)
+    return parsed if isinstance(parsed, InputError) else parsed.record
+
+
 def _parse_page(relative: str, file: str, text: str, others: set[str]) -> _Parsed | InputError:
     page = page_id_for_path(relative)
+    text = strip_block(text)  # rankrec's own related-pages block is not the page's content
     try:
         yaml_text, skipped = split_front_matter(text)
     except ValueError as error:

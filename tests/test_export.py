@@ -1,0 +1,182 @@
+"""rankrec export: every page's served list into a file, and related blocks written into Markdown pages."""
+
+from __future__ import annotations
+
+import csv
+import json
+import os
+import posixpath
+import re
+import shutil
+from pathlib import Path
+from urllib.parse import quote, unquote
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from rankrec.blocks import END, START, render_block, strip_block, with_block
+from rankrec.cli import main
+from rankrec.index import load_index
+from rankrec.recommend import related
+from rankrec.store import Store
+from rankrec.synth import synthesize
+
+_LINK = re.compile(r"^- \[.*\]\((?P<target>[^)]+)\)$")
+
+
+@pytest.fixture(scope="module")
+def wiki(tmp_path_factory):
+    """An invented Markdown wiki (rankrec synth), imported and built; its pages' original bytes."""
+    folder = tmp_path_factory.mktemp("export")
+    synthesize(folder / "synth", pages=80, seed=4, layout="markdown")
+    pages = next(
+        path for path in (folder / "synth").rglob("*") if path.is_dir() and any(path.glob("**/*.md"))
+    )
+    assert main(["import", "--wiki", str(folder / "wiki.db"), str(pages)]) == 0
+    assert main(["build", "--wiki", str(folder / "wiki.db"), "--index", str(folder / "index")]) == 0
+    return folder, pages
+
+
+def _copy(pages: Path, target: Path) -> Path:
+    shutil.copytree(pages, target)
+    return target
+
+
+def _bytes_of(folder: Path) -> dict[str, bytes]:
+    return {
+        str(path.relative_to(folder)): path.read_bytes()
+        for path in sorted(folder.rglob("*"))
+        if path.is_file()
+    }
+
+
+def test_every_list_exported_is_the_served_list_in_each_format(wiki, tmp_path):
+    folder, _ = wiki
+    index = load_index(folder / "index")
+    for name in ("lists.json", "lists.jsonl", "lists.csv"):
+        assert (
+            main(["export", "--index", str(folder / "index"), "--out", str(tmp_path / name), "-k", "5"]) == 0
+        )
+    exported = json.loads((tmp_path / "lists.json").read_text())  # RFC 8259 JSON, read by the json module
+    expected_pages = {
+        index.pages[number]
+        for number in range(index.size)
+        if index.public[number] and not index.archived[number]
+    }
+    assert set(exported) == expected_pages
+    for page, items in exported.items():
+        served = related(index, page, k=5).items
+        assert [item["page"] for item in items] == [item.page for item in served]
+        assert [item["reason"] for item in items] == [item.reason for item in served]
+    lines = [json.loads(line) for line in (tmp_path / "lists.jsonl").read_text().splitlines()]
+    assert {line["page"]: line["items"] for line in lines} == exported
+    with open(tmp_path / "lists.csv", newline="", encoding="utf-8") as handle:  # RFC 4180, Python's csv
+        rows = list(csv.DictReader(handle))
+    assert len(rows) == sum(len(items) for items in exported.values())
+    first = rows[0]
+    assert exported[first["page"]][int(first["rank"]) - 1]["page"] == first["related_page"]
+
+
+def test_a_url_template_gives_every_item_its_url(wiki, tmp_path):
+    folder, _ = wiki
+    out = tmp_path / "lists.json"
+    template = "https://wiki.example.invalid/{page}.html"
+    assert (
+        main(["export", "--index", str(folder / "index"), "--out", str(out), "--url-template", template]) == 0
+    )
+    for items in json.loads(out.read_text()).values():
+        for item in items:  # the id percent-encoded as a URI path (RFC 3986 section 2.1, urllib.parse.quote)
+            assert item["url"] == template.replace("{page}", quote(item["page"], safe="/"))
+
+
+def test_blocks_written_into_the_wiki_resolve_and_a_second_run_changes_no_byte(wiki, tmp_path):
+    folder, pages = wiki
+    copy = _copy(pages, tmp_path / "pages")
+    before = _bytes_of(copy)
+    assert main(["export", "--index", str(folder / "index"), "--into", str(copy), "--dry-run"]) == 0
+    assert _bytes_of(copy) == before  # a dry run writes nothing
+    assert main(["export", "--index", str(folder / "index"), "--into", str(copy)]) == 0
+    written = _bytes_of(copy)
+    changed = [name for name in written if written[name] != before[name]]
+    assert len(changed) > len(written) // 2
+    for name in changed:
+        text = written[name].decode()
+        block = text[text.index(START) : text.index(END)]
+        targets = [match["target"] for line in block.splitlines() if (match := _LINK.match(line))]
+        assert targets
+        for target in targets:  # every link resolves to a page file of the wiki
+            resolved = posixpath.normpath(posixpath.join(posixpath.dirname(name), unquote(target)))
+            assert (copy / resolved).is_file(), (name, target)
+        # outside the markers, the page is what it was
+        assert strip_block(text).rstrip("\n") == before[name].decode().rstrip("\n")
+    assert main(["export", "--index", str(folder / "index"), "--into", str(copy)]) == 0
+    assert _bytes_of(copy) == written
+
+
+def test_the_next_import_does_not_read_the_blocks_links(wiki, tmp_path):
+    folder, pages = wiki
+    copy = _copy(pages, tmp_path / "pages")
+    assert main(["export", "--index", str(folder / "index"), "--into", str(copy)]) == 0
+    again = tmp_path / "again.db"
+    assert main(["import", "--wiki", str(again), str(copy)]) == 0
+    with Store(folder / "wiki.db", create=False) as first, Store(again, create=False) as second:
+        for store in (first, second):
+            assert store.counts()["links"] > 0
+        assert np.array_equal(first.link_arrays()[2], second.link_arrays()[2])
+        assert first.page_text_hashes()[1] == second.page_text_hashes()[1]
+        assert first.counts()["links"] == second.counts()["links"]
+
+
+def test_a_page_edited_since_the_import_is_left_alone_and_named(wiki, tmp_path, capsys):
+    folder, pages = wiki
+    copy = _copy(pages, tmp_path / "pages")
+    edited = sorted(copy.rglob("*.md"))[3]
+    edited.write_text(edited.read_text() + "\nA paragraph written after the import.\n")
+    original = edited.read_bytes()
+    assert main(["export", "--index", str(folder / "index"), "--into", str(copy)]) == 0
+    assert edited.read_bytes() == original
+    assert str(edited.relative_to(copy)) in capsys.readouterr().err
+
+
+def test_a_failed_write_leaves_the_page_as_it_was(wiki, tmp_path, monkeypatch):
+    folder, pages = wiki
+    copy = _copy(pages, tmp_path / "pages")
+    before = _bytes_of(copy)
+
+    def refuse(source, target):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(os, "replace", refuse)
+    assert main(["export", "--index", str(folder / "index"), "--into", str(copy)]) != 0
+    assert _bytes_of(copy) == before  # the page untouched, no staging file left beside it
+
+
+_LINE = st.text(st.characters(blacklist_categories=("Cs",), blacklist_characters="\r\n"), max_size=30)
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    lines=st.lists(_LINE, max_size=8),
+    newline=st.sampled_from(["\n", "\r\n"]),
+    ends=st.booleans(),
+    old=st.booleans(),
+    titles=st.lists(_LINE.filter(str.strip), min_size=1, max_size=4),
+)
+def test_with_block_keeps_everything_outside_the_markers(lines, newline, ends, old, titles):
+    text = newline.join(lines) + (newline if ends and lines else "")
+    if old:  # a page holding an earlier block in the middle
+        text = text + newline + render_block([("Old", "old.md")], newline) + newline + "tail" + newline
+    block = render_block([(title, f"p{number}.md") for number, title in enumerate(titles)], newline)
+    updated = with_block(text, block)
+    assert updated.count(START) == 1 and updated.count(END) == 1
+    start, end = updated.index(START), updated.index(END) + len(END)
+    if old:
+        old_start, old_end = text.index(START), text.index(END) + len(END)
+        assert updated[:start] == text[:old_start] and updated[end:] == text[old_end:]
+    else:
+        assert updated.startswith(text) and updated[end:] == newline
+    assert with_block(updated, block) == updated  # idempotent
+    block_lines = updated[start:end].split(newline)
+    assert all("\r" not in line and "\n" not in line for line in block_lines)  # the page's own line ending
