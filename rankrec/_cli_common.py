@@ -64,5 +64,28 @@ def open_index(args: argparse.Namespace, *, need_store: bool):
     return index, store
 
 
-def print_list(result, format: str) -> None:
-    print_rows(result.rows(), format)
+def list_urls(args: argparse.Namespace, store):
+    """Page id -> URL for a Markdown list: ``--url-template``, else the store's URLs (None: no store)."""
+    from .export import url_of
+
+    template = getattr(args, "url_template", None)
+    if template is None and store is None:
+        return lambda page: None
+    return url_of({} if template is not None else store.page_urls(), template)
+
+
+def print_list(result, format: str, url=None, *, heading: str | None = None) -> None:
+    """A list as rows (table, JSON, CSV) or, for ``md``, a Markdown heading and a bulleted list of links
+    (``url(page)``; an item without a URL gives its title and page id), each with its reason."""
+    from .blocks import escaped_title
+
+    if format != "md":
+        print_rows(result.rows(), format)
+        return
+    lines = [f"## {heading}", ""] if heading else []
+    for item in result.items:
+        title = escaped_title(item.title or item.page)
+        target = None if url is None else url(item.page)
+        shown = f"[{title}]({target})" if target else f"{title} (`{item.page}`)"
+        lines.append(f"- {shown}: {item.reason}")
+    print("\n".join(lines))

@@ -69,12 +69,12 @@ def render_block(items: Sequence[tuple[str, str]], newline: str = "\n", heading:
     <!-- rankrec related pages end -->
     """
     lines = [START, f"## {heading}", ""]
-    lines += [f"- [{_escaped(title)}]({target})" for title, target in items]
+    lines += [f"- [{escaped_title(title)}]({target})" for title, target in items]
     lines.append(END)
     return newline.join(lines)
 
 
-def _escaped(title: str) -> str:
+def escaped_title(title: str) -> str:
     """A title as link text: whitespace runs to one space, Markdown's inline specials escaped."""
     return _LINK_SPECIALS.sub(r"\\\1", " ".join(title.split()))
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ._cli_common import open_index, print_list, step_bars, stored_user
+from ._cli_common import list_urls, open_index, print_list, step_bars, stored_user
 from ._output import print_mapping, print_rows
 from .errors import UsageError
 
@@ -78,7 +78,16 @@ def register(commands) -> None:
         command.add_argument("--lift", type=float, metavar="B", help="lift exponent (default: the index's)")
         command.add_argument("--per-space", type=int, metavar="M", help="at most M pages from one space")
         command.add_argument(
-            "--format", default="table", choices=("table", "json", "csv", "md"), help="output format"
+            "--format",
+            default="table",
+            choices=("table", "json", "csv", "md"),
+            help="output format (md: a Markdown list of links, ready to paste onto a page)",
+        )
+        command.add_argument(
+            "--url-template",
+            metavar="T",
+            help="with --format md: link URLs from T, '{page}' standing for the page id "
+            "(default: the store's URLs; without one, no link)",
         )
 
     rel = commands.add_parser(
@@ -222,6 +231,7 @@ def _cmd_related(args: argparse.Namespace) -> int:
     from .recommend import reader_from_store, related
 
     index, store = open_index(args, need_store=args.viewer is not None)
+    url = list_urls(args, store)
     try:
         viewer = None if args.viewer is None else stored_user(args, args.viewer)
         reader = None if viewer is None else reader_from_store(store, index, viewer)
@@ -239,7 +249,8 @@ def _cmd_related(args: argparse.Namespace) -> int:
     finally:
         if store is not None:
             store.close()
-    print_list(result, args.format)
+    title = index.titles[index.page_number(result.subject)]
+    print_list(result, args.format, url, heading=f"Related to {title}")
     return 0
 
 
@@ -257,7 +268,8 @@ def _cmd_recommend(args: argparse.Namespace) -> int:
             lift=args.lift,
             per_space=args.per_space,
         )
-    print_list(result, args.format)
+        url = list_urls(args, store)
+    print_list(result, args.format, url, heading="Suggested for you")
     return 0
 
 
@@ -268,8 +280,9 @@ def _cmd_landing(args: argparse.Namespace) -> int:
     with store:
         team = team_from_store(store, index, args.team, min_readers=args.min_readers)
         result = landing(index, team, k=args.k, lift=args.lift, per_space=args.per_space)
+        url = list_urls(args, store)
     if args.since is None:
-        print_list(result, args.format)
+        print_list(result, args.format, url, heading=f"Reading for {args.team}")
         return 0
     entered, left = changes_since(result, read_previous(args.since))
     rows = [{**row, "change": "entered" if row["page"] in entered else ""} for row in result.rows()]

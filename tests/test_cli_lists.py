@@ -57,9 +57,20 @@ def test_every_format(built, capsys):
     index = str(folder / "index")
     _, out, _ = _run(capsys, "recommend", "user01", "--index", index, "--format", "csv", "-k", "4")
     assert [row["rank"] for row in csv.DictReader(io.StringIO(out))] == ["1", "2", "3", "4"]
-    _, out, _ = _run(capsys, "recommend", "user01", "--index", index, "--format", "md", "-k", "4")
+    _, out, _ = _run(capsys, "recommend", "user01", "--index", index, "--format", "json", "-k", "4")
+    listed = json.loads(out)
+    template = "https://wiki.example.invalid/{page}"
+    argv = ("recommend", "user01", "--index", index, "--format", "md", "-k", "4", "--url-template", template)
+    _, out, _ = _run(capsys, *argv)
     lines = out.splitlines()
-    assert lines[0].startswith("| rank | page |") and lines[1].startswith("|---") and len(lines) == 6
+    # a CommonMark heading, a blank line and one list item per page, each an inline link (CommonMark 0.31
+    # sections 4.2, 5.2 and 6.3), with the served page, URL and reason
+    assert lines[0].startswith("## ") and lines[1] == "" and len(lines) == 2 + len(listed)
+    for line, row in zip(lines[2:], listed, strict=True):
+        assert (
+            line.startswith("- [")
+            and f"]({template.replace('{page}', row['page'])}): {row['reason']}" in line
+        )
     _, out, _ = _run(capsys, "related", "s0/page-3", "--index", index, "--viewer", "user02", "-k", "3")
     assert out.splitlines()[0].split()[:3] == ["rank", "page", "title"] and len(out.splitlines()) == 4
 
