@@ -231,18 +231,23 @@ def write_into_wiki(
     check_count("k", k)
     started = time.perf_counter()
     files, entries = folder_pages(folder, MARKDOWN_SUFFIXES, "Markdown")
+    entries = list(entries)
     pages = [entry for entry in entries if not isinstance(entry, InputError)]
+    refused = [str(entry) for entry in entries if isinstance(entry, InputError)]
     others = files.others if files is not None else set()
     file_of = {page_id_for_path(relative): relative for relative, _ in pages}
     reader = _viewer(groups, index.size)
     visible = index.visible(None if reader is None else reader.groups) & ~np.asarray(index.archived)
     written = unchanged = without_list = not_in_index = 0
-    changed, unreadable, diffs = [], [], []
+    changed, unreadable, diffs = [], refused, []
     for done, (relative, file) in enumerate(pages, start=1):
         page = page_id_for_path(relative)
         number = index.find(page)
         if number is None or not visible[number]:
             not_in_index += 1
+            continue
+        if Path(file).is_symlink():  # replacing it would put a file where the wiki keeps a link
+            unreadable.append(f"{relative}: a symbolic link; not written")
             continue
         try:
             mark, text = _decoded(read_page_bytes(file), encoding)

@@ -20,6 +20,7 @@ from rankrec.blocks import END, START, render_block, strip_block, with_block
 from rankrec.cli import main
 from rankrec.index import load_index
 from rankrec.recommend import related
+from rankrec.sources._links import page_id_for_path
 from rankrec.store import Store
 from rankrec.synth import synthesize
 
@@ -138,6 +139,25 @@ def test_a_page_edited_since_the_import_is_left_alone_and_named(wiki, tmp_path, 
     assert main(["export", "--index", str(folder / "index"), "--into", str(copy)]) == 0
     assert edited.read_bytes() == original
     assert str(edited.relative_to(copy)) in capsys.readouterr().err
+
+
+def test_a_page_that_is_a_symbolic_link_is_not_replaced(wiki, tmp_path, capsys):
+    folder, pages = wiki
+    copy = _copy(pages, tmp_path / "pages")
+    index = load_index(folder / "index")
+
+    def listed(path: Path) -> bool:
+        number = index.find(page_id_for_path(path.relative_to(copy).as_posix()))
+        return number is not None and bool(index.public[number]) and not bool(index.archived[number])
+
+    second = next(path for path in sorted(copy.rglob("*.md")) if listed(path))
+    kept = copy / "kept.txt"  # inside the wiki folder, not a page itself
+    kept.write_bytes(second.read_bytes())
+    second.unlink()
+    second.symlink_to(kept)  # a page kept elsewhere inside the tree, linked in
+    assert main(["export", "--index", str(folder / "index"), "--into", str(copy)]) == 0
+    assert second.is_symlink() and kept.read_bytes() == (pages / second.relative_to(copy)).read_bytes()
+    assert "symbolic link" in capsys.readouterr().err
 
 
 def test_a_failed_write_leaves_the_page_as_it_was(wiki, tmp_path, monkeypatch):
