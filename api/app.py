@@ -32,7 +32,10 @@ from .settings import ServiceSettings
 DESCRIPTION = (
     "Related pages, personal lists and team landing orderings of the wiki, from a published "
     "rankrec index. Every list is filtered by the viewer's access groups; without a viewer only "
-    "pages visible to everyone are listed. Page ids travel percent-encoded (a '/' as %2F). "
+    "pages visible to everyone are listed. A reader token names the viewer only in a signed, "
+    "short-lived X-Rankrec-Viewer header (USER.EXPIRY.MAC, made with the token's viewer key); "
+    "viewer= is for admin tokens. List and search calls are rate and concurrency limited per token "
+    "(429 with Retry-After). Page ids travel percent-encoded (a '/' as %2F). "
     'Errors are JSON: {"error": {"code", "message", "details"}}.'
 )
 

@@ -12,7 +12,7 @@ from __future__ import annotations
 import logging
 import threading
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Annotated, Literal
 
@@ -20,7 +20,7 @@ from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 
 from rankrec.errors import InputError
-from rankrec.tokens import check_token, load_tokens
+from rankrec.tokens import find_token, load_tokens
 
 from .errors import ApiError
 
@@ -31,10 +31,12 @@ _bearer = HTTPBearer(auto_error=False, description="a token made by `rankrec tok
 
 @dataclass(frozen=True)
 class Caller:
-    """The holder of a valid token: its name and role."""
+    """The holder of a valid token: its name, role and viewer key (text as stored; None: the token
+    cannot name viewers, :mod:`api.viewers`)."""
 
     name: str
     role: Literal["reader", "admin"]
+    viewer_key: str | None = field(default=None, repr=False)
 
 
 class TokenTable:
@@ -92,8 +94,8 @@ class TokenTable:
 
     def check(self, presented: str) -> Caller | None:
         self.refresh()
-        found = check_token(self._entries, presented)
-        return None if found is None else Caller(name=found[0], role=found[1])
+        found = find_token(self._entries, presented)
+        return None if found is None else Caller(found.name, found.role, found.viewer_key)
 
 
 def _caller(request: Request, credentials: HTTPAuthorizationCredentials | None) -> Caller:

@@ -9,6 +9,7 @@ may match on.
 from __future__ import annotations
 
 import logging
+import sqlite3
 from typing import Any
 
 from fastapi import FastAPI, Request
@@ -18,13 +19,16 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from rankrec.errors import (
     GroupTooSmall,
+    NoSpace,
     RankrecError,
     StaleData,
+    StoreUnavailable,
     UnknownName,
     UnknownPage,
     UnknownTeam,
     UnknownUser,
 )
+from rankrec.store import store_unavailable
 
 log = logging.getLogger("rankrec.api")
 
@@ -64,7 +68,23 @@ def from_library(error: RankrecError) -> ApiError:
         return ApiError(409, "group_too_small", str(error), {"minimum": error.minimum})
     if isinstance(error, StaleData):
         return ApiError(503, "stale_index", "the live index does not match the wiki store; rebuild it")
+    if isinstance(error, NoSpace):  # RFC 9110 section 15.6.4: 503 with Retry-After, a temporary state
+        return ApiError(
+            503, "no_space", "the service has no space left on its disk; nothing was stored", None, _LATER
+        )
+    if isinstance(error, StoreUnavailable):  # the message names no path: that stays on the server
+        return ApiError(503, "store_unavailable", "the store cannot be used just now; retry", None, _SOON)
     return ApiError(422, "invalid_request", "the library refused the request")
+
+
+_SOON, _LATER = {"Retry-After": "1"}, {"Retry-After": "60"}
+
+
+def from_storage(error: BaseException) -> ApiError | None:
+    """The answer to a raw store or system error (a full disk, a lock held elsewhere) met outside the
+    store's own transactions, or None when it is none of those."""
+    found = store_unavailable("store", error)
+    return None if found is None else from_library(found)
 
 
 def _suggested(error: UnknownName) -> dict[str, Any] | None:
@@ -130,9 +150,26 @@ def install_error_handlers(app: FastAPI) -> None:
         message = error.detail if isinstance(error.detail, str) else code.replace("_", " ")
         return JSONResponse(error_body(code, message), status_code=error.status_code, headers=error.headers)
 
+    @app.exception_handler(sqlite3.OperationalError)
+    @app.exception_handler(OSError)
+    async def _storage(request: Request, error: Exception) -> JSONResponse:
+        answer = from_storage(error)
+        if answer is None:
+            return _failed(request)
+        log.error("store unavailable on %s %s: %s", request.method, _template(request), answer.code)
+        return _answer(answer)
+
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, error: Exception) -> JSONResponse:
-        # the route template, not the path: the path holds page and user ids
-        template = getattr(request.scope.get("route"), "path", None) or "unmatched"
-        log.exception("unexpected error on %s %s", request.method, template)
-        return JSONResponse(error_body("internal", "the service failed on this request"), status_code=500)
+        return _failed(request)
+
+
+def _template(request: Request) -> str:
+    """The route template, not the path: the path holds page and user ids."""
+    return getattr(request.scope.get("route"), "path", None) or "unmatched"
+
+
+def _failed(request: Request) -> JSONResponse:
+    """The answer to an unexpected exception (logged with its traceback, which the answer never holds)."""
+    log.exception("unexpected error on %s %s", request.method, _template(request))
+    return JSONResponse(error_body("internal", "the service failed on this request"), status_code=500)

@@ -1,11 +1,14 @@
 """The list routes: related pages, a reader's personal list, a team's landing ordering, page search.
 
 Each route parses, asks the library (:mod:`rankrec.recommend`) and formats; the only thing added
-here is *who may see what*: every list is filtered by the viewer's access groups (no viewer, or a
-viewer the store does not know: pages visible to everyone only), a page the viewer may not see is
-answered exactly like an unknown page (same status, body and search, :func:`unknown_to`), and a
-personal list is served only for its own viewer or an admin. Every route is a plain ``def``: FastAPI
-runs it in its thread pool, so no CPU work or store read runs on the event loop.
+here is *who may see what*: the viewer is the one the token may name (:mod:`api.viewers`: a signed
+assertion, or ``viewer=`` for admins); every list is filtered by the viewer's access groups (no
+viewer: pages visible to everyone only), a page the viewer may not see is answered exactly like an
+unknown page (same status, body and search, :func:`unknown_to`), and a personal list is served only
+for its own viewer or an admin. A viewer the store does not know is answered as a known viewer
+without history or groups would be (:func:`_reader`), so no answer tells who reads the wiki.
+Every route is a plain ``def``: FastAPI runs it in its thread pool, so no CPU work or store read
+runs on the event loop; each holds a place in the rate and concurrency limits (:mod:`api.limits`).
 Library errors are answered by the app's one handler (:func:`api.errors.from_library`).
 """
 
@@ -13,22 +16,22 @@ from __future__ import annotations
 
 import dataclasses
 
-from fastapi import APIRouter, Path, Query, Request
+import numpy as np
+from fastapi import APIRouter, Query, Request
 
 from rankrec.errors import UnknownPage, UnknownUser
 from rankrec.index import Index
-from rankrec.recommend import landing, reader_from_store, recommend, related, team_from_store
+from rankrec.recommend import Reader, landing, reader_from_store, recommend, related, team_from_store
 
-from .auth import ReaderCaller
 from .errors import ApiError
+from .ids import PageId, TeamId, UserId
+from .limits import LimitedCaller
 from .live import Loaded
 from .models import ListResponse, PageMatch, PageSearchResponse, error_responses
+from .viewers import Viewer
 
 SEARCH_SCAN = 5_000  # page ids looked at per search at most (restricted ones are skipped)
 
-_viewer = Query(
-    None, min_length=1, max_length=256, description="the reader the list is shown to (trusted front end)"
-)
 _lift = Query(None, ge=0, le=10, allow_inf_nan=False, description="lift exponent (default: the index's)")
 
 
@@ -40,15 +43,27 @@ def loaded_index(request: Request) -> Loaded:
     return loaded
 
 
-def _reader(request: Request, loaded: Loaded, viewer: str | None):
-    """The viewer as a library Reader, or None (no viewer, or one the store does not know)."""
+def _newcomer(index: Index, user: str) -> Reader:
+    """The reader a user the store does not know is taken for: what :func:`reader_from_store` gives
+    a known user without views and groups (no history, public pages only)."""
+    return Reader(user=user, groups=frozenset(), restart=np.zeros(index.size), recent=np.zeros(0, np.int64))
+
+
+def _reader(request: Request, loaded: Loaded, viewer: str | None) -> Reader | None:
+    """The viewer as a library Reader (None: no viewer). A viewer the store does not know gets the
+    reader a known one without history or groups is (:func:`_newcomer`): the same list and body,
+    so an answer does not tell whether someone reads the wiki (OWASP API Security Top 10 2023, API3)."""
     if viewer is None:
         return None
     service = request.app.state.service
+    store = service.read_store(loaded.wiki)
+    user = service.user_id(viewer)
+    if store.user_row(user) is None:  # one lookup; no close-name search over every user
+        return _newcomer(loaded.index, viewer)
     try:
-        return reader_from_store(service.read_store(loaded.wiki), loaded.index, service.user_id(viewer))
-    except UnknownUser:
-        return None
+        return dataclasses.replace(reader_from_store(store, loaded.index, user), user=viewer)
+    except UnknownUser:  # erased meanwhile
+        return _newcomer(loaded.index, viewer)
 
 
 def unknown_to(index: Index, page: str, groups: frozenset[str] | None) -> UnknownPage:
@@ -89,14 +104,14 @@ def make_router(max_k: int) -> APIRouter:
     @router.get(
         "/pages/{page:path}/related",
         response_model=ListResponse,
-        responses=error_responses(401, 404, 422, 503),
+        responses=error_responses(401, 403, 404, 422, 429, 503),
         summary="Pages related to a page",
     )
     def related_pages(
         request: Request,
-        caller: ReaderCaller,
-        page: str = Path(description="page id, percent-encoded (a '/' travels as %2F)"),
-        viewer: str | None = _viewer,
+        caller: LimitedCaller,
+        page: PageId,
+        viewer: Viewer,
         k: int = Query(10, **bounded_k),
         exclude_linked: bool = Query(False, description="leave out pages the page links to"),
         lift: float | None = _lift,
@@ -116,34 +131,35 @@ def make_router(max_k: int) -> APIRouter:
             lift=lift,
             per_space=per_space,
         )
-        return _answer(result, loaded, page, None if reader is None else viewer)
+        return _answer(result, loaded, page, viewer)
 
     @router.get(
         "/users/{user}/recommendations",
         response_model=ListResponse,
-        responses=error_responses(401, 403, 404, 422, 503),
+        responses=error_responses(401, 403, 422, 429, 503),
         summary="A reader's personal list",
+        description="Served to its own viewer only (a signed X-Rankrec-Viewer naming the user) or to "
+        "an admin token. A user the store does not know gets the list of a known user without "
+        "history: the same status and body shape.",
     )
     def recommendations(
         request: Request,
-        caller: ReaderCaller,
-        user: str = Path(min_length=1, max_length=256),
-        viewer: str | None = Query(
-            None, min_length=1, max_length=256, description="must equal user (admins may leave it out)"
-        ),
+        caller: LimitedCaller,
+        user: UserId,
+        viewer: Viewer,
         k: int = Query(10, **bounded_k),
         include_read: bool = Query(False, description="keep pages the user read in the last 30 days"),
         lift: float | None = _lift,
         per_space: int | None = Query(None, ge=1, le=max_k),
     ) -> ListResponse:
         if (viewer is None and caller.role != "admin") or (viewer is not None and viewer != user):
-            raise ApiError(403, "forbidden", "a personal list is served only to its own viewer or an admin")
+            raise ApiError(
+                403,
+                "forbidden",
+                "a personal list is served only to its own viewer (a signed X-Rankrec-Viewer) or an admin",
+            )
         loaded = loaded_index(request)
-        service = request.app.state.service
-        try:
-            reader = reader_from_store(service.read_store(loaded.wiki), loaded.index, service.user_id(user))
-        except UnknownUser:  # named as requested: the store may hold the id as a pseudonym
-            raise UnknownUser(user) from None
+        reader = _reader(request, loaded, user)  # a user the store does not know: as one without history
         result = recommend(
             loaded.index, reader, k=k, exclude_read=not include_read, lift=lift, per_space=per_space
         )
@@ -152,14 +168,14 @@ def make_router(max_k: int) -> APIRouter:
     @router.get(
         "/teams/{team}/landing",
         response_model=ListResponse,
-        responses=error_responses(401, 404, 409, 422, 503),
+        responses=error_responses(401, 403, 404, 409, 422, 429, 503),
         summary="A team's landing ordering",
     )
     def team_landing(
         request: Request,
-        caller: ReaderCaller,
-        team: str = Path(min_length=1, max_length=256),
-        viewer: str | None = _viewer,
+        caller: LimitedCaller,
+        team: TeamId,
+        viewer: Viewer,
         k: int = Query(20, **bounded_k),
         lift: float | None = _lift,
         per_space: int | None = Query(None, ge=1, le=max_k),
@@ -171,19 +187,19 @@ def make_router(max_k: int) -> APIRouter:
         audience = loaded.index.visible(None if reader is None else reader.groups)
         found = dataclasses.replace(found, visible=found.visible & audience)
         result = landing(loaded.index, found, k=k, lift=lift, per_space=per_space)
-        return _answer(result, loaded, team, None if reader is None else viewer)
+        return _answer(result, loaded, team, viewer)
 
     @router.get(
         "/pages",
         response_model=PageSearchResponse,
-        responses=error_responses(401, 422, 503),
+        responses=error_responses(401, 403, 422, 429, 503),
         summary="Pages whose id starts with a prefix",
     )
     def search_pages(
         request: Request,
-        caller: ReaderCaller,
+        caller: LimitedCaller,
+        viewer: Viewer,
         prefix: str = Query("", max_length=256),
-        viewer: str | None = _viewer,
         limit: int = Query(20, ge=1, le=100),
     ) -> PageSearchResponse:
         loaded = loaded_index(request)

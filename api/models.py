@@ -192,6 +192,7 @@ def error_responses(*statuses: int) -> dict:
         409: "too few distinct active readers in the team",
         413: "request body too large",
         422: "the request does not match the schema",
-        503: "no index is live",
+        429: "rate or concurrency limit reached: retry after Retry-After seconds",
+        503: "no index is live, or the store cannot be used just now (e.g. no space left)",
     }
     return {status: {"model": ErrorResponse, "description": words[status]} for status in statuses}

@@ -4,7 +4,8 @@
 ``service.live.current`` (the :class:`api.live.Loaded` a request should hold on to),
 ``service.read_store(wiki)`` (a read connection for the calling thread), ``service.user_id(name)``
 (the id as stored: pseudonymised when a key is configured), ``service.registry`` (the
-prometheus registry of this app; other modules register their own metrics on it).
+prometheus registry of this app; other modules register their own metrics on it),
+``service.limits`` (rate and concurrency limits, :mod:`api.limits`).
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from rankrec.privacy import stored_id
 from rankrec.store import Store
 
 from .auth import TokenTable
+from .limits import Limits
 from .live import LiveIndex
 from .settings import ServiceSettings
 
@@ -30,6 +32,7 @@ class Service:
         self.registry = CollectorRegistry(auto_describe=True)
         self.tokens = TokenTable(settings.tokens)
         self.live = LiveIndex(settings.index, settings.wiki)
+        self.limits = Limits(settings)
         self._key = self._pseudonym_key(settings.pseudonym_key)
         self._local = threading.local()
         self._opened: list[Store] = []

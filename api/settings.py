@@ -37,6 +37,13 @@ _CASTS = {
     "watch_seconds": float,
     "pseudonym_key": _optional_path,
     "retention_days": _optional_int,
+    "viewer_max_ttl": float,
+    "rate_per_second": float,
+    "rate_burst": int,
+    "max_concurrent": int,
+    "max_concurrent_per_token": int,
+    "limit_pause_seconds": float,
+    "unknown_cost": float,
 }
 
 
@@ -60,6 +67,21 @@ class ServiceSettings:
         Key file for pseudonymous user ids (:mod:`rankrec.privacy`); None: ids used as given.
     retention_days : int or None
         Views older than this many days are deleted (None: kept).
+    viewer_max_ttl : float
+        Seconds ahead a viewer assertion may expire at most (:mod:`api.viewers`); 300.
+    rate_per_second, rate_burst : float, int
+        Each token's bucket for the list and search routes: refilled at ``rate_per_second`` (0: no
+        rate limit), holding at most ``rate_burst`` requests (:mod:`api.limits`); 1000 and 2000 (above
+        what one 2-core machine serves, so an honest front end is not capped: measured 430 req/s).
+    unknown_cost : float
+        Requests' worth a request answered "unknown page" (or team) takes from the bucket; 10.
+    max_concurrent, max_concurrent_per_token : int
+        List and search requests running at once, in all and per token (32 and 8; the thread pool
+        that runs them has 40 threads, so health, views and admin calls always find one).
+    limit_pause_seconds : float
+        How long a request over a limit waits before its 429 answer (at most its ``Retry-After``),
+        so a client that ignores ``Retry-After`` sends at most one request per pause and
+        connection; 1.0 (0: answer at once).
 
     >>> ServiceSettings.from_environment({"RANKREC_SERVE_INDEX": "ix", "RANKREC_SERVE_TOKENS": "t.json",
     ...                                   "RANKREC_SERVE_MAX_K": "20"}).max_k
@@ -75,14 +97,42 @@ class ServiceSettings:
     watch_seconds: float = 2.0
     pseudonym_key: Path | None = None
     retention_days: int | None = None
+    viewer_max_ttl: float = 300.0
+    rate_per_second: float = 1000.0
+    rate_burst: int = 2000
+    max_concurrent: int = 32
+    max_concurrent_per_token: int = 8
+    limit_pause_seconds: float = 1.0
+    unknown_cost: float = 10.0
 
     def __post_init__(self) -> None:
-        for name in ("max_k", "max_batch", "max_body_bytes"):
+        for name in ("max_k", "max_batch", "max_body_bytes", "rate_burst", "max_concurrent"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int) or value < 1:
                 raise ValueError(f"{name} must be a positive integer; got {value!r}")
-        if not isinstance(self.watch_seconds, int | float) or not self.watch_seconds >= 0:
-            raise ValueError(f"watch_seconds must be a number >= 0; got {self.watch_seconds!r}")
+        if (
+            isinstance(self.max_concurrent_per_token, bool)
+            or not isinstance(self.max_concurrent_per_token, int)
+            or not 1 <= self.max_concurrent_per_token <= self.max_concurrent
+        ):
+            raise ValueError(
+                "max_concurrent_per_token must be an integer from 1 to max_concurrent; "
+                f"got {self.max_concurrent_per_token!r}"
+            )
+        for name in ("watch_seconds", "rate_per_second", "limit_pause_seconds"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int | float) or not 0 <= value < float("inf"):
+                raise ValueError(f"{name} must be a finite number >= 0; got {value!r}")
+        if isinstance(self.unknown_cost, bool) or not (
+            isinstance(self.unknown_cost, int | float) and 1 <= self.unknown_cost <= 1000
+        ):
+            raise ValueError(f"unknown_cost must be a number from 1 to 1000; got {self.unknown_cost!r}")
+        if isinstance(self.viewer_max_ttl, bool) or not (
+            isinstance(self.viewer_max_ttl, int | float) and 0 < self.viewer_max_ttl <= 3600
+        ):
+            raise ValueError(
+                f"viewer_max_ttl must be a number of seconds in (0, 3600]; got {self.viewer_max_ttl!r}"
+            )
         if self.retention_days is not None and (
             not isinstance(self.retention_days, int) or self.retention_days < 1
         ):

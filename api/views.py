@@ -36,7 +36,8 @@ from rankrec.sources import Origin, ViewRecord, check_view
 from rankrec.store import Store
 
 from .auth import Caller, require_admin, require_reader
-from .errors import ApiError
+from .errors import ApiError, from_storage
+from .ids import UserId
 from .models import error_responses
 
 log = logging.getLogger("rankrec.api")
@@ -148,9 +149,10 @@ class ViewKeeper:
                 return action(self._store)
             except sqlite3.OperationalError as error:  # locked by an import, disk full, ...
                 log.error("store write failed: %s", error)
-                raise ApiError(
+                answer = from_storage(error) or ApiError(
                     503, "store_unavailable", "the store cannot take writes just now; retry"
-                ) from None
+                )
+                raise answer from None
 
     def close_store(self) -> None:
         """Close the write connection once the write in progress (if any) is done."""
@@ -308,14 +310,12 @@ def post_views(
 @router.delete(
     "/v1/users/{user:path}/views",
     response_model=UserErased,
-    responses=error_responses(401, 403, 503),
+    responses=error_responses(401, 403, 422, 503),
     summary="Erase every view of one reader (admin)",
 )
 def erase_user_views(
-    user: str, request: Request, caller: Annotated[Caller, Depends(require_admin)]
+    user: UserId, request: Request, caller: Annotated[Caller, Depends(require_admin)]
 ) -> UserErased:
-    if not user.strip():
-        raise ApiError(422, "invalid_request", "the user id is empty")
     # with a key, views are stored under the pseudonym; history imported before the key was set
     # may still carry the plain id, so both go
     forms = dict.fromkeys((request.app.state.service.user_id(user), user))

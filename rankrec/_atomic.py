@@ -26,6 +26,7 @@ parent folder, so a publish may run inside another's staging folder (the index's
 
 from __future__ import annotations
 
+import errno
 import fcntl
 import os
 import shutil
@@ -34,6 +35,8 @@ import threading
 import time
 from collections.abc import Callable
 from pathlib import Path
+
+from .errors import NoSpace
 
 FOLDER_MODE = 0o700
 FILE_MODE = 0o600
@@ -81,9 +84,19 @@ def publish_folder(target: Path, write: Callable[[Path], None]) -> Path:
     """Call ``write(staging)`` to fill a new folder, then make ``target`` point at it.
 
     Returns the real folder now behind ``target``. If ``write`` raises, nothing changes and
-    the staging folder is removed. See the module docstring for permissions and locks.
+    the staging folder is removed; a full disk or quota (``ENOSPC``, ``EDQUOT``) raises
+    :class:`~rankrec.errors.NoSpace` then. See the module docstring for permissions and locks.
     """
     target = Path(target)
+    try:
+        return _publish(target, write)
+    except OSError as error:
+        if error.errno in (errno.ENOSPC, errno.EDQUOT):
+            raise NoSpace(str(target)) from error
+        raise
+
+
+def _publish(target: Path, write: Callable[[Path], None]) -> Path:
     parent = target.parent
     parent.mkdir(parents=True, exist_ok=True)
     stamp = time.strftime("%Y%m%dT%H%M%S")

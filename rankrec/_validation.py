@@ -6,6 +6,7 @@ Every message names the parameter and shows the value with ``!r``.
 from __future__ import annotations
 
 import math
+import re
 from numbers import Real
 
 
@@ -51,4 +52,64 @@ def check_count(name: str, value, *, minimum: int = 1) -> int:
 def check_choice(name: str, value, choices) -> str:
     if value not in choices:
         raise ValueError(f"{name} must be one of {', '.join(map(repr, choices))}; got {value!r}")
+    return value
+
+
+ID_MAX_CHARS = 256
+"""Longest page, user, team or group id accepted anywhere (HTTP, views, importers), in characters."""
+
+QUOTED_CHARS = 32
+"""How much of a refused value a message quotes (a prefix, so a huge value is not echoed)."""
+
+# every character of the Unicode categories Cc (controls), Zl and Zp (line and paragraph separators)
+# and Cs (surrogates, which UTF-8 cannot encode)
+_REFUSED = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029\ud800-\udfff]")
+
+
+def quoted(value: str) -> str:
+    """``value`` for a message: ``repr`` of at most ``QUOTED_CHARS`` characters, marked when cut.
+
+    >>> quoted("x" * 300)
+    "'xxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxx'... (300 characters)"
+    """
+    if len(value) <= QUOTED_CHARS:
+        return repr(value)
+    return f"{value[:QUOTED_CHARS]!r}... ({len(value)} characters)"
+
+
+def id_problem(value: str) -> str | None:
+    """Why ``value`` (a string) cannot be an id, or None when it can: empty or blank, longer than
+    ``ID_MAX_CHARS``, or holding a control character, a surrogate or a line or paragraph separator.
+
+    >>> id_problem("ops/patching-quarterly-checklist") is None, id_problem("a\\nb")
+    (True, 'holds a control character or line separator at position 1')
+    """
+    if not value.strip():
+        return "is empty"
+    if len(value) > ID_MAX_CHARS:
+        return f"is longer than {ID_MAX_CHARS} characters"
+    found = _REFUSED.search(value)
+    if found is not None:
+        return f"holds a control character or line separator at position {found.start()}"
+    return None
+
+
+def check_id(name: str, value) -> str:
+    """A page, user, team or group id, as every entry point accepts it (the one bound of the project):
+    a string of 1 to ``ID_MAX_CHARS`` characters, not blank, without control characters, surrogates
+    or line separators (so whatever is stored can be named again, e.g. to erase it). ValueError
+    quoting at most a short prefix of a bad value (:func:`quoted`); TypeError for a non-string.
+
+    >>> check_id("user id", "u00042")
+    'u00042'
+    >>> check_id("user id", "u" * 300_000)  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    ValueError: user id is longer than 256 characters; got 'uuuuuuuu...'... (300000 characters)
+    """
+    if not isinstance(value, str):
+        raise TypeError(f"{name} must be a string, not {type(value).__name__}")
+    problem = id_problem(value)
+    if problem is not None:
+        raise ValueError(f"{name} {problem}; got {quoted(value)}")
     return value

@@ -129,6 +129,45 @@ class GroupTooSmall(RankrecError):
         return (type(self), (self.team, self.readers, self.minimum))
 
 
+# -- storage ---------------------------------------------------------------------------------------
+class StoreUnavailable(RankrecError):
+    """The store cannot be used just now (locked by another writer, an I/O error); nothing was
+    changed by the call that met it. ``reason`` is SQLite's or the system's short message.
+
+    >>> str(StoreUnavailable("wiki.db", "database is locked"))
+    'wiki.db: the store cannot be used just now (database is locked); nothing was changed'
+    """
+
+    def __init__(self, path: str, reason: str) -> None:
+        self.path = str(path)
+        self.reason = reason
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        return f"{self.path}: the store cannot be used just now ({self.reason}); nothing was changed"
+
+    def __reduce__(self):
+        return (type(self), (self.path, self.reason))
+
+
+class NoSpace(RankrecError):
+    """No space left on the device (or quota) where ``path`` is written; what was there before is kept.
+
+    >>> str(NoSpace("wiki-index"))
+    'no space left on device writing wiki-index; nothing was changed (the previous data is kept)'
+    """
+
+    def __init__(self, path: str) -> None:
+        self.path = str(path)
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        return f"no space left on device writing {self.path}; nothing was changed (the previous data is kept)"
+
+    def __reduce__(self):
+        return (type(self), (self.path,))
+
+
 # -- evaluation ------------------------------------------------------------------------------------
 def _iso(seconds: float) -> str:
     return datetime.fromtimestamp(seconds, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")

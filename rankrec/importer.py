@@ -18,6 +18,7 @@ from functools import partial
 from pathlib import Path
 from typing import Any
 
+from ._validation import id_problem, quoted
 from .errors import InputError
 from .privacy import stored_id
 from .progress import Progress, report
@@ -204,7 +205,34 @@ def _import_one(store, path, format, ledger, cleared, strict, error_cap, progres
 _KIND = {PageRecord: "pages", LinkRecord: "links", ViewRecord: "views", MembershipRecord: "memberships"}
 
 
+def _ids(item) -> tuple[tuple[str, str], ...]:
+    """``(what, id)`` of every id a record would store."""
+    if isinstance(item, ViewRecord):
+        return (("user id", item.user), ("page id", item.page))
+    if isinstance(item, LinkRecord):
+        return (("source id", item.source), ("target id", item.target))
+    if isinstance(item, PageRecord):
+        return (("page id", item.page), *(("group name", name) for name in item.groups))
+    if isinstance(item, MembershipRecord):
+        return (("user id", item.user), (f"{item.kind} name", item.name))
+    return ()
+
+
+def _bad_id(item) -> InputError | None:
+    """The InputError of a record holding an id that no entry point accepts (every format's records
+    pass here: ids derived from file names, links and log lines too), else None."""
+    for what, value in _ids(item):
+        problem = id_problem(value) if isinstance(value, str) else "is not a string"
+        if problem is not None:
+            shown = quoted(value) if isinstance(value, str) else type(value).__name__
+            return InputError(item.origin.file, item.origin.line, f"{what} {problem}; got {shown}")
+    return None
+
+
 def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
+    error = _bad_id(item)
+    if error is not None:
+        return error
     if isinstance(item, ViewRecord):
         batch.views.append((ledger.user(item.user), item.page, item.timestamp, item.dwell))
     elif isinstance(item, LinkRecord):

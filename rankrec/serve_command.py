@@ -58,6 +58,19 @@ def register(commands) -> None:
         help="look for a newly published index every S seconds (0: only on POST /v1/index/reload)",
     )
     serve.add_argument("--max-k", type=int, default=100, metavar="K", help="longest list served (100)")
+    serve.add_argument(
+        "--rate-per-second",
+        type=float,
+        metavar="R",
+        help="list and search requests per second and token, refilled into a bucket (1000; 0: no limit)",
+    )
+    serve.add_argument("--rate-burst", type=int, metavar="N", help="the bucket's size (2000)")
+    serve.add_argument(
+        "--max-concurrent-per-token",
+        type=int,
+        metavar="N",
+        help="list and search requests of one token running at once (8; 32 in all)",
+    )
     serve.set_defaults(run=_cmd_serve)
 
     token = commands.add_parser("token", help="manage the service's bearer tokens")
@@ -70,7 +83,32 @@ def register(commands) -> None:
     add.add_argument("name", metavar="NAME", help="who the token is for (letters, digits, . _ -)")
     add.add_argument("--role", required=True, choices=("reader", "admin"), help="what the token may do")
     add.add_argument("--tokens", required=True, metavar="FILE", help="the tokens file (created if missing)")
+    add.add_argument(
+        "--viewer-key",
+        action="store_true",
+        help="also make a viewer key (printed once, on a second line): only its holder can name the "
+        "viewer of a list, in signed X-Rankrec-Viewer assertions",
+    )
     add.set_defaults(run=_cmd_token_add)
+    sign = actions.add_parser(
+        "assert",
+        help="print a signed viewer assertion (the X-Rankrec-Viewer header) for trying the service",
+        description="Print USER.EXPIRY.MAC, the value of the X-Rankrec-Viewer header that names USER as "
+        "the viewer of the token NAME's requests, signed with that token's viewer key. A front end makes "
+        "these itself with rankrec.tokens.viewer_assertion; this command is for trying the service.",
+    )
+    sign.add_argument("name", metavar="NAME", help="the token the assertion travels with")
+    sign.add_argument("user", metavar="USER", help="the viewer (user id)")
+    sign.add_argument("--tokens", required=True, metavar="FILE", help="the tokens file")
+    sign.add_argument(
+        "--ttl",
+        type=float,
+        default=60.0,
+        metavar="S",
+        help="seconds the assertion is valid (60; the "
+        "service accepts at most its viewer_max_ttl, 300 by default)",
+    )
+    sign.set_defaults(run=_cmd_token_assert)
     revoke = actions.add_parser(
         "revoke",
         help="remove a token: a running service refuses it within seconds",
@@ -90,7 +128,28 @@ def _cmd_token_add(args: argparse.Namespace) -> int:
     except ValueError as error:  # a bad or taken name
         raise UsageError(str(error)) from None
     print(token)
-    print(f"(shown once; {args.tokens} keeps only its hash)", file=sys.stderr)
+    if not args.viewer_key:
+        print(f"(shown once; {args.tokens} keeps only its hash)", file=sys.stderr)
+        return 0
+    from .tokens import add_viewer_key
+
+    print(add_viewer_key(Path(args.tokens), args.name))
+    print(
+        f"(shown once: the token, then its viewer key; {args.tokens} keeps the token's hash and the key, "
+        "which the service needs to check assertions)",
+        file=sys.stderr,
+    )
+    return 0
+
+
+def _cmd_token_assert(args: argparse.Namespace) -> int:
+    from .tokens import viewer_assertion, viewer_key_of
+
+    try:
+        key = viewer_key_of(Path(args.tokens), args.name)
+        print(viewer_assertion(key, args.name, args.user, args.ttl))
+    except (ValueError, TypeError) as error:  # no such token, no key, a bad user id or ttl
+        raise UsageError(str(error)) from None
     return 0
 
 
@@ -161,6 +220,9 @@ def serve_settings(args: argparse.Namespace) -> dict[str, str]:
         "watch_seconds": args.watch_seconds,
         "max_k": args.max_k,
     }
+    for name in ("rate_per_second", "rate_burst", "max_concurrent_per_token"):
+        if getattr(args, name, None) is not None:  # else the setting's default (or the environment's)
+            values[name] = getattr(args, name)
     return {
         f"RANKREC_SERVE_{name.upper()}": "" if value is None else str(value) for name, value in values.items()
     }

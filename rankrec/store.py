@@ -22,6 +22,7 @@ from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
+from ._store_os import create_private, raise_unavailable, store_unavailable
 from ._store_reads import StoreReads
 from .errors import InputError, UnknownPage
 from .sources.records import HEADINGS_BYTES, TEXT_BYTES, clip_utf8
@@ -112,6 +113,8 @@ class Store(StoreReads):
         if self.path != ":memory:" and not create and not Path(self.path).is_file():
             raise InputError(self.path, None, "no wiki store here; create one with `rankrec import`")
         try:
+            if self.path != ":memory:" and create:
+                create_private(Path(self.path))
             self.connection = sqlite3.connect(self.path, isolation_level=None, check_same_thread=False)
             self.connection.execute("PRAGMA journal_mode=WAL")
             self.connection.execute("PRAGMA synchronous=NORMAL")
@@ -119,6 +122,11 @@ class Store(StoreReads):
             self.connection.execute("PRAGMA cache_size=-131072")  # 128 MiB of page cache for big imports
             self.connection.execute("PRAGMA temp_store=MEMORY")
             self._check_schema()
+        except (sqlite3.OperationalError, OSError) as error:
+            unavailable = store_unavailable(self.path, error)
+            if unavailable is None:
+                raise InputError(self.path, None, f"not a usable wiki store: {error}") from None
+            raise unavailable from error
         except sqlite3.DatabaseError as error:
             raise InputError(self.path, None, f"not a usable wiki store: {error}") from None
         self._page_ids: dict[str, int] = {}
@@ -183,18 +191,29 @@ class Store(StoreReads):
 
     @contextmanager
     def _transaction(self, begin: str) -> Iterator[None]:
-        """``begin``, then COMMIT; ROLLBACK (and forget cached ids) when anything inside raises."""
-        self.connection.execute(begin)
+        """``begin``, then COMMIT; ROLLBACK (and forget cached ids) when anything inside raises.
+
+        A full disk or an unavailable store (at any step, the COMMIT too) raises
+        :class:`~rankrec.errors.NoSpace` or :class:`~rankrec.errors.StoreUnavailable`
+        (:func:`store_unavailable`), after the rollback: nothing of the transaction is kept.
+        """
+        try:
+            self.connection.execute(begin)
+        except (sqlite3.OperationalError, OSError) as error:
+            raise_unavailable(self.path, error)
+            raise
         try:
             yield
-        except BaseException:
-            self.connection.execute("ROLLBACK")
+            self.connection.execute("COMMIT")
+        except BaseException as error:
+            if self.connection.in_transaction:  # SQLite may have rolled back already (e.g. disk full)
+                self.connection.execute("ROLLBACK")
             self._page_ids.clear()
             self._user_ids.clear()
             self._place_ids.clear()
             self._text_tables = False  # tables this transaction added are gone again
+            raise_unavailable(self.path, error)
             raise
-        self.connection.execute("COMMIT")
 
     # -- ids -------------------------------------------------------------------------------------
     def page_id(self, page: str) -> int:

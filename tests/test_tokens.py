@@ -1,8 +1,11 @@
-"""The tokens file: only hashes stored, atomic writes with mode 0600, duplicate names refused, revocation."""
+"""The tokens file: only hashes stored, atomic writes with mode 0600, duplicate names refused, revocation,
+viewer keys and the signed viewer assertions made with them."""
 
 from __future__ import annotations
 
+import base64
 import hashlib
+import hmac
 import json
 import stat
 
@@ -10,7 +13,16 @@ import pytest
 
 from rankrec.cli import main
 from rankrec.errors import InputError
-from rankrec.tokens import add_token, check_token, load_tokens, revoke_token
+from rankrec.tokens import (
+    add_token,
+    add_viewer_key,
+    check_token,
+    check_viewer_assertion,
+    load_tokens,
+    revoke_token,
+    viewer_assertion,
+    viewer_key_of,
+)
 
 
 def test_only_the_sha256_of_a_token_is_stored(tmp_path):
@@ -134,3 +146,147 @@ def test_token_revoke_command(tmp_path, capsys):
     assert error.count("\n") == 1 and "no token named 'frontend'" in error
     assert main(["token", "revoke", "x" * 300, "--tokens", str(path)]) == 2
     assert "x" * 65 not in capsys.readouterr().err  # a long bad name is not echoed
+
+
+# -- viewer keys and assertions --------------------------------------------------------------------
+NOW = 1_800_000_000
+
+
+def _rfc2104_hmac_sha256(key: bytes, message: bytes) -> bytes:
+    """HMAC written out as RFC 2104 section 2 defines it (B = 64 for SHA-256), not through ``hmac``."""
+    key = key.ljust(64, b"\0")
+    inner = hashlib.sha256(bytes(k ^ 0x36 for k in key) + message).digest()
+    return hashlib.sha256(bytes(k ^ 0x5C for k in key) + inner).digest()
+
+
+def _b64url(raw: bytes) -> str:
+    return base64.urlsafe_b64encode(raw).rstrip(b"=").decode()  # RFC 4648 section 5, no padding
+
+
+def test_an_assertions_mac_is_hmac_sha256_of_the_documented_message():
+    key = bytes(range(32))
+    made = viewer_assertion(key, "wiki-frontend", "u00042", ttl=60, now=NOW)
+    user, expiry, mac = made.split(".")
+    assert (user, expiry) == ("u00042", str(NOW + 60))
+    message = b"rankrec-viewer-v1\nwiki-frontend\n" + str(NOW + 60).encode() + b"\nu00042"
+    assert mac == _b64url(_rfc2104_hmac_sha256(key, message))
+
+
+@pytest.mark.parametrize("user", ["u00042", "ops.team.lead", "ünïcode/页 with space", "per%cent", "a.b.c"])
+def test_assertions_round_trip_any_valid_user_id(user):
+    key = bytes(range(32))
+    made = viewer_assertion(key, "frontend", user, ttl=30, now=NOW)
+    assert made.isascii()  # a header value: the user travels percent-encoded (RFC 3986 section 2.1)
+    assert check_viewer_assertion(key, "frontend", made, now=NOW + 29) == user
+
+
+def _tampered(made: str) -> dict[str, str]:
+    user, expiry, mac = made.split(".")
+    flipped = mac[:-1] + ("A" if mac[-1] != "A" else "B")
+    return {
+        "other user": f"u00043.{expiry}.{mac}",
+        "later expiry": f"{user}.{int(expiry) + 10}.{mac}",
+        "other mac": f"{user}.{expiry}.{flipped}",
+        "no mac": f"{user}.{expiry}.",
+        "two fields": f"{user}.{expiry}",
+        "unicode digits": f"{user}.{'١' * 10}.{mac}",
+        "huge": "u" * 300_000 + f".{expiry}.{mac}",
+        "bad escape": f"%ff%fe.{expiry}.{mac}",
+    }
+
+
+def test_a_changed_assertion_is_refused_without_being_quoted():
+    key = bytes(range(32))
+    made = viewer_assertion(key, "frontend", "u00042", ttl=60, now=NOW)
+    for name, value in _tampered(made).items():
+        with pytest.raises(ValueError) as refused:
+            check_viewer_assertion(key, "frontend", value, now=NOW)
+        assert "u00042" not in str(refused.value) and "uuuu" not in str(refused.value), name
+    with pytest.raises(ValueError, match="MAC"):  # bound to the token it travels with
+        check_viewer_assertion(key, "other-frontend", made, now=NOW)
+    with pytest.raises(ValueError, match="MAC"):  # and to the key
+        check_viewer_assertion(bytes(32), "frontend", made, now=NOW)
+
+
+def test_an_assertion_is_valid_only_until_it_expires_and_only_if_it_expires_soon():
+    key = bytes(range(32))
+    made = viewer_assertion(key, "frontend", "u00042", ttl=60, now=NOW)
+    assert check_viewer_assertion(key, "frontend", made, now=NOW + 59.9) == "u00042"
+    with pytest.raises(ValueError, match="expired"):
+        check_viewer_assertion(key, "frontend", made, now=NOW + 60)
+    long_lived = viewer_assertion(key, "frontend", "u00042", ttl=3600, now=NOW)
+    with pytest.raises(ValueError, match="300 s ahead"):  # the front end cannot mint long-lived ones
+        check_viewer_assertion(key, "frontend", long_lived, max_ttl=300, now=NOW)
+
+
+def test_macs_are_compared_in_constant_time(monkeypatch):
+    # common practice (and the hmac module's advice): compare MACs with hmac.compare_digest
+    compared = []
+    original = hmac.compare_digest
+
+    def recording(a, b):
+        compared.append((a, b))
+        return original(a, b)
+
+    monkeypatch.setattr("rankrec.tokens.hmac.compare_digest", recording)
+    key = bytes(range(32))
+    made = viewer_assertion(key, "frontend", "u00042", now=NOW)
+    check_viewer_assertion(key, "frontend", made, now=NOW)
+    assert (made.split(".")[-1], made.split(".")[-1]) in compared
+
+
+def test_bad_users_keys_and_ttls_are_refused_when_making_assertions():
+    key = bytes(range(32))
+    for user in ("", "a\nb", "x" * 257):
+        with pytest.raises(ValueError, match="user"):
+            viewer_assertion(key, "frontend", user)
+    with pytest.raises(ValueError, match="key"):
+        viewer_assertion(b"short", "frontend", "u00042")
+    with pytest.raises(ValueError, match="ttl"):
+        viewer_assertion(key, "frontend", "u00042", ttl=0)
+    with pytest.raises(ValueError, match="token_name"):
+        viewer_assertion(key, "has space", "u00042")
+
+
+def test_a_viewer_key_is_random_kept_in_the_private_file_and_replaced_on_request(tmp_path):
+    path = tmp_path / "tokens.json"
+    token = add_token(path, "frontend", "reader")
+    add_token(path, "ops", "admin")
+    first = add_viewer_key(path, "frontend")
+    entries = {entry.name: entry for entry in load_tokens(path)}
+    assert entries["frontend"].viewer_key == first and entries["ops"].viewer_key is None
+    assert len(base64.urlsafe_b64decode(first + "=")) == 32  # 256 random bits (secrets.token_urlsafe)
+    assert first not in repr(entries["frontend"])  # never printed by accident
+    assert stat.S_IMODE(path.stat().st_mode) == 0o600
+    assert check_token(load_tokens(path), token) == ("frontend", "reader")  # the token still works
+    second = add_viewer_key(path, "frontend")
+    assert second != first and viewer_key_of(path, "frontend") == second
+    with pytest.raises(ValueError, match="no viewer key"):
+        viewer_key_of(path, "ops")
+    with pytest.raises(ValueError, match="no token named"):
+        add_viewer_key(path, "nobody")
+
+
+def test_a_malformed_viewer_key_in_the_file_is_an_input_error(tmp_path):
+    path = tmp_path / "tokens.json"
+    entry = {"name": "a", "role": "reader", "sha256": "0" * 64, "created": "", "viewer_key": "short"}
+    path.write_text(json.dumps({"format": 1, "tokens": [entry]}))
+    with pytest.raises(InputError, match="viewer_key"):
+        load_tokens(path)
+
+
+def test_token_add_with_a_viewer_key_and_token_assert(tmp_path, capsys):
+    path = tmp_path / "tokens.json"
+    assert main(["token", "add", "frontend", "--role", "reader", "--viewer-key", "--tokens", str(path)]) == 0
+    token, key = capsys.readouterr().out.split()
+    assert check_token(load_tokens(path), token) == ("frontend", "reader")
+    assert viewer_key_of(path, "frontend") == key
+    assert main(["token", "assert", "frontend", "u00042", "--tokens", str(path), "--ttl", "30"]) == 0
+    made = capsys.readouterr().out.strip()
+    assert check_viewer_assertion(key, "frontend", made) == "u00042"
+    assert main(["token", "add", "plain", "--role", "reader", "--tokens", str(path)]) == 0
+    assert len(capsys.readouterr().out.split()) == 1  # without --viewer-key: the token only
+    assert main(["token", "assert", "plain", "u00042", "--tokens", str(path)]) == 2
+    assert "no viewer key" in capsys.readouterr().err
+    assert main(["token", "assert", "frontend", "u" * 300_000, "--tokens", str(path)]) == 2
+    assert len(capsys.readouterr().err) < 300  # a huge id is not echoed

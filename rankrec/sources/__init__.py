@@ -3,7 +3,8 @@
 Each reader yields :mod:`records <rankrec.sources.records>` with their provenance, or
 :class:`~rankrec.errors.InputError` values for the records it skips; none of them touches the
 store or the graph. :func:`check_view` checks one view event as the views reader does (the
-service takes views in through it); :func:`parse_timestamp` reads a time as every reader does.
+service takes views in through it); :func:`parse_timestamp` reads a time as every reader does;
+:func:`check_id` is the one bound on page, user, team and group ids that every entry point applies.
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
+from .._validation import ID_MAX_CHARS, check_id
 from ..errors import InputError
 from ._fields import FieldError, parse_timestamp
 from ._text import iter_lines
@@ -21,10 +23,12 @@ from .views import check_view
 
 __all__ = [
     "FORMATS",
+    "ID_MAX_CHARS",
     "FieldError",
     "Origin",
     "Record",
     "ViewRecord",
+    "check_id",
     "check_view",
     "detect_format",
     "parse_timestamp",

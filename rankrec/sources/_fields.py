@@ -18,6 +18,7 @@ from collections.abc import Iterable, Iterator, Sequence
 from datetime import UTC, datetime
 from pathlib import Path
 
+from .._validation import id_problem, quoted
 from ..errors import InputError
 from ._text import iter_lines
 
@@ -164,7 +165,8 @@ def column_count_reason(found: int, expected: int | str) -> str:
 
 
 def parse_id(value: object, what: str) -> str:
-    """A page, user, team or group id: a non-empty string (surrounding blanks dropped).
+    """A page, user, team or group id: a non-empty string (surrounding blanks dropped), bounded as
+    every entry point bounds ids (:func:`rankrec._validation.check_id`).
 
     JSON integers are accepted and turned into strings; anything else is a FieldError.
     """
@@ -178,6 +180,9 @@ def parse_id(value: object, what: str) -> str:
         raise FieldError(f"{what} must be a string, not {type(value).__name__} {_short(value)}")
     if not text:
         raise FieldError(f"empty {what}")
+    problem = id_problem(text)
+    if problem is not None:
+        raise FieldError(f"{what} {problem}; got {quoted(text)}")
     return text
 
 

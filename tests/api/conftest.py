@@ -15,7 +15,7 @@ from rankrec.build import build_index
 from rankrec.demo import import_demo
 from rankrec.sources.records import Origin, PageRecord
 from rankrec.store import Store
-from rankrec.tokens import add_token
+from rankrec.tokens import add_token, add_viewer_key, viewer_assertion
 
 with warnings.catch_warnings():
     # starlette asks for the httpx2 package; the httpx it falls back to works the same for these tests
@@ -61,6 +61,7 @@ def demo(tmp_path_factory) -> dict:
         build_index(store, folder / "index")
     tokens = folder / "tokens.json"
     reader = add_token(tokens, "wiki-frontend", "reader")
+    viewer_key = add_viewer_key(tokens, "wiki-frontend")
     admin = add_token(tokens, "maintainer", "admin")
     return {
         "folder": folder,
@@ -68,8 +69,26 @@ def demo(tmp_path_factory) -> dict:
         "index": folder / "index",
         "tokens": tokens,
         "reader": reader,
+        "viewer_key": viewer_key,
         "admin": admin,
     }
+
+
+def signed_headers(token: str, key: str, token_name: str, user: str, **options) -> dict:
+    """Headers of a front end with ``token`` showing a list to ``user``: the bearer token and a fresh
+    viewer assertion made with the token's viewer key."""
+    return {
+        "Authorization": f"Bearer {token}",
+        "X-Rankrec-Viewer": viewer_assertion(key, token_name, user, **options),
+    }
+
+
+@pytest.fixture(scope="session")
+def as_viewer(demo):
+    """``as_viewer(user)``: the demo front end's headers for a list shown to ``user``."""
+    return lambda user, **options: signed_headers(
+        demo["reader"], demo["viewer_key"], "wiki-frontend", user, **options
+    )
 
 
 @pytest.fixture(scope="session")
@@ -83,7 +102,10 @@ def odd(tmp_path_factory, demo) -> dict:
 
 
 def settings_for(paths: dict, **options) -> ServiceSettings:
-    return ServiceSettings(index=paths["index"], tokens=paths["tokens"], **{"watch_seconds": 0, **options})
+    """Settings of a test service: no index watcher, and no rate limit unless asked for (tests send
+    requests back to back; tests/api/test_limits.py tests the limits)."""
+    defaults = {"watch_seconds": 0, "rate_per_second": 0}
+    return ServiceSettings(index=paths["index"], tokens=paths["tokens"], **{**defaults, **options})
 
 
 @pytest.fixture(scope="session")

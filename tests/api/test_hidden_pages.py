@@ -22,9 +22,9 @@ from rankrec.build import build_index
 from rankrec.index import Index
 from rankrec.sources.records import Origin, PageRecord
 from rankrec.store import Store
-from rankrec.tokens import add_token
+from rankrec.tokens import add_token, add_viewer_key
 
-from .conftest import TestClient
+from .conftest import TestClient, signed_headers
 
 SECRET = "ops/secret-plan"
 PUBLIC = [f"ops/runbook-{number}" for number in range(10)] + [
@@ -68,7 +68,9 @@ def _wiki(path, with_secret: bool):
 def twins(tmp_path_factory):
     """Clients of the wiki with the restricted page and of the one without it, and a reader token."""
     tokens = tmp_path_factory.mktemp("tokens") / "tokens.json"
-    headers = {"Authorization": f"Bearer {add_token(tokens, 'frontend', 'reader')}"}
+    token = add_token(tokens, "frontend", "reader")
+    key = add_viewer_key(tokens, "frontend")
+    headers = {"Authorization": f"Bearer {token}"}
     clients, apps = {}, []
     for name, with_secret in (("with", True), ("without", False)):
         wiki = _wiki(tmp_path_factory.mktemp(name) / "wiki.db", with_secret)
@@ -77,7 +79,11 @@ def twins(tmp_path_factory):
         )
         apps.append(app)
         clients[name] = TestClient(app)
-    yield {**clients, "headers": headers, "app": apps[0]}
+
+    def shown_to(viewer):  # the front end's headers for a list shown to ``viewer`` (None: nobody)
+        return headers if viewer is None else signed_headers(token, key, "frontend", viewer)
+
+    yield {**clients, "headers": headers, "as": shown_to, "app": apps[0]}
     for app in apps:
         app.state.service.close()
 
@@ -88,11 +94,10 @@ def _related(client, page: str, headers, **params):
 
 @pytest.mark.parametrize("viewer", [None, "outsider", "payroll", "nobody-here"])
 def test_a_restricted_id_answers_exactly_as_an_absent_one(twins, viewer):
-    params = {} if viewer is None else {"viewer": viewer}
     suggested = set()
     for probe in PROBES:
-        hidden = _related(twins["with"], probe, twins["headers"], **params)
-        absent = _related(twins["without"], probe, twins["headers"], **params)
+        hidden = _related(twins["with"], probe, twins["as"](viewer))
+        absent = _related(twins["without"], probe, twins["as"](viewer))
         assert hidden.status_code == absent.status_code == 404, probe
         assert hidden.content == absent.content, probe  # the same bytes
         suggested |= set(hidden.json()["error"].get("details", {}).get("closest", []))
@@ -102,9 +107,9 @@ def test_a_restricted_id_answers_exactly_as_an_absent_one(twins, viewer):
 
 
 def test_a_member_gets_the_page_and_sees_it_suggested(twins):
-    headers = twins["headers"]
-    assert _related(twins["with"], SECRET, headers, viewer="insider").status_code == 200
-    error = _related(twins["with"], "ops/secret-plam", headers, viewer="insider").json()["error"]
+    headers = twins["as"]("insider")
+    assert _related(twins["with"], SECRET, headers).status_code == 200
+    error = _related(twins["with"], "ops/secret-plam", headers).json()["error"]
     assert SECRET in error["details"]["closest"]
 
 
@@ -117,9 +122,9 @@ def test_restricted_and_absent_ids_run_the_same_search(twins, monkeypatch):
         return close_ids(self, page, **options)
 
     monkeypatch.setattr(Index, "close_ids", counted)
-    headers = twins["headers"]
+    headers = twins["as"]("outsider")
     for probe in (SECRET, "ops/secret-plam", PUBLIC[1]):
-        _related(twins["with"], probe, headers, viewer="outsider")
+        _related(twins["with"], probe, headers)
     # one bounded search for the restricted id as for the absent one; none for a page that is found
     assert searched == [SECRET, "ops/secret-plam"]
 

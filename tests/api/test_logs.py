@@ -38,12 +38,10 @@ def _lines(caplog) -> list[str]:
     ]
 
 
-def test_the_access_log_names_routes_not_readers_or_pages(client, reader, reading, caplog):
+def test_the_access_log_names_routes_not_readers_or_pages(client, as_viewer, reading, caplog):
     caplog.set_level(logging.DEBUG)
-    assert client.get(reading["path"], params={"viewer": reading["user"]}, headers=reader).status_code == 200
-    client.get(
-        f"/v1/users/{reading['user']}/recommendations", params={"viewer": reading["user"]}, headers=reader
-    )
+    assert client.get(reading["path"], headers=as_viewer(reading["user"])).status_code == 200
+    client.get(f"/v1/users/{reading['user']}/recommendations", headers=as_viewer(reading["user"]))
     lines = _lines(caplog)
     access = [line for line in lines if line.startswith("rankrec.api.access ")]
     assert any("GET /v1/pages/{page:path}/related 200" in line for line in access), lines
@@ -51,14 +49,14 @@ def test_the_access_log_names_routes_not_readers_or_pages(client, reader, readin
     assert not [line for line in lines if reading["user"] in line or reading["page"] in line]
 
 
-def test_an_unexpected_failure_is_logged_without_the_path(demo, reader, reading, caplog, monkeypatch):
+def test_an_unexpected_failure_is_logged_without_the_path(demo, as_viewer, reading, caplog, monkeypatch):
     def broken(*args, **kwargs):
         raise RuntimeError("simulated failure")
 
     monkeypatch.setattr(api.lists, "related", broken)
     client = TestClient(create_app(settings_for(demo)), raise_server_exceptions=False)
     caplog.set_level(logging.DEBUG)
-    answer = client.get(reading["path"], params={"viewer": reading["user"]}, headers=reader)
+    answer = client.get(reading["path"], headers=as_viewer(reading["user"]))
     assert answer.status_code == 500 and answer.json()["error"]["code"] == "internal"
     lines = _lines(caplog)
     assert any("unexpected error on GET /v1/pages/{page:path}/related" in line for line in lines), lines

@@ -133,9 +133,14 @@ def test_preview_shows_the_related_list_for_a_page(browser, served, demo, choice
 
 
 def test_preview_filters_for_the_chosen_viewer(browser, served, demo, choices):
-    shown = _show(browser, served, demo["reader"], choices["page"], choices["viewer"])
+    # naming a viewer by hand is for admin tokens (operators); a reader token is refused (api.viewers)
+    shown = _show(browser, served, demo["admin"], choices["page"], choices["viewer"])
     assert shown == choices["personal"]
     assert set(shown) & choices["restricted"]  # the viewer's group pages appear only for that viewer
+    from selenium.webdriver.common.by import By
+
+    assert _show(browser, served, demo["reader"], choices["page"], choices["viewer"]) == []
+    assert "viewer_unsigned" in browser.find_element(By.ID, "error").text
 
 
 def test_preview_keeps_the_token_for_the_tab_only(browser, served, demo, choices):
