@@ -163,6 +163,33 @@ class StoreReads:
         ids = np.fromiter((row[0] for row in found), dtype=np.int64, count=len(found))
         return ids, [row[1] for row in found], [self._inflate(row[0], row[2]) for row in found]
 
+    def page_text_batches(
+        self, field: str = "text", *, batch: int = 2000
+    ) -> Iterator[tuple[np.ndarray, list[str]]]:
+        """Row ids (ascending) and ``field`` of the present pages that have text, ``batch`` pages at a time.
+
+        ``field`` is ``"text"`` (the main text, decompressed) or ``"headings"``. Archived pages are
+        included, as in :meth:`page_texts_by_row`. A generator that holds one batch: a large wiki's
+        text is read without holding all of it. Iterate it inside one
+        :meth:`~rankrec.store.Store.reading` block, with the store open, for one snapshot.
+        """
+        if field not in ("text", "headings"):
+            raise ValueError(f"field must be 'text' or 'headings'; got {field!r}")
+        if isinstance(batch, bool) or not isinstance(batch, int) or batch < 1:
+            raise ValueError(f"batch must be a positive integer; got {batch!r}")
+        if not self._has_text_tables():
+            return
+        cursor = self.connection.execute(
+            f"SELECT page_id, {field} FROM page_text JOIN pages ON pages.id = page_id WHERE present = 1 "
+            "ORDER BY page_id"
+        )
+        while found := cursor.fetchmany(batch):
+            ids = np.fromiter((row[0] for row in found), dtype=np.int64, count=len(found))
+            if field == "text":
+                yield ids, [self._inflate(row, data) for row, data in found]
+            else:
+                yield ids, [row[1] for row in found]
+
     def _inflate(self, row: int, data: bytes) -> str:
         """A stored page text: zlib-compressed UTF-8, never read past the 64 KiB a text may hold."""
         try:

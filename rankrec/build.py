@@ -317,7 +317,7 @@ def build_from_evidence(
     started = time.perf_counter()
     text = None
     if evidence.has_text and (configuration.text_weight > 0 or configuration.ranker != "none"):
-        text = evidence.text_neighbours(configuration.title_weight, progress=progress)
+        text = evidence.text_neighbours(configuration.title_weight, progress=progress, workers=workers)
     seconds["text"] = time.perf_counter() - started
     skipped = skipped_pages(evidence, configuration.skip_pages)
     if skipped.any():  # kept out of every list as archived pages are

@@ -3,10 +3,20 @@
 The link graph (with where each link sits, for judging page chrome), the page table, access groups, page
 text, reading history, teams and topics, in the graph's dense page numbering. Offline evaluation makes the
 same object from a split's training part (:meth:`Evidence.with_views`, :meth:`Evidence.with_links`).
+
+Page text is the one part not held in memory: a wiki's text can be larger than the machine's memory
+would hold as Python strings (a million pages of 300 words are 2 GB of text, 3 GB as strings), and only
+the text neighbours read it. So ``Evidence.headings`` and ``Evidence.bodies`` of a store on disk are
+:class:`StoredText` sequences, which read the text from the store page after page each time they are
+iterated, and refuse to once the store has had an import since the evidence was read (the text may
+have changed: read the evidence again).
 """
 
 from __future__ import annotations
 
+import itertools
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -20,6 +30,60 @@ from .profiles import ViewLog
 from .store import Store
 from .text import text_neighbours
 from .topics import store_topics, text_topics
+
+
+@dataclass(frozen=True, eq=False)
+class StoredText(Sequence):
+    """One text field of every page (``"text"`` or ``"headings"``), in dense page order, read from the store
+    each time it is iterated (``""`` for a page without text); ``len`` is the number of pages.
+
+    ``row_ids`` are the graph's (page i's store row id); ``store_import`` the store's latest import when the
+    evidence was read: iterating refuses (InputError) once the store has had another. ``pages_with_text``
+    counts the pages with text (from the same snapshot).
+    """
+
+    store: str
+    store_import: int | None
+    row_ids: np.ndarray
+    field: str
+    pages_with_text: int
+    batch: int = 2000
+
+    def __len__(self) -> int:
+        return int(self.row_ids.size)
+
+    @contextmanager
+    def _reading(self) -> Iterator[Store]:
+        """The store, open in one snapshot, after checking it has had no import since the evidence's."""
+        with Store(self.store, create=False) as store, store.reading():
+            now = store.latest_import()
+            if now != self.store_import:
+                raise InputError(
+                    self.store,
+                    None,
+                    f"the store has had an import since its evidence was read (import {self.store_import} "
+                    f"then, {now} now): read it again",
+                )
+            yield store
+
+    def __iter__(self) -> Iterator[str]:
+        with self._reading() as store:
+            position = 0
+            for rows, values in store.page_text_batches(self.field, batch=self.batch):
+                for number, value in zip(dense_numbers(self.row_ids, rows).tolist(), values, strict=True):
+                    if number >= position:  # a row outside the graph is -1
+                        yield from itertools.repeat("", number - position)
+                        yield value
+                        position = number + 1
+            yield from itertools.repeat("", len(self) - position)
+
+    def __getitem__(self, index):
+        wanted = np.arange(len(self))[index]  # IndexError and slices as a list's
+        with self._reading() as store:
+            rows, headings, bodies = store.page_texts_by_row(self.row_ids[np.atleast_1d(wanted)].tolist())
+        found = dict(zip(rows.tolist(), bodies if self.field == "text" else headings, strict=True))
+        values = [found.get(row, "") for row in self.row_ids[np.atleast_1d(wanted)].tolist()]
+        return values if isinstance(index, slice) else values[0]
 
 
 @dataclass(frozen=True, eq=False)
@@ -41,8 +105,8 @@ class Evidence:
     store: str
     store_import: int | None = None
     places: LinkPlaces | None = None
-    headings: list[str] | None = None
-    bodies: list[str] | None = None
+    headings: Sequence[str] | None = None  # a list, or StoredText for a store on disk
+    bodies: Sequence[str] | None = None
     notes: tuple[str, ...] = field(default=())
     # text neighbours by title weight: the text does not change with the views or links a split keeps,
     # so the copies made by with_views/with_links share them (an evaluation builds many indexes)
@@ -106,12 +170,22 @@ class Evidence:
     def has_text(self) -> bool:
         return self.bodies is not None
 
-    def text_neighbours(self, title_weight: float, progress=None):
-        """The pages' text neighbours (:func:`rankrec.text.text_neighbours`), once per title weight."""
+    @property
+    def pages_with_text(self) -> int:
+        """How many pages have text (without reading it, for text read from a store)."""
+        if self.bodies is None:
+            return 0
+        if isinstance(self.bodies, StoredText):
+            return self.bodies.pages_with_text
+        return sum(map(bool, self.bodies))
+
+    def text_neighbours(self, title_weight: float, progress=None, workers: int = 1):
+        """The pages' text neighbours (:func:`rankrec.text.text_neighbours`), once per title weight
+        (``workers``: its processes and threads, which do not change the result)."""
         found = self._text.get(title_weight)
         if found is None:
             found = self._text[title_weight] = text_neighbours(
-                self.headings, self.bodies, title_weight=title_weight, progress=progress
+                self.headings, self.bodies, title_weight=title_weight, workers=workers, progress=progress
             )
         return found
 
@@ -166,7 +240,7 @@ def read_evidence(store: Store, *, topics: str = "spaces") -> Evidence:
         topic_sets = _topics(store, graph, topics)
         store_import = store.latest_import()
         places = _places(store, graph)
-        headings, bodies = _texts(store, graph)
+        headings, bodies = _texts(store, graph, store_import)
     return Evidence(
         graph=graph,
         titles=titles,
@@ -197,10 +271,19 @@ def _places(store: Store, graph: WikiGraph) -> LinkPlaces | None:
     return LinkPlaces(rows[keep], columns[keep], places[keep], counts[keep], names)
 
 
-def _texts(store: Store, graph: WikiGraph) -> tuple[list[str] | None, list[str] | None]:
-    rows, headings, texts = store.page_texts_by_row()
-    if rows.size == 0:
+def _texts(store: Store, graph: WikiGraph, store_import: int | None):
+    """Headings and bodies of every page: :class:`StoredText` for a store on disk, else lists (None
+    for a store without text)."""
+    pages_with_text = store.text_counts()[0]
+    if pages_with_text == 0:
         return None, None
+    if store.path != ":memory:":
+        path = str(Path(store.path).resolve())
+        return tuple(
+            StoredText(path, store_import, graph.row_ids, name, pages_with_text)
+            for name in ("headings", "text")
+        )
+    rows, headings, texts = store.page_texts_by_row()
     numbers = dense_numbers(graph.row_ids, rows)
     all_headings, all_bodies = [""] * graph.size, [""] * graph.size
     for number, heading, text in zip(numbers.tolist(), headings, texts, strict=True):

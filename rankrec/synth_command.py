@@ -41,6 +41,13 @@ def register(commands) -> None:
     synth.add_argument(
         "--access-log", action="store_true", help="also write the views as a Combined Log Format access log"
     )
+    synth.add_argument(
+        "--text-words",
+        type=float,
+        default=300,
+        metavar="W",
+        help="tables layout: mean words of invented text a page, in pages.csv (default 300; 0: no text)",
+    )
     synth.set_defaults(run=_cmd_synth)
 
 
@@ -58,6 +65,7 @@ def _cmd_synth(args: argparse.Namespace) -> int:
                 days=args.days,
                 views_per_reader=args.views_per_reader,
                 access_log=args.access_log,
+                text_words=args.text_words,
                 progress=progress,
             )
     except ValueError as error:  # synthesize checks its arguments

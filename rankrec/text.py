@@ -20,23 +20,24 @@ The rows hold every page: which pages a reader may see is for the lists that use
 from __future__ import annotations
 
 import json
+import queue
 import time
 from collections.abc import Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
 import numpy as np
 import scipy.sparse as sp
 from numba import njit
-from sklearn.feature_extraction.text import TfidfVectorizer
-from sklearn.preprocessing import normalize
 
+from ._text_vectors import TOKEN_PATTERN, page_vectors
 from ._validation import check_count, check_fraction
 from .errors import InputError
 from .progress import Progress, report
 
-TOKEN_PATTERN = r"(?u)(?<![^\W_])(?=(?:[^\W_]*?[^\W\d_]){2})[^\W_]+(?![^\W_])"
-"""Runs of letters and digits (``_`` and punctuation split them) that hold at least two letters."""
+__all__ = ["TOKEN_PATTERN", "TextNeighbours", "load_text_neighbours", "save_text_neighbours"]
+__all__ += ["similarity_of", "text_neighbours"]
 
 _FILES = "text_neighbours"
 FORMAT_VERSION = 1
@@ -69,38 +70,6 @@ class TextNeighbours:
         return int(self.similar.nnz)
 
 
-def _field(texts: Sequence[str], *, min_df: int, max_df: float, max_features: int) -> sp.csr_array:
-    """One field's TF-IDF rows (n × its vocabulary, float32, unit or zero rows)."""
-    if max_df * len(texts) < min_df:  # no word can be on at least min_df and at most max_df pages
-        return sp.csr_array((len(texts), 0), dtype=np.float32)
-    vectorizer = TfidfVectorizer(
-        token_pattern=TOKEN_PATTERN,
-        sublinear_tf=True,
-        norm="l2",
-        min_df=min_df,
-        max_df=max_df,
-        max_features=max_features,
-        dtype=np.float32,
-    )
-    try:
-        matrix = vectorizer.fit_transform(texts)
-    except ValueError:  # the settings are checked already: this is "no word left" (empty vocabulary)
-        return sp.csr_array((len(texts), 0), dtype=np.float32)
-    return sp.csr_array(matrix)
-
-
-def _combine(headings: sp.csr_array, bodies: sp.csr_array, title_weight: float) -> sp.csr_array:
-    """``[w·H, (1−w)·B]`` with unit rows (zero rows stay zero); the fields are scaled in place."""
-    headings.data *= np.float32(title_weight)
-    bodies.data *= np.float32(1.0 - title_weight)
-    combined = sp.csr_array(sp.hstack([headings, bodies], format="csr", dtype=np.float32))
-    combined.eliminate_zeros()  # a zero weight leaves explicit zeros behind
-    if combined.shape[1]:
-        normalize(combined, norm="l2", copy=False)
-    combined.sort_indices()
-    return combined
-
-
 @njit(cache=True, boundscheck=False)
 def _best(values, columns, k):  # pragma: no cover
     """Positions of the ``k`` largest ``values`` (ties to the lower column), in no particular order."""
@@ -124,28 +93,50 @@ def _best(values, columns, k):  # pragma: no cover
 
 
 @njit(cache=True, boundscheck=False)
+def _top(values, columns, k):  # pragma: no cover
+    """``_best`` of many ``values`` in [0, 1] (partial cosines): a histogram finds a bound that at least
+    ``k`` values reach, and ``_best`` picks among those alone (the same choice, ties included)."""
+    m = values.size
+    if m <= 4 * k:
+        return _best(values, columns, k)
+    bins = 1024
+    histogram = np.zeros(bins + 1, dtype=np.int64)
+    for x in range(m):
+        histogram[min(int(values[x] * bins), bins)] += 1
+    reached, edge = 0, bins
+    while edge > 0:
+        reached += histogram[edge]
+        if reached >= k:
+            break
+        edge -= 1
+    low = np.float32(edge / bins)  # every value in bin ``edge`` or above is at least this
+    pick = np.empty(m, dtype=np.int64)
+    count = 0
+    for x in range(m):
+        pick[count] = x
+        count += values[x] >= low
+    pick = pick[:count]
+    return pick[_best(values[pick], columns[pick], k)]
+
+
+@njit(cache=True, boundscheck=False, nogil=True)
 def _score_rows(  # pragma: no cover
-    first, last, indptr, indices, data, p_indptr, p_indices, p_data, frequency, budget, keep, top
+    order, indptr, indices, data, p_indptr, p_indices, p_data, frequency, budget, keep, top, work, found
 ):
-    """Pages ``first`` to ``last - 1``: each one's ``top`` best other pages (counts, columns, values).
+    """Pages ``order``: each one's ``top`` best other pages, into ``found`` (counts, columns, values:
+    page i's at ``i * top``). ``work`` is an accumulator over pages (zeros, left zero), a buffer of
+    pages and one of terms (zeros, left zero).
 
     ``indptr, indices, data`` are the page vectors (CSR, unit rows, sorted terms), ``p_*`` the
     postings (term × page) of the terms on at most ``budget`` pages, ``frequency`` each term's page
     count. A page walks the postings of its rarest terms (ties: lower term) while their page counts
-    add up to at most ``budget``, into an accumulator over pages; its ``keep`` best by that partial
-    score are, when ``keep > top``, rescored by their exact dot product and cut to ``top``.
+    add up to at most ``budget``, into the accumulator (a page's entry is 0 until touched: every
+    product is positive); its ``keep`` best by that partial score are, when ``keep > top``, rescored
+    by their exact dot product and cut to ``top``.
     """
-    pages = indptr.size - 1
-    rows = last - first
-    accumulator = np.zeros(pages, dtype=np.float32)
-    stamp = np.full(pages, -1, dtype=np.int64)
-    touched = np.empty(pages, dtype=np.int32)
-    dense = np.zeros(frequency.size, dtype=np.float32)
-    counts = np.zeros(rows, dtype=np.int64)
-    columns = np.empty(rows * top, dtype=np.int32)
-    values = np.empty(rows * top, dtype=np.float32)
-    for r in range(rows):
-        page = first + r
+    accumulator, touched, dense = work
+    counts, columns, values = found
+    for page in order:
         start, end = indptr[page], indptr[page + 1]
         m = 0
         spent = 0
@@ -157,50 +148,77 @@ def _score_rows(  # pragma: no cover
             weight = data[start + o]
             for p in range(p_indptr[term], p_indptr[term + 1]):
                 other = p_indices[p]
-                if stamp[other] != page:
-                    stamp[other] = page
-                    accumulator[other] = 0.0
-                    if other != page:
-                        touched[m] = other
-                        m += 1
+                touched[m] = other  # kept (m moves on) only if first touched: no branch to mispredict
+                m += (accumulator[other] == 0.0) & (other != page)
                 accumulator[other] += weight * p_data[p]
-        found = touched[:m].copy()
+        near = touched[:m].copy()
         scores = np.empty(m, dtype=np.float32)
         for x in range(m):
-            scores[x] = accumulator[found[x]]
-        chosen = _best(scores, found, keep)
-        found, scores = found[chosen], scores[chosen]
+            scores[x] = accumulator[near[x]]
+            accumulator[near[x]] = 0.0
+        accumulator[page] = 0.0
+        chosen = _top(scores, near, keep)
+        near, scores = near[chosen], scores[chosen]
         if keep > top:
             for k in range(start, end):
                 dense[indices[k]] = data[k]
-            for x in range(found.size):
-                other = found[x]
+            for x in range(near.size):
+                other = near[x]
                 total = 0.0
                 for k in range(indptr[other], indptr[other + 1]):
                     total += dense[indices[k]] * data[k]
                 scores[x] = total
             for k in range(start, end):
                 dense[indices[k]] = 0.0
-            chosen = _best(scores, found, top)
-            found, scores = found[chosen], scores[chosen]
+            chosen = _best(scores, near, top)
+            near, scores = near[chosen], scores[chosen]
         kept = 0
-        for x in range(found.size):
+        for x in range(near.size):
             if scores[x] > 0:
-                columns[r * top + kept] = found[x]
-                values[r * top + kept] = scores[x]
+                columns[page * top + kept] = near[x]
+                values[page * top + kept] = scores[x]
                 kept += 1
-        counts[r] = kept
-    return counts, columns, values
+        counts[page] = kept
 
 
-def _most_postings(vectors: sp.csr_array, document_frequency: np.ndarray, chunk: int) -> int:
-    """The most postings any page's terms have in all (computed chunk by chunk)."""
+@njit(cache=True, boundscheck=False)
+def _postings(indptr, indices, data, probing):  # pragma: no cover
+    """The probing terms' postings: term × page CSR (pages ascending), of the page vectors' CSR."""
+    starts = np.zeros(probing.size + 1, dtype=np.int64)
+    for k in range(indices.size):
+        if probing[indices[k]]:
+            starts[indices[k] + 1] += 1
+    starts = np.cumsum(starts)
+    fill = starts[:-1].copy()
+    pages = np.empty(starts[-1], dtype=np.int32)
+    values = np.empty(starts[-1], dtype=np.float32)
+    for page in range(indptr.size - 1):
+        for k in range(indptr[page], indptr[page + 1]):
+            term = indices[k]
+            if probing[term]:
+                pages[fill[term]] = page
+                values[fill[term]] = data[k]
+                fill[term] += 1
+    return starts, pages, values
+
+
+def _scan(vectors: sp.csr_array, document_frequency: np.ndarray, chunk: int) -> tuple[int, np.ndarray]:
+    """The most postings any page's terms have in all, and the order to score the pages in: by their
+    rarest term (ties: the lower term, then the lower page), pages without terms last. Pages on one
+    subject share rare words, so in that order consecutive pages read the same postings and candidate
+    rows, which are then still in the processor's caches (the lists do not depend on the order)."""
     most = 0
+    first_terms = np.full(vectors.shape[0], np.iinfo(np.int64).max, dtype=np.int64)
     for first in range(0, vectors.shape[0], chunk):
         block = vectors[first : first + chunk]
-        spent = np.concatenate([[0], np.cumsum(document_frequency[block.indices])])
+        frequency = document_frequency[block.indices].astype(np.int64)
+        spent = np.concatenate([[0], np.cumsum(frequency)])
         most = max(most, int(np.diff(spent[block.indptr]).max(initial=0)))
-    return most
+        filled = np.flatnonzero(np.diff(block.indptr))
+        if filled.size:
+            key = (frequency << 32) | block.indices
+            first_terms[first + filled] = np.minimum.reduceat(key, block.indptr[filled])
+    return most, np.argsort(first_terms, kind="stable")
 
 
 def _check_settings(top, title_weight, chunk, probe_postings, candidates, min_df, max_df, max_features):
@@ -228,6 +246,7 @@ def text_neighbours(
     min_df: int = 2,
     max_df: float = 0.5,
     max_features: int = 2**18,
+    workers: int = 1,
     progress: Progress | None = None,
 ) -> TextNeighbours:
     """Each page's ``top`` most similar other pages by TF-IDF cosine of its title/headings and text.
@@ -235,8 +254,9 @@ def text_neighbours(
     Parameters
     ----------
     headings, bodies : sequences of str, one per page (the same length; empty strings allowed)
-        A page's title and headings, and its main text. Each is iterated once, in order, so a lazy
-        sequence (say, decompressing page by page from the store) need not hold all the text.
+        A page's title and headings, and its main text. Each is iterated once, side by side, a batch
+        of pages at a time, so a lazy sequence (:class:`rankrec.evidence.StoredText`, decompressing
+        page by page from the store) never has all the text in memory.
     top : int
         Neighbours kept per page (30: a ten-item list still fills after pages a reader may not see
         are filtered out).
@@ -255,8 +275,12 @@ def text_neighbours(
     min_df, max_df, max_features : int, float, int
         scikit-learn's vocabulary bounds, per field: a word on fewer than ``min_df`` pages or on more
         than ``max_df`` of them is dropped, and each field keeps its ``max_features`` most frequent.
+    workers : int
+        Processes that count the text's words (this one reads the text and merges their counts) and
+        threads that score the pages; the result does not depend on it. 1 (the default) does all here.
     progress : callable, optional
-        ``progress("text neighbours", done, pages)`` after each chunk.
+        ``progress("page text", read, pages)`` after each batch of text read and counted, then
+        ``progress("text neighbours", done, pages)`` after each chunk scored.
 
     Notes
     -----
@@ -285,40 +309,48 @@ def text_neighbours(
     True
     """
     _check_settings(top, title_weight, chunk, probe_postings, candidates, min_df, max_df, max_features)
+    check_count("workers", workers)
     if len(headings) != len(bodies):
         raise ValueError(
             f"headings and bodies must have one entry per page; got {len(headings)} and {len(bodies)}"
         )
     started = time.perf_counter()
     n = len(headings)
-    bounds = {"min_df": min_df, "max_df": max_df, "max_features": max_features}
-    heading_rows = _field(headings, **bounds)
-    body_rows = _field(bodies, **bounds)
-    heading_terms, body_terms = heading_rows.shape[1], body_rows.shape[1]
-    vectors = _combine(heading_rows, body_rows, title_weight)
-    del heading_rows, body_rows
-
+    vectors, heading_terms, body_terms = page_vectors(
+        headings,
+        bodies,
+        n,
+        title_weight=title_weight,
+        min_df=min_df,
+        max_df=max_df,
+        max_features=max_features,
+        workers=workers,
+        progress=progress,
+    )
     document_frequency = np.bincount(vectors.indices, minlength=vectors.shape[1])
-    exact = _most_postings(vectors, document_frequency, chunk) <= probe_postings
-    probing = (document_frequency <= probe_postings).astype(np.float32)
-    postings = sp.csr_array(vectors @ sp.diags_array(probing)).T.tocsr()  # term × page, probing terms
+    most, order = _scan(vectors, document_frequency, chunk)
+    exact = most <= probe_postings
+    probing = document_frequency <= probe_postings
+    postings = _postings(vectors.indptr, vectors.indices, vectors.data, probing)  # term × page
     keep = top if exact else candidates
-    counts, columns, values = [np.zeros(1, dtype=np.int64)], [], []
-    arrays = [
-        getattr(matrix, name) for matrix in (vectors, postings) for name in ("indptr", "indices", "data")
-    ]
-    for first in range(0, n, chunk):
-        last = min(first + chunk, n)
-        found, where, how = _score_rows(first, last, *arrays, document_frequency, probe_postings, keep, top)
-        filled = (np.arange(top) < found[:, None]).ravel()
-        counts.append(found)
-        columns.append(where[filled])
-        values.append(how[filled])
-        report(progress, "text neighbours", last, n)
-    indptr = np.cumsum(np.concatenate(counts))
-    data = np.concatenate(values) if values else np.zeros(0, dtype=np.float32)
-    indices = np.concatenate(columns) if columns else np.zeros(0, dtype=np.int32)
-    similar = sp.csr_array((data, indices, indptr), shape=(n, n))
+    arrays = [vectors.indptr, vectors.indices, vectors.data, *postings]
+    found = (np.zeros(n, np.int64), np.empty(n * top, np.int32), np.empty(n * top, np.float32))
+    buffers: queue.SimpleQueue = queue.SimpleQueue()  # work buffers, one set a thread
+    for _ in range(min(workers, -(-n // chunk)) or 1):
+        buffers.put((np.zeros(n, np.float32), np.empty(n, np.int32), np.zeros(vectors.shape[1], np.float32)))
+
+    def score(first: int) -> None:  # each chunk writes its own pages' places of ``found``
+        work = buffers.get()
+        chosen = order[first : first + chunk]
+        _score_rows(chosen, *arrays, document_frequency, probe_postings, keep, top, work, found)
+        buffers.put(work)
+
+    with ThreadPoolExecutor(max_workers=workers) as pool:  # the kernel releases the GIL
+        for done, _ in enumerate(pool.map(score, range(0, n, chunk)), start=1):
+            report(progress, "text neighbours", min(done * chunk, n), n)
+    filled = (np.arange(top) < found[0][:, None]).ravel()
+    indptr = np.r_[0, np.cumsum(found[0])]
+    similar = sp.csr_array((found[2][filled], found[1][filled], indptr), shape=(n, n))
     similar.sort_indices()
     return TextNeighbours(
         similar=similar,

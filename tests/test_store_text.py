@@ -89,12 +89,33 @@ def test_text_reads_by_row_come_in_row_order_and_skip_missing_pages(store):
     assert store.page_texts_by_row(range(1, 1_200))[0].tolist() == sorted(rows)  # read in chunks
 
 
+def test_text_batches_come_in_row_order_and_match_the_reads_by_row(store):
+    with store.transaction():
+        for name in "edcba":
+            store.put_page(_page(name, f"text of {name}" if name != "c" else "", f"{name} heading"))
+        store.put_links([("a", "ghost", 1.0)])
+    rows, headings, texts = store.page_texts_by_row()
+    for batch in (1, 2, 10):
+        parts = list(store.page_text_batches("text", batch=batch))
+        assert [len(ids) for ids, _ in parts][:-1] == [batch] * (len(parts) - 1)
+        assert np.concatenate([ids for ids, _ in parts]).tolist() == rows.tolist()
+        assert [text for _, found in parts for text in found] == texts
+    assert [text for _, found in store.page_text_batches("headings") for text in found] == headings
+    assert len(texts) == 4  # c has no text, and the ghost is not present
+    with pytest.raises(ValueError, match="field must be 'text' or 'headings'"):
+        next(store.page_text_batches("sha256"))
+    with pytest.raises(ValueError, match="batch must be a positive integer"):
+        next(store.page_text_batches(batch=0))
+
+
 def test_damaged_stored_text_is_an_input_error(store):
     with store.transaction():
         store.put_page(_page("a", "fine"))
         store.connection.execute("UPDATE page_text SET text = ?", (b"not zlib",))
     with pytest.raises(InputError, match="stored text of page row"):
         store.page_texts_by_row()
+    with pytest.raises(InputError, match="stored text of page row"):
+        list(store.page_text_batches())
     with store.transaction():  # a compressed bomb is not inflated past what a page text may hold
         store.connection.execute("UPDATE page_text SET text = ?", (zlib.compress(b"x" * 70_000),))
     with pytest.raises(InputError, match="longer than a page text"):

@@ -340,3 +340,84 @@ def test_views_and_access_log_round_trip_through_the_readers(tables):
     assert {"asset", "crawler", "method", "status"} <= set(tally)
     named = Counter((r.user, r.page, r.timestamp) for r in logged if not r.user.startswith("anon-"))
     assert not named - Counter((r.user, r.page, r.timestamp) for r in records)
+
+
+def test_tables_carry_invented_text_the_page_reader_reads(tables):
+    pages_reader = pytest.importorskip("rankrec.sources.pages")
+    rows = _rows(tables.out_dir / "pages.csv")
+    assert list(rows[0]) == ["id", "title", "space", "tags", "groups", "archived", "text"]
+    texts = [row["text"] for row in rows]
+    assert sum(map(bool, texts)) == tables.pages_with_text
+    assert 0.97 <= tables.pages_with_text / tables.pages < 1.0  # 1% of the pages have none, by design
+    words = [text.split(" ") for text in texts if text]
+    assert 285 <= np.mean([len(page) for page in words]) <= 315  # Poisson around the default 300
+    assert all(re.fullmatch(r"[a-z]{3,9}( [a-z]{3,9})*", text) for text in texts if text)
+    records = [r for r in pages_reader.read_page_export(tables.out_dir / "pages.csv")]
+    assert not [r for r in records if isinstance(r, Exception)]
+    assert [r.text for r in records] == texts and all(r.headings == r.title for r in records)
+
+
+def test_text_is_seeded_and_changes_nothing_else(tmp_path):
+    first = synthesize(tmp_path / "a", pages=300, seed=3, layout="tables")
+    again = synthesize(tmp_path / "b", pages=300, seed=3, layout="tables")
+    bare = synthesize(tmp_path / "c", pages=300, seed=3, layout="tables", text_words=0)
+    longer = synthesize(tmp_path / "d", pages=300, seed=3, layout="tables", text_words=40)
+    assert _digests(first.out_dir) == _digests(again.out_dir)
+    assert bare.pages_with_text == 0 and "text" not in _rows(bare.out_dir / "pages.csv")[0]
+    without_text = [
+        {k: v for k, v in row.items() if k != "text"} for row in _rows(first.out_dir / "pages.csv")
+    ]
+    assert without_text == _rows(bare.out_dir / "pages.csv")
+    for name in ("links.csv", "views.csv", "teams.csv", "groups.csv"):
+        assert (first.out_dir / name).read_bytes() == (bare.out_dir / name).read_bytes(), name
+    short = [len(row["text"].split()) for row in _rows(longer.out_dir / "pages.csv")]
+    assert 30 <= np.mean(short) <= 50
+
+
+def test_pages_of_one_topic_share_words_the_rest_of_the_wiki_seldom_uses():
+    # the generator's own topics (not in the files): same-topic pages overlap far more than others
+    from rankrec.synth._text import page_texts, wiki_text
+
+    made = wiki_text(np.array([600, 400]), 200, np.random.SeedSequence(2))
+    assert made.topic.max() + 1 == 10 and (made.topic[:600] < 6).all() and (made.topic[600:] >= 6).all()
+    texts = page_texts(made.lexicon, made.counts, made.topic, 0.3, np.random.default_rng(1))
+    pages = Counter(word for text in texts for word in set(text.split()))
+    sets = [
+        {word for word in text.split() if pages[word] <= 0.1 * len(texts)} for text in texts
+    ]  # rarer words
+    same = [
+        len(sets[i] & sets[j])
+        for i in range(0, 200)
+        for j in range(i + 1, 200)
+        if made.topic[i] == made.topic[j]
+    ]
+    other = [
+        len(sets[i] & sets[j])
+        for i in range(0, 200)
+        for j in range(i + 1, 200)
+        if made.topic[i] != made.topic[j]
+    ]
+    assert np.mean(same) > 3 * np.mean(other)
+
+
+def test_word_draws_follow_the_zipf_law_exactly():
+    # the guide table is a shortcut for numpy's searchsorted over the cumulative law: the same words
+    from rankrec.synth._text import _zipf, lexicon, render
+
+    words = lexicon(3, np.random.default_rng(0), size=5000)
+    uniform = np.random.default_rng(1).random(200_000)
+    expected = np.minimum(np.searchsorted(words.overall, uniform), words.size - 1)
+    np.testing.assert_array_equal(_zipf(words, uniform), expected)
+    counts = np.array([2, 0, 3])
+    flat, lengths = render(words, np.array([0, 1, 2, 3, 4]), counts)
+    shown = [w.decode().strip() for w in words.words[:5]]
+    assert flat.tobytes().decode() == f"{shown[0]} {shown[1]}\n\n{shown[2]} {shown[3]} {shown[4]}\n"
+    assert lengths.tolist() == [len(part) + 1 for part in flat.tobytes().decode().split("\n")[:-1]]
+
+
+@pytest.mark.parametrize(
+    ("words", "error"), [(-1, ValueError), (True, TypeError), (float("nan"), ValueError)]
+)
+def test_bad_text_words_are_refused(tmp_path, words, error):
+    with pytest.raises(error, match="text_words"):
+        synthesize(tmp_path / "w", pages=20, layout="tables", text_words=words)

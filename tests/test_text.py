@@ -4,14 +4,18 @@ from __future__ import annotations
 
 import mmap
 import re
+import string
 
 import numpy as np
 import pytest
 import scipy.sparse as sp
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from sklearn.feature_extraction.text import TfidfVectorizer
 from sklearn.metrics.pairwise import cosine_similarity
 from sklearn.preprocessing import normalize
 
+from rankrec._text_vectors import RUNS, page_vectors, runs
 from rankrec.errors import InputError
 from rankrec.text import (
     TOKEN_PATTERN,
@@ -252,10 +256,15 @@ def test_tiny_wikis_have_no_neighbours(pages):
     assert (found.heading_terms, found.body_terms) == (0, 0)
 
 
-def test_progress_reports_every_chunk():
+def test_progress_reports_the_text_read_then_every_chunk():
     calls = []
     text_neighbours(HEADINGS, BODIES, chunk=5, progress=lambda *args: calls.append(args))
-    assert calls == [("text neighbours", 5, 12), ("text neighbours", 10, 12), ("text neighbours", 12, 12)]
+    assert calls == [
+        ("page text", 12, 12),
+        ("text neighbours", 5, 12),
+        ("text neighbours", 10, 12),
+        ("text neighbours", 12, 12),
+    ]
 
 
 def test_inputs_are_unchanged():
@@ -273,6 +282,7 @@ def test_inputs_are_unchanged():
         ({"max_df": 0.0}, ValueError, r"max_df must lie in \(0, 1\]"),
         ({"candidates": 5, "top": 10}, ValueError, r"candidates must be at least top \(10\); got 5"),
         ({"chunk": 0}, ValueError, "chunk must be at least 1"),
+        ({"workers": 0}, ValueError, "workers must be at least 1"),
     ],
 )
 def test_bad_settings_are_refused(settings, error, message):
@@ -283,3 +293,83 @@ def test_bad_settings_are_refused(settings, error, message):
 def test_headings_and_bodies_must_pair_up():
     with pytest.raises(ValueError, match="one entry per page; got 12 and 11"):
         text_neighbours(HEADINGS, BODIES[:-1])
+
+
+class _OnePass:
+    """A field read once: ``len`` and a single pass of ``iter``, as text streamed from a store."""
+
+    def __init__(self, items) -> None:
+        self.items, self.used = list(items), False
+
+    def __len__(self) -> int:
+        return len(self.items)
+
+    def __iter__(self):
+        assert not self.used, "read twice"
+        self.used = True
+        return iter(self.items)
+
+
+@pytest.mark.parametrize("settings", [{}, {"probe_postings": 40, "candidates": 8}], ids=["exact", "cut"])
+def test_workers_do_not_change_the_result(settings):
+    # common practice: parallelism is a speed choice, the lists must be bit for bit the same
+    headings, bodies = _random_corpus(150)
+    alone = text_neighbours(headings, bodies, top=4, chunk=7, **settings)
+    shared = text_neighbours(_OnePass(headings), _OnePass(bodies), top=4, chunk=7, workers=2, **settings)
+    for part in ("indptr", "indices", "data"):
+        np.testing.assert_array_equal(getattr(shared.similar, part), getattr(alone.similar, part))
+    assert (shared.heading_terms, shared.body_terms) == (alone.heading_terms, alone.body_terms)
+
+
+def test_text_read_once_in_one_pass_gives_the_lists_result():
+    headings, bodies = _random_corpus(120)
+    expected = text_neighbours(headings, bodies, top=5)
+    found = text_neighbours(_OnePass(headings), _OnePass(bodies), top=5)
+    for part in ("indptr", "indices", "data"):
+        np.testing.assert_array_equal(getattr(found.similar, part), getattr(expected.similar, part))
+
+
+@pytest.mark.parametrize("bounds", [{}, {"max_features": 25}, {"min_df": 3, "max_df": 0.2}], ids=str)
+@pytest.mark.parametrize("batch", [1, 7, 1000])
+def test_page_vectors_equal_scikit_learn_in_any_batch_size(bounds, batch):
+    # reference: scikit-learn's TfidfVectorizer on all the pages at once (vocabulary bounds included,
+    # max_features keeping the most frequent words), each field weighed and the rows normalised
+    headings, bodies = _random_corpus(90)
+    headings[3] = "x 7 ab_c Ünïcode—words 2024"  # runs of under two letters are no words
+    vocabulary = {"min_df": 2, "max_df": 0.5, "max_features": 2**18} | bounds
+    vectors, heading_terms, body_terms = page_vectors(
+        _OnePass(headings), _OnePass(bodies), 90, title_weight=0.3, batch=batch, **vocabulary
+    )
+    reference = [
+        TfidfVectorizer(token_pattern=TOKEN_PATTERN, sublinear_tf=True, dtype=np.float32, **vocabulary).fit(
+            texts
+        )
+        for texts in (headings, bodies)
+    ]
+    assert (heading_terms, body_terms) == tuple(len(model.vocabulary_) for model in reference)
+    fields = [model.transform(texts) for model, texts in zip(reference, (headings, bodies), strict=True)]
+    expected = normalize(sp.hstack([0.3 * fields[0], 0.7 * fields[1]]).tocsr())
+    assert vectors.dtype == np.float32 and vectors.has_sorted_indices
+    np.testing.assert_allclose(vectors.toarray(), expected.toarray(), rtol=1e-5, atol=1e-7)
+
+
+def test_page_vectors_counted_in_processes_are_the_same():
+    headings, bodies = _random_corpus(90)
+    bounds = {"title_weight": 0.3, "min_df": 2, "max_df": 0.5, "max_features": 2**18, "batch": 7}
+    here = page_vectors(headings, bodies, 90, **bounds)
+    there = page_vectors(_OnePass(headings), _OnePass(bodies), 90, workers=2, **bounds)
+    assert here[1:] == there[1:]
+    for part in ("indptr", "indices", "data"):
+        np.testing.assert_array_equal(getattr(there[0], part), getattr(here[0], part))
+
+
+def test_page_vectors_refuse_a_short_field():
+    with pytest.raises(ValueError, match="must have 5 entries each; read 4"):
+        page_vectors(["a"] * 4, ["b"] * 4, 5, title_weight=0.4, min_df=2, max_df=0.5, max_features=10)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.text(alphabet=st.characters(codec="utf-8"), max_size=60) | st.text(alphabet=string.printable))
+def test_runs_are_the_plain_patterns_runs(text):
+    # reference: Python's re module with the RUNS pattern (ASCII text takes a faster path)
+    assert runs(text) == re.findall(RUNS, text)

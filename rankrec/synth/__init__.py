@@ -37,6 +37,8 @@ from ._accesslog import write_access_log
 from ._markdown import write_markdown
 from ._people import build_people
 from ._tables import write_groups, write_links, write_pages, write_teams, write_views
+from ._text import corpus as text_corpus
+from ._text import wiki_text
 from ._views import WINDOW_END, build_views
 from ._wiki import build_wiki
 
@@ -47,12 +49,14 @@ __all__ = [
     "default_readers",
     "default_views_per_reader",
     "synthesize",
+    "text_corpus",
 ]
 
 ORGANISATION = _words.ORGANISATION
 MARKDOWN_LIMIT = 20_000  # "auto" writes Markdown up to this many pages, tables above
 MAX_PAGES = 50_000_000
 MAX_READERS = 20_000
+MAX_TEXT_WORDS = 5000  # a page's text stays well under the 64 KiB a page may keep
 _LAYOUTS = ("auto", "markdown", "tables")
 
 
@@ -67,6 +71,7 @@ class SynthSummary:
     dangling: int
     archived: int
     restricted: int
+    pages_with_text: int  # pages.csv's text column (tables layout); Markdown pages are all text
     views: int
     readers: int
     teams: int
@@ -116,7 +121,11 @@ def _check_out_dir(out_dir) -> Path:
     return path
 
 
-def _validate(out_dir, pages, seed, layout, readers, days, views_per_reader, access_log, progress):
+def _validate(out_dir, pages, seed, layout, readers, days, views_per_reader, access_log, progress, words):
+    if isinstance(words, bool) or not isinstance(words, numbers.Real):
+        raise TypeError(f"text_words must be a number, got {words!r}")
+    if not (math.isfinite(words) and 0 <= words <= MAX_TEXT_WORDS):
+        raise ValueError(f"text_words must be between 0 and {MAX_TEXT_WORDS}, got {words!r}")
     pages = _check_int("pages", pages, 10, MAX_PAGES)
     seed = _check_int("seed", seed, 0)
     if layout not in _LAYOUTS:
@@ -146,6 +155,7 @@ def synthesize(
     days: int = 90,
     views_per_reader: float | None = None,
     access_log: bool = False,
+    text_words: float = 300,
     progress: Progress | None = None,
 ) -> SynthSummary:
     """Write an invented wiki of ``pages`` pages and its reading history into ``out_dir``.
@@ -171,6 +181,11 @@ def synthesize(
         :func:`default_views_per_reader`.
     access_log : bool
         Also write ``access.log`` (Combined Log Format: the same views plus ~10% noise).
+    text_words : float
+        Tables layout: mean words of invented text a page (Poisson; 1% of pages have none), in
+        ``pages.csv``'s ``text`` column; 0 writes no text column. Words come from an invented
+        200,000-word vocabulary by Zipf laws, 30% of them from the page's topic (about 100 pages of
+        one space share a topic): :mod:`rankrec.synth._text`. Markdown pages carry their own text.
     progress : callable, optional
         Called as ``progress(step_name, done, total)`` while working.
 
@@ -179,12 +194,13 @@ def synthesize(
     SynthSummary
     """
     out_dir, pages, seed, layout, readers, days, views_per_reader = _validate(
-        out_dir, pages, seed, layout, readers, days, views_per_reader, access_log, progress
+        out_dir, pages, seed, layout, readers, days, views_per_reader, access_log, progress, text_words
     )
     if layout == "auto":
         layout = "markdown" if pages <= MARKDOWN_LIMIT else "tables"
-    # Independent streams per stage: the layout or the access log never changes the data.
-    wiki_seed, people_seed, views_seed, markdown_seed, log_seed = np.random.SeedSequence(seed).spawn(5)
+    # Independent streams per stage: the layout, the text or the access log never changes the data.
+    streams = np.random.SeedSequence(seed).spawn(6)
+    wiki_seed, people_seed, views_seed, markdown_seed, log_seed, text_seed = streams
     wiki = build_wiki(pages, np.random.default_rng(wiki_seed))
     report(progress, "pages and links", 1, 1)
     people = build_people(wiki, readers, np.random.default_rng(people_seed))
@@ -200,12 +216,17 @@ def synthesize(
     staging = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=out_dir.parent))
     try:
         files = []
+        with_text = wiki.size
         if layout == "markdown":
             (staging / "pages").mkdir()
             written = write_markdown(staging / "pages", wiki, np.random.default_rng(markdown_seed), progress)
             files += ["pages/" + name for name in written]
         else:
-            write_pages(staging / "pages.csv", wiki, progress)
+            text = None
+            if text_words > 0:
+                text = wiki_text(np.diff(wiki.space_start), float(text_words), text_seed)
+            write_pages(staging / "pages.csv", wiki, progress, text)
+            with_text = 0 if text is None else int(np.count_nonzero(text.counts))
             write_links(staging / "links.csv", wiki, progress)
             files += ["pages.csv", "links.csv"]
         write_views(staging / "views.csv", views, wiki, people, progress)
@@ -237,6 +258,7 @@ def synthesize(
         dangling=int((wiki.out_degree == 0).sum()),
         archived=int(wiki.archived.sum()),
         restricted=int((wiki.group >= 0).sum()),
+        pages_with_text=with_text,
         views=views.size,
         readers=people.size,
         teams=len(people.team_names),

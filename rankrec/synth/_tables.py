@@ -1,8 +1,8 @@
 """CSV writers for pages, links, views and memberships, formatted in large numpy chunks.
 
-No field needs quoting: ids, titles, tags, names and timestamps hold no comma, quote or
-line break (the word lists guarantee it), so each row is its fields joined by commas,
-which RFC 4180 allows unquoted.
+No field needs quoting: ids, titles, tags, names, timestamps and the invented page text hold no
+comma, quote or line break (the word lists guarantee it), so each row is its fields joined by
+commas, which RFC 4180 allows unquoted.
 """
 
 from __future__ import annotations
@@ -13,10 +13,12 @@ from pathlib import Path
 import numpy as np
 
 from ._people import People
+from ._text import WikiText
 from ._views import Views
 from ._wiki import Wiki
 
 CHUNK = 1 << 19
+TEXT_CHUNK = 1 << 14  # pages with text a chunk: about 35 MB of text
 
 
 def join_fields(*fields: np.ndarray | bytes) -> np.ndarray:
@@ -47,7 +49,8 @@ def iso_times(seconds: np.ndarray) -> np.ndarray:
     return np.strings.add(text, b"Z")
 
 
-def write_pages(path: Path, wiki: Wiki, progress=None) -> int:
+def write_pages(path: Path, wiki: Wiki, progress=None, text: WikiText | None = None) -> int:
+    """``pages.csv``; with ``text``, a last column ``text`` holds each page's invented text."""
     spaces = np.array([name.encode() for name in wiki.space_names], dtype="S")
     groups = np.array([b""] + [name.encode() for name in wiki.group_names], dtype="S")
     flags = np.array([b"false", b"true"], dtype="S")
@@ -62,7 +65,31 @@ def write_pages(path: Path, wiki: Wiki, progress=None) -> int:
             flags[wiki.archived[part].astype(np.int8)],
         )
 
-    return write_rows(path, "id,title,space,tags,groups,archived", wiki.size, make, "pages", progress)
+    header = "id,title,space,tags,groups,archived"
+    if text is None:
+        return write_rows(path, header, wiki.size, make, "pages", progress)
+    with open(path, "wb") as out:
+        out.write(header.encode() + b",text\n")
+        for number, start in enumerate(range(0, wiki.size, TEXT_CHUNK)):
+            part = slice(start, min(wiki.size, start + TEXT_CHUNK))
+            out.write(_with_text(make(part), *text.chunk(number, part)))
+            if progress is not None:
+                progress("pages", part.stop, wiki.size)
+    return wiki.size
+
+
+def _with_text(rows: np.ndarray, text: np.ndarray, lengths: np.ndarray) -> memoryview:
+    """Rows (``S``, each ending in a line break) with ``,`` and their page's text (bytes ending in a line
+    break, ``lengths`` each) in place of their line break: one buffer, written as it is."""
+    grid = rows.view(np.uint8).reshape(rows.size, -1)
+    grid[np.arange(rows.size), np.strings.str_len(rows) - 1] = ord(",")
+    fields = grid[grid != 0]
+    fields_per_row = np.strings.str_len(rows)
+    from_text = np.repeat(np.tile(np.array([False, True]), rows.size), np.c_[fields_per_row, lengths].ravel())
+    out = np.empty(from_text.size, dtype=np.uint8)
+    out[~from_text] = fields
+    out[from_text] = text
+    return memoryview(out)
 
 
 def write_links(path: Path, wiki: Wiki, progress=None) -> int:

@@ -1,11 +1,15 @@
 """Index build and list latency on a large invented wiki.
 
-Run: `python -m tests.bench.bench_recommend [--pages N] [--wiki WIKI.db] [--view-share S] [--workers W]`
+Run: `python -m tests.bench.bench_recommend [--pages N] [--wiki WIKI.db] [--view-share S] [--workers W]
+[--ranker R] [--links-only-too]`
 
-Without ``--wiki`` it writes a wiki of ``--pages`` pages with `rankrec synth` (layout "tables")
-and imports it into a fresh store (both timed); ``--wiki`` reuses a store made earlier. Then:
+Without ``--wiki`` it writes a wiki of ``--pages`` pages with `rankrec synth` (layout "tables", with
+page text) and imports it into a fresh store (both timed); ``--wiki`` reuses a store made earlier. Then:
 
-- ``rankrec build`` in a child process: wall time and peak memory (ru_maxrss of the child);
+- ``rankrec build`` in a child process: wall time, peak memory (ru_maxrss of the child) and the
+  seconds of each step (graph, global, basis, teams, text, ranker, related); with
+  ``--links-only-too`` also a build of the same store without text (``text_weight`` 0 and no ranker,
+  so no text neighbours), and the text step's seconds against that build's wall time;
 - the index's size on disk, and the time to load it (memory-mapped) in this process;
 - median and p99 time of ``related()`` (precomputed pages, pages computed on first request,
   and with a viewer), ``recommend()`` and ``landing()``, called in-process on seeded random
@@ -16,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import shutil
 import subprocess
 import sys
 import tempfile
@@ -27,14 +32,37 @@ import numpy as np
 _BUILD = """
 import json, resource, sys, time
 from rankrec.build import build_index
+from rankrec.configuration import Configuration
 from rankrec.store import Store
-wiki, target, settings = sys.argv[1], sys.argv[2], json.loads(sys.argv[3])
+wiki, target, settings, changed = sys.argv[1], sys.argv[2], json.loads(sys.argv[3]), json.loads(sys.argv[4])
 started = time.perf_counter()
 with Store(wiki, create=False) as store:
-    build_index(store, target, **settings)
+    build_index(store, target, Configuration().with_values(**changed), **settings)
 print(json.dumps({"seconds": time.perf_counter() - started,
                   "peak_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024}))
 """
+
+
+def _build(wiki: Path, target: Path, settings: dict, changed: dict) -> dict:
+    """Build in a child process (its own peak memory); wall seconds, peak MiB and the manifest's steps."""
+    from rankrec.index import load_index
+
+    done = subprocess.run(
+        [sys.executable, "-c", _BUILD, str(wiki), str(target), json.dumps(settings), json.dumps(changed)],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    build = json.loads(done.stdout)
+    manifest = load_index(target).manifest
+    return {
+        "configuration": changed or "defaults",
+        "build_seconds": round(build["seconds"], 1),
+        "build_steps": manifest.seconds,
+        "build_peak_mib": round(build["peak_bytes"] / 2**20),
+        "pages_with_text": manifest.counts.get("pages_with_text"),
+        "text_pairs": manifest.counts.get("text_pairs"),
+    }
 
 
 def _percentiles(samples: list[float]) -> dict:
@@ -100,6 +128,10 @@ def main(argv: list[str]) -> None:
     parser.add_argument("--hubs", type=int, default=32, help="hub vectors in the basis")
     parser.add_argument("--workers", type=int, default=2, help="build processes")
     parser.add_argument("--calls", type=int, default=200, help="calls per list kind")
+    parser.add_argument("--ranker", help="the configuration's ranker (default: the configuration's default)")
+    parser.add_argument(
+        "--links-only-too", action="store_true", help="also build without text, for the text step's target"
+    )
     args = parser.parse_args(argv)
     from rankrec.errors import GroupTooSmall
     from rankrec.index import load_index
@@ -113,14 +145,14 @@ def main(argv: list[str]) -> None:
             pages = store.counts()["pages"]
         share = args.view_share if args.view_share is not None else (None if pages <= 100_000 else 0.5)
         settings = {"hubs": args.hubs, "view_share": share, "workers": args.workers, "topics": "spaces"}
+        changed = {} if args.ranker is None else {"ranker": args.ranker}
+        if args.links_only_too:
+            without_text = {"ranker": "none", "text_weight": 0.0}
+            links_only = _build(wiki, workdir / "links-only", settings, without_text)
+            print(json.dumps({"links_only": True, **links_only}), flush=True)
+            shutil.rmtree(workdir / "links-only", ignore_errors=True)
         target = workdir / "index"
-        done = subprocess.run(
-            [sys.executable, "-c", _BUILD, str(wiki), str(target), json.dumps(settings)],
-            capture_output=True,
-            text=True,
-            check=True,
-        )
-        build = json.loads(done.stdout)
+        build = _build(wiki, target, settings, changed)
         real = target.resolve()
         size = sum(path.stat().st_size for path in real.rglob("*") if path.is_file())
         started = time.perf_counter()
@@ -134,9 +166,7 @@ def main(argv: list[str]) -> None:
                     "links": manifest.counts["links"],
                     "settings": settings,
                     "precomputed": manifest.counts["precomputed"],
-                    "build_seconds": round(build["seconds"], 1),
-                    "build_steps": manifest.seconds,
-                    "build_peak_mib": round(build["peak_bytes"] / 2**20),
+                    **build,
                     "index_mib": round(size / 2**20, 1),
                     "load_seconds": round(load_seconds, 3),
                 }
@@ -144,6 +174,10 @@ def main(argv: list[str]) -> None:
             flush=True,
         )
 
+        if args.links_only_too:
+            text, whole = build["build_steps"].get("text", 0.0), links_only["build_seconds"]
+            print(f"text step {text:.1f} s against the links-only build's {whole:.1f} s", flush=True)
+        print(f"load average: {Path('/proc/loadavg').read_text().split()[:3]} (2 cores, shared)", flush=True)
         rng = np.random.default_rng(5)
         row = np.asarray(index.related["row"])
         precomputed = np.flatnonzero(row >= 0)

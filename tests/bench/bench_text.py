@@ -3,90 +3,71 @@
 Run: ``python -m tests.bench.bench_text [--pages N] [--words W] [--recall-sample S]`` (``make bench``
 runs the default, 100,000 pages; ``--pages 1000000`` is the build-time target). Each page has about
 ``W`` words of text (Poisson) and 2 to 11 heading words: invented words drawn from Zipf laws (exponent
-1.1) over a 200,000-word vocabulary and over its topic's own words (see ``corpus``). Prints the time
-to make the corpus, then the neighbours' seconds (wall and CPU), pairs and the process's peak resident
-memory before and after (the corpus itself is part of both). With ``--recall-sample S`` it also scores
-S random pages against every page exactly (the same vectors, every term) and prints the share of
-their exact top lists that the neighbours hold.
+1.1) over a 200,000-word vocabulary and over its topic's own words (:func:`rankrec.synth.text_corpus`,
+the generator ``rankrec synth`` writes page text with). The corpus is generated while
+``text_neighbours`` reads it, a batch at a time, as a build streams text from the store: no page's
+text is held longer than its batch. Prints the neighbours' seconds (wall and CPU, the corpus's own
+making included; its time alone is printed first), pairs and the process's peak resident memory.
+With ``--recall-sample S`` it also scores S random pages against every page exactly (the same
+vectors, every term) and prints the share of their exact top lists that the neighbours hold.
 """
 
 from __future__ import annotations
 
 import argparse
+import itertools
 import json
 import resource
 import sys
 import time
+from operator import itemgetter
 from pathlib import Path
 
 import numpy as np
-
-LETTERS = np.array(list("abcdefghijklmnopqrstuvwxyz"))
 
 
 def _peak_mib() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 
 
-def vocabulary(size: int, rng: np.random.Generator) -> np.ndarray:
-    """``size`` distinct invented words of 3 to 9 letters, in a random order."""
-    words: dict[str, None] = {}
-    while len(words) < size:
-        for length in rng.integers(3, 10, size=size):
-            words["".join(rng.choice(LETTERS, size=int(length)))] = None
-    return np.array(list(words)[:size])
+class _Stream:
+    """A field of the corpus, read once in step with the other (``len`` and one pass of ``iter``)."""
+
+    def __init__(self, pages: int, items) -> None:
+        self.pages, self.items = pages, items
+
+    def __len__(self) -> int:
+        return self.pages
+
+    def __iter__(self):
+        return self.items
 
 
-def corpus(pages: int, words: int, seed: int = 0, size: int = 200_000, exponent: float = 1.1):
-    """Headings and bodies of ``pages`` pages on ``pages // 100`` topics, words from Zipf laws.
+def streamed(pages: int, words: float, seed: int = 0) -> tuple[_Stream, _Stream]:
+    """Headings and bodies of :func:`rankrec.synth.text_corpus`, made while they are read."""
+    from rankrec.synth import text_corpus
 
-    Each topic owns 300 words drawn from the vocabulary (Zipf-weighted within the topic); a page's
-    text takes 30% of its words from its topic and the rest from the whole vocabulary's Zipf law,
-    its headings 70% from its topic. 1% of the pages are empty.
-    """
-    rng = np.random.default_rng(seed)
-    names = vocabulary(size, rng)
-    topics = max(1, pages // 100)
-
-    def law(count: int) -> np.ndarray:
-        weights = 1.0 / np.arange(1, count + 1) ** exponent
-        return np.cumsum(weights / weights.sum())
-
-    overall, within = law(size), law(300)
-    topic_words = rng.integers(0, size, size=(topics, 300))
-
-    def draw(counts: np.ndarray, topic: np.ndarray, share: float) -> list[str]:
-        total = int(counts.sum())
-        chosen = np.minimum(np.searchsorted(overall, rng.random(total)), size - 1)
-        own = rng.random(total) < share
-        rank = np.minimum(np.searchsorted(within, rng.random(int(own.sum()))), 299)
-        chosen[own] = topic_words[np.repeat(topic, counts)[own], rank]
-        return [" ".join(part) for part in np.split(names[chosen], np.cumsum(counts)[:-1])]
-
-    headings, bodies = [], []
-    for first in range(0, pages, 10_000):
-        block = min(10_000, pages - first)
-        empty = rng.random(block) < 0.01
-        topic = rng.integers(0, topics, size=block)
-        headings += draw(np.where(empty, 0, rng.integers(2, 12, size=block)), topic, 0.7)
-        bodies += draw(np.where(empty, 0, rng.poisson(words, size=block)), topic, 0.3)
-    return headings, bodies
+    pairs = (
+        pair
+        for headings, bodies in text_corpus(pages, words, seed=seed)
+        for pair in zip(headings, bodies, strict=True)
+    )
+    first, second = itertools.tee(pairs)
+    return _Stream(pages, map(itemgetter(0), first)), _Stream(pages, map(itemgetter(1), second))
 
 
-def _recall(found, headings, bodies, sample: int, seed: int = 1) -> float:
+def _recall(found, pages: int, words: float, sample: int, seed: int = 1) -> float:
     """Share of the exact top lists (all terms scored) of ``sample`` random pages that ``found`` holds."""
-    from rankrec import text
+    from rankrec._text_vectors import page_vectors
 
     rng = np.random.default_rng(seed)
     bounds = {"min_df": 2, "max_df": 0.5, "max_features": 2**18}
-    vectors = text._combine(
-        text._field(headings, **bounds), text._field(bodies, **bounds), found.title_weight
-    )
-    pages = np.sort(rng.choice(vectors.shape[0], size=sample, replace=False))
-    scores = (vectors[pages] @ vectors.T).toarray()
-    scores[np.arange(sample), pages] = 0
+    vectors = page_vectors(*streamed(pages, words), pages, title_weight=found.title_weight, **bounds)[0]
+    chosen = np.sort(rng.choice(vectors.shape[0], size=sample, replace=False))
+    scores = (vectors[chosen] @ vectors.T).toarray()
+    scores[np.arange(sample), chosen] = 0
     hits = wanted = 0
-    for line, page in enumerate(pages):
+    for line, page in enumerate(chosen):
         best = np.argsort(-scores[line], kind="stable")[: found.top]
         best = best[scores[line, best] > 0]
         got = set(found.similar[[page]].indices.tolist())
@@ -107,19 +88,37 @@ def main(argv: list[str]) -> None:
     from rankrec.text import text_neighbours
 
     started = time.perf_counter()
-    headings, bodies = corpus(args.pages, args.words)
-    text_mib = sum(len(page) for page in bodies + headings) / 2**20
+    text_mib = sum(len(page) for page in itertools.chain.from_iterable(streamed(args.pages, args.words)[1]))
     print(
-        f"corpus: {args.pages:,} pages, {text_mib:,.0f} MiB of text, made in "
+        f"corpus: {args.pages:,} pages, {text_mib / 2**20:,.0f} MiB of text, made (and dropped) in "
         f"{time.perf_counter() - started:.1f} s; peak RSS so far {_peak_mib():,.0f} MiB",
         flush=True,
     )
     before = _peak_mib()
     cpu = time.process_time()
+    headings, bodies = streamed(args.pages, args.words)
+    steps: dict[str, list[float]] = {}
+    begun = time.perf_counter()
+
+    def progress(step: str, done: int, total: int) -> None:
+        steps.setdefault(step, []).append(time.perf_counter() - begun)
+
     found = text_neighbours(
-        headings, bodies, chunk=args.chunk, probe_postings=args.probe_postings, candidates=args.candidates
+        headings,
+        bodies,
+        chunk=args.chunk,
+        probe_postings=args.probe_postings,
+        candidates=args.candidates,
+        progress=progress,
     )
     cpu = time.process_time() - cpu
+    read, scored = steps.get("page text", [0.0]), steps.get("text neighbours", [0.0])
+    per_chunk = (scored[-1] - scored[0]) / max(len(scored) - 1, 1)
+    phases = {  # from the progress reports: text read and counted, weighed and postings, scored
+        "read_and_count_seconds": round(read[-1], 1),
+        "weigh_and_postings_seconds": round(scored[0] - per_chunk - read[-1], 1),
+        "score_seconds": round(scored[-1] - scored[0] + per_chunk, 1),
+    }
     row = {
         "pages": found.pages,
         "pairs": found.pairs,
@@ -128,6 +127,7 @@ def main(argv: list[str]) -> None:
         "exact": found.exact,
         "seconds": round(found.seconds, 1),
         "cpu_seconds": round(cpu, 1),
+        **phases,
         "peak_rss_before_mib": round(before),
         "peak_rss_mib": round(_peak_mib()),
     }
@@ -138,7 +138,7 @@ def main(argv: list[str]) -> None:
             json.dumps(
                 {
                     "recall_sample": args.recall_sample,
-                    "recall": round(_recall(found, headings, bodies, args.recall_sample), 3),
+                    "recall": round(_recall(found, args.pages, args.words, args.recall_sample), 3),
                 }
             )
         )
