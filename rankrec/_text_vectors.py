@@ -20,22 +20,30 @@ max_features=..., dtype=float32)`` gives on all the pages at once, without holdi
    field's rows, and weighed and normalised as :mod:`rankrec.text` says.
 
 Memory: the batches' counts (8 bytes an entry: float32 count, int32 word) until they are copied
-into the matrix, which frees them as it fills; then the matrix alone (8 bytes an entry).
+into the matrix, which frees them as it fills; then the matrix alone (8 bytes an entry). Once the
+counts held exceed :data:`SPILL_ENTRIES`, they go to files in a temporary folder (``tempfile``'s:
+``TMPDIR`` chooses it; 8 bytes an entry of disk, about 1.4 GB for a million pages of 300 words) and
+are read back one batch at a time, so the counts and the matrix are never in memory together.
 """
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import multiprocessing
 import re
+import tempfile
 from collections import deque
 from collections.abc import Iterable
 from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
 
 import numpy as np
 import scipy.sparse as sp
 from sklearn.feature_extraction.text import CountVectorizer, TfidfTransformer
 from sklearn.preprocessing import normalize
+
+from ._memory import release_memory
 
 TOKEN_PATTERN = r"(?u)(?<![^\W_])(?=(?:[^\W_]*?[^\W\d_]){2})[^\W_]+(?![^\W_])"
 """Runs of letters and digits (``_`` and punctuation split them) that hold at least two letters."""
@@ -46,6 +54,7 @@ _RUNS = re.compile(RUNS)
 _SEPARATORS = str.maketrans({code: " " for code in range(128) if not chr(code).isalnum()})
 BATCH = 25_000  # pages counted at a time (larger batches: less of CountVectorizer's per-call sorting)
 _ROWS = 50_000  # rows weighed at a time
+SPILL_ENTRIES = 2**24  # counts held in memory (8 bytes each) before the batches go to files
 
 
 def runs(text: str) -> list[str]:
@@ -84,7 +93,9 @@ class _Field:
     def __init__(self) -> None:
         self.ids: dict[str, int] = {}
         self.terms: list[str] = []
-        self.batches: list[sp.csr_array] = []
+        self.batches: list[sp.csr_array | Path] = []  # a Path: the batch's arrays in that file
+        self.held = 0  # entries of the batches in memory
+        self.folder: Path | None = None  # where batches go once spilled
         self.pages = np.zeros(0, dtype=np.int64)  # pages holding each term
         self.total = np.zeros(0, dtype=np.int64)  # its occurrences in all
 
@@ -104,6 +115,29 @@ class _Field:
         self.batches.append(
             sp.csr_array((counts.data, indices, counts.indptr), shape=(counts.shape[0], size))
         )
+        self.held += counts.nnz
+        if self.folder is not None:
+            self.spill(self.folder)
+
+    def spill(self, folder: Path) -> None:
+        """Write the batches held in memory to files in ``folder``, and every later batch as it comes."""
+        self.folder = folder
+        for position, batch in enumerate(self.batches):
+            if isinstance(batch, sp.csr_array):
+                path = folder / f"{id(self)}-{position}.npz"
+                np.savez(path, data=batch.data, indices=batch.indices, indptr=batch.indptr)
+                self.batches[position] = path
+        self.held = 0
+
+    def pop_batch(self) -> sp.csr_array:
+        """The first batch (read back and its file removed when spilled), let go of here."""
+        batch = self.batches.pop(0)
+        if isinstance(batch, sp.csr_array):
+            return batch
+        with np.load(batch) as arrays:
+            data, indices, indptr = arrays["data"], arrays["indices"], arrays["indptr"]
+        batch.unlink()
+        return sp.csr_array((data, indices, indptr), shape=(indptr.size - 1, len(self.terms)))
 
     def _numbers(self, terms: list[str]) -> np.ndarray:
         """Each term's number, new terms numbered next (map and zip: no Python loop over the terms)."""
@@ -168,14 +202,16 @@ def _fill(fields: list[_Field], columns: list[np.ndarray], offsets: list[int], p
         int(field.pages[: column.size][column >= 0].sum())
         for field, column in zip(fields, columns, strict=True)
     )
-    indptr = np.zeros(pages + 1, dtype=np.int64)
-    indices = np.empty(total, dtype=np.int32)
+    # one index dtype for both arrays: scipy copies int32 indices to int64 to match an int64 indptr
+    index = np.int32 if max(total, width) < 2**31 else np.int64
+    indptr = np.zeros(pages + 1, dtype=index)
+    indices = np.empty(total, dtype=index)
     data = np.empty(total, dtype=np.float32)
     row = filled = 0
     while fields[0].batches:
         parts = []
         for field, column, offset in zip(fields, columns, offsets, strict=True):
-            batch = field.batches.pop(0)
+            batch = field.pop_batch()
             where = column[batch.indices] if batch.nnz else np.zeros(0, dtype=np.int64)
             keep = where >= 0
             rows = np.repeat(np.arange(batch.shape[0]), np.diff(batch.indptr))[keep]
@@ -210,17 +246,26 @@ def page_vectors(
     hold ``pages`` entries each. With ``workers`` > 1, that many processes count the batches while
     this one reads the text and merges their counts (the result is the same).
     """
+    bounds = {"min_df": min_df, "max_df": max_df, "max_features": max_features}
+    with contextlib.ExitStack() as cleanup:
+        return _page_vectors(headings, bodies, pages, title_weight, bounds, batch, workers, progress, cleanup)
+
+
+def _page_vectors(headings, bodies, pages, title_weight, bounds, batch, workers, progress, cleanup):
     fields = [_Field(), _Field()]
     read = 0
     for heading_batch, body_batch in _counted(_batches(headings, bodies, batch), workers):
         fields[0].add(heading_batch)
         fields[1].add(body_batch)
         read += heading_batch[2].shape[0]
+        if fields[0].folder is None and fields[0].held + fields[1].held > SPILL_ENTRIES:
+            folder = Path(cleanup.enter_context(tempfile.TemporaryDirectory(prefix="rankrec-text-")))
+            for field in fields:
+                field.spill(folder)
         if progress is not None:
             progress("page text", read, pages)
     if read != pages:
         raise ValueError(f"headings and bodies must have {pages} entries each; read {read}")
-    bounds = {"min_df": min_df, "max_df": max_df, "max_features": max_features}
     columns = [field.columns(pages, **bounds) for field in fields]
     sizes = [int((column >= 0).sum()) for column in columns]
     for position, weight in enumerate((title_weight, 1.0 - title_weight)):
@@ -231,6 +276,7 @@ def page_vectors(
         return sp.csr_array((pages, width), dtype=np.float32), sizes[0], sizes[1]
     vectors = _fill(fields, columns, [0, sizes[0]], pages, width)
     del fields
+    release_memory()
     _weigh(vectors, sizes[0], title_weight)
     return vectors, sizes[0], sizes[1]
 

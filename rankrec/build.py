@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import fnmatch
 import time
+from contextlib import contextmanager
 from dataclasses import replace
 from pathlib import Path
 
@@ -26,6 +27,7 @@ import scipy.sparse as sp
 
 from ._arrays import save_csr
 from ._atomic import publish_folder
+from ._memory import release_memory
 from ._validation import check_choice, check_count, check_fraction
 from .basis import build_basis, save_basis
 from .configuration import Configuration
@@ -39,13 +41,14 @@ from .progress import Progress, report
 from .ranker.covisits import covisited_pages, session_successors
 from .ranker.features import Signals
 from .recommend.candidates import DEFAULT_K_RELATED, seed_vectors, write_related
-from .store import Store
+from .store import Store, read_store_id
 from .text import save_text_neighbours
 
 EXACT_LIMIT = 5_000  # method "auto": block power iteration up to this many pages, push above
 # site hubs (common practice: round thresholds): linked from a fifth of all pages, or from a twentieth
 # with mostly chrome links
 HUB_SHARE, CHROME_HUB_SHARE = 0.2, 0.05
+STAGES = ("graph", "global", "basis", "teams", "text", "ranker", "related")  # the manifest's seconds
 
 
 def chrome_only(evidence: Evidence) -> sp.csr_matrix | None:
@@ -203,6 +206,14 @@ def _team_vectors(evidence, transition, configuration, workers) -> tuple[list[st
     return names, vectors
 
 
+@contextmanager
+def _timed(seconds: dict[str, float], stage: str):
+    """Add the wall time of the ``with`` block to ``seconds[stage]``."""
+    started = time.perf_counter()
+    yield
+    seconds[stage] = seconds.get(stage, 0.0) + time.perf_counter() - started
+
+
 def skipped_pages(evidence: Evidence, patterns) -> np.ndarray:
     """Pages whose id matches one of the shell ``patterns`` (``fnmatch`` rules, case-sensitive)."""
     skipped = np.zeros(evidence.size, dtype=bool)
@@ -279,81 +290,82 @@ def build_from_evidence(
         raise TypeError(f"configuration must be a Configuration, not {type(configuration).__name__}")
     size = evidence.size
     damping, tol = configuration.damping, configuration.tol
-    seconds: dict[str, float] = {}
-    started = time.perf_counter()
-    adjacency, navigation = navigation_matrix(evidence, configuration)
-    transition = prepare(adjacency)
-    seconds["graph"] = time.perf_counter() - started
-    report(progress, "graph", 1, 1)
-
-    started = time.perf_counter()
-    global_vector = personalised_pagerank(transition, damping=damping, tol=min(tol, 1e-8), workers=workers)
-    seconds["global"] = time.perf_counter() - started
-    report(progress, "global PageRank", 1, 1)
-
-    started = time.perf_counter()
-    views = evidence.views.counts(size)
-    ranked = np.lexsort((np.arange(size), -global_vector.vectors, -views))
-    hub_pages = ranked[: min(hubs, size)] if hubs else np.zeros(0, dtype=np.int64)
-    basis = None
-    if evidence.topics or hub_pages.size:
-        basis = build_basis(
-            evidence.graph,
-            transition,
-            evidence.topics,
-            hub_pages,
-            damping=damping,
-            tol=tol,
-            workers=workers,
-            progress=progress,
-        )
-    seconds["basis"] = time.perf_counter() - started
-
-    started = time.perf_counter()
-    team_names, team_vectors = _team_vectors(evidence, transition, configuration, workers)
-    seconds["teams"] = time.perf_counter() - started
-    report(progress, "team vectors", 1, 1)
-
-    started = time.perf_counter()
-    text = None
-    if evidence.has_text and (configuration.text_weight > 0 or configuration.ranker != "none"):
-        text = evidence.text_neighbours(configuration.title_weight, progress=progress, workers=workers)
-    seconds["text"] = time.perf_counter() - started
+    seconds = dict.fromkeys(STAGES, 0.0)
     skipped = skipped_pages(evidence, configuration.skip_pages)
     if skipped.any():  # kept out of every list as archived pages are
         evidence = replace(evidence, archived=evidence.archived | skipped)
-    if method == "auto":
-        method = "power" if size <= EXACT_LIMIT else "push"
-
-    started = time.perf_counter()
-    chrome_share = chrome_in_share(evidence)
-    hubs = site_hubs(evidence.graph.adjacency, chrome_share)
-    ranker, ranker_summary = _ranker(evidence, configuration, text, chrome_share, method, workers, progress)
-    seconds["ranker"] = time.perf_counter() - started
-
+    views = evidence.views.counts(size)
     if related_pages is not None:
         chosen = np.unique(np.asarray(related_pages, dtype=np.int64))
         if chosen.size and (chosen[0] < 0 or chosen[-1] >= size):
             raise ValueError(f"related_pages must be page numbers in [0, {size}); got {chosen[[0, -1]]!r}")
     else:
         chosen = precomputed_pages(views, view_share)
+    if method == "auto":
+        method = "power" if size <= EXACT_LIMIT else "push"
 
     def write(staging: Path) -> None:
-        write_tables(staging, evidence, transition, global_vector.vectors, views, team_names, team_vectors)
-        if basis is not None:
-            save_basis(basis, staging / "basis")
-        if text is not None:
+        # Each part is written into the staging folder as soon as it is computed and then let go, so
+        # the peak is the evidence and one stage's work, not every part at once; text comes first,
+        # its vectoriser being the largest stage (the neighbour lists it keeps are small).
+        text = None
+        if evidence.has_text and (configuration.text_weight > 0 or configuration.ranker != "none"):
+            with _timed(seconds, "text"):
+                text = evidence.text_neighbours(
+                    configuration.title_weight, progress=progress, workers=workers
+                )
             save_text_neighbours(text, staging / "text")
+        with _timed(seconds, "graph"):
+            adjacency, navigation = navigation_matrix(evidence, configuration)
+            transition = prepare(adjacency)
+            del adjacency
+        report(progress, "graph", 1, 1)
+
+        with _timed(seconds, "global"):
+            solved = personalised_pagerank(transition, damping=damping, tol=min(tol, 1e-8), workers=workers)
+            global_vector = solved.vectors
+        report(progress, "global PageRank", 1, 1)
+
+        ranked = np.lexsort((np.arange(size), -global_vector, -views))
+        hub_pages = ranked[: min(hubs, size)] if hubs else np.zeros(0, dtype=np.int64)
+        if evidence.topics or hub_pages.size:
+            with _timed(seconds, "basis"):
+                basis = build_basis(
+                    evidence.graph,
+                    transition,
+                    evidence.topics,
+                    hub_pages,
+                    damping=damping,
+                    tol=tol,
+                    workers=workers,
+                    progress=progress,
+                )
+            save_basis(basis, staging / "basis")
+            del basis
+            release_memory()
+
+        with _timed(seconds, "teams"):
+            team_names, team_vectors = _team_vectors(evidence, transition, configuration, workers)
+        report(progress, "team vectors", 1, 1)
+        write_tables(staging, evidence, transition, global_vector, views, team_names, team_vectors)
+        del transition, solved, global_vector, team_vectors
+        release_memory()
+
+        with _timed(seconds, "ranker"):
+            chrome_share = chrome_in_share(evidence)
+            site = site_hubs(evidence.graph.adjacency, chrome_share)
+            ranker, ranker_summary = _ranker(
+                evidence, configuration, text, chrome_share, method, workers, progress
+            )
         np.save(staging / "chrome_in_share.npy", chrome_share)
-        np.save(staging / "hubs.npy", hubs)
+        np.save(staging / "hubs.npy", site)
         if ranker is not None:
             ranker.save(staging / "ranker")
             for name, matrix in zip(READING, reading_neighbours(evidence, configuration), strict=True):
                 if matrix is not None:
                     save_csr(staging, name, matrix)
-        begun = time.perf_counter()
-        write_related(staging, chosen, method, configuration, k_related, workers, progress)
-        seconds["related"] = time.perf_counter() - begun
+        with _timed(seconds, "related"):
+            write_related(staging, chosen, method, configuration, k_related, workers, progress)
         manifest = IndexManifest(
             fingerprint=evidence.graph.fingerprint,
             configuration=configuration.to_dict(),
@@ -371,15 +383,16 @@ def build_from_evidence(
                 "topics": len(evidence.topics),
                 "teams": len(team_names),
                 "hubs": int(hub_pages.size),
-                "site_hubs": int(hubs.sum()),
+                "site_hubs": int(site.sum()),
                 "precomputed": int(chosen.size),
                 "views": int(views.sum()),
                 "skipped": int(skipped.sum()),
-                "pages_with_text": 0 if evidence.bodies is None else sum(map(bool, evidence.bodies)),
+                "pages_with_text": evidence.pages_with_text,
                 "text_pairs": 0 if text is None else text.pairs,
             },
             store=evidence.store,
             store_import=evidence.store_import,
+            store_id=read_store_id(evidence.store),  # made once, never changed: any read will do
             precompute={
                 "method": method,
                 "view_share": view_share,

@@ -5,6 +5,7 @@ The CLI maps them to exit codes in one place (``rankrec.cli``).
 
 from __future__ import annotations
 
+import shlex
 from collections.abc import Sequence
 from datetime import UTC, datetime
 
@@ -101,6 +102,37 @@ class StaleBasis(StaleData):
 
 class StaleIndex(StaleData):
     what = "index"
+
+
+class ForeignIndex(StaleIndex):
+    """An index built from another wiki store than the one in hand: their store ids differ.
+
+    ``expected`` is the id of the store in hand (None: a store made before ids, not written since),
+    ``found`` the id the index's manifest records; ``index``, ``store`` and ``built_from`` are the
+    index folder, the store in hand and the store the manifest names.
+
+    >>> print(ForeignIndex(None, "5f0c2a9e77d14b1c", "idx", "b.db", "/w/a.db"))
+    index idx was built from another wiki store (/w/a.db, store id 5f0c2a9e77d1), not from b.db (store id
+    none); rebuild it with `rankrec build --wiki b.db --index idx`, or give --wiki the store it was built from
+    """
+
+    def __init__(self, expected: str | None, found: str, index: str, store: str, built_from: str) -> None:
+        self.index = str(index)
+        self.store = str(store)
+        self.built_from = str(built_from)
+        super().__init__(expected, found)
+
+    def __str__(self) -> str:
+        here = "none" if self.expected is None else self.expected[:12]
+        return (
+            f"index {self.index} was built from another wiki store ({self.built_from}, store id "
+            f"{self.found[:12]}), not from {self.store} (store id {here}); rebuild it with "
+            f"`rankrec build --wiki {shlex.quote(self.store)} --index {shlex.quote(self.index)}`, "
+            "or give --wiki the store it was built from"
+        )
+
+    def __reduce__(self):
+        return (type(self), (self.expected, self.found, self.index, self.store, self.built_from))
 
 
 class GroupTooSmall(RankrecError):

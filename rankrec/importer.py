@@ -6,6 +6,12 @@ left exactly as it was.
 
 A page's text and the places of its links go in with it: a re-imported page replaces its text
 (a source without text leaves it without) and its links' places, as it replaces its out-links.
+
+A folder of pages (Markdown, HTML) is a site, shaped as a whole before anything of it is written
+(:func:`rankrec.sources.shape_site`): the title prefix or suffix that most of its pages carry is cut
+off, and a site without folders gets its spaces from its own structure. What was found is in the
+report and in the store (:meth:`rankrec.store.Store.site_shapes`). Its files may be parsed in worker
+processes (``workers``); they come back in file order, so the store is the same as with one.
 """
 
 from __future__ import annotations
@@ -18,11 +24,11 @@ from functools import partial
 from pathlib import Path
 from typing import Any
 
-from ._validation import id_problem, quoted
+from ._validation import check_choice, check_count, id_problem, quoted
 from .errors import InputError
 from .privacy import stored_id
 from .progress import Progress, report
-from .sources import detect_format, read_source
+from .sources import SPACE_MODES, SiteShape, detect_format, read_source, shape_site
 from .sources.records import LinkRecord, MembershipRecord, PageRecord, ViewRecord
 from .store import Store
 
@@ -44,6 +50,7 @@ class ImportReport:
     error_count: int
     dropped: dict[str, int]
     seconds: float
+    site: SiteShape | None = None  # a folder of pages: what was found of its site
 
     @property
     def good(self) -> int:
@@ -62,7 +69,7 @@ class _Batch:
 
     def flush(self, store: Store, force: bool = False) -> None:
         if self.links and (force or len(self.links) >= _BATCH):
-            fresh = {source for source, _, _ in self.links} - self.cleared
+            fresh = {row[0] for row in self.links} - self.cleared
             store.clear_links_from(fresh)
             self.cleared |= fresh
             store.put_links(self.links)
@@ -108,6 +115,9 @@ def import_sources(
     error_cap: int = 1000,
     progress: Progress | None = None,
     pseudonym_key: bytes | None = None,
+    keep_title_affixes: bool = False,
+    spaces: str = "auto",
+    workers: int = 1,
     **options: Any,
 ) -> list[ImportReport]:
     """Import every source into ``store`` in one transaction and report on each.
@@ -121,10 +131,20 @@ def import_sources(
     error_cap
         How many InputErrors each report keeps (``error_count`` counts them all).
     progress
-        ``progress("importing", records handled so far, 0)`` (the total is not known in advance).
+        ``progress("importing", records handled so far, 0)`` (the total is not known in advance), and
+        for a folder of pages ``progress("parsing files", files parsed, files)``.
     pseudonym_key
         Store every user id of views and memberships as its keyed pseudonym
         (:func:`rankrec.privacy.pseudonym`), the same one the service uses with that key.
+    keep_title_affixes
+        Folders of pages: keep the titles as the pages give them, site name and all (by default the
+        prefix or suffix common to at least 60% of a folder's pages is cut off).
+    spaces
+        Folders of pages: ``auto`` (a page's first folder when most pages are in folders, else spaces
+        from the site's structure: "up" links, its table-of-contents page, file names), ``folders``
+        (first folders only) or ``none`` (no spaces from the layout).
+    workers
+        Folders of pages: processes parsing the files (1: this one). The store is the same either way.
     options
         Reader options (see :func:`rankrec.sources.read_source`).
 
@@ -134,6 +154,10 @@ def import_sources(
         In strict mode, the first bad record; otherwise when no source yielded a good record
         (the store is then left unchanged).
     """
+    check_choice("spaces", spaces, SPACE_MODES)
+    check_count("workers", workers)
+    site = {"keep_title_affixes": bool(keep_title_affixes), "spaces": spaces}
+    options = {**options, "workers": workers, "progress": progress}
     jobs = []
     for item in sources:
         path, format = (item, "auto") if isinstance(item, str | Path) else item
@@ -151,7 +175,7 @@ def import_sources(
     with store.transaction():
         for path, format in jobs:
             reports.append(
-                _import_one(store, path, format, ledger, cleared, strict, error_cap, counted, options)
+                _import_one(store, path, format, ledger, cleared, strict, error_cap, counted, site, options)
             )
         if not any(report.good for report in reports):
             first = next((error for report in reports for error in report.errors), None)
@@ -160,7 +184,9 @@ def import_sources(
     return reports
 
 
-def _import_one(store, path, format, ledger, cleared, strict, error_cap, progress, options) -> ImportReport:
+def _import_one(
+    store, path, format, ledger, cleared, strict, error_cap, progress, site, options
+) -> ImportReport:
     started = time.perf_counter()
     records: Counter[str] = Counter()
     dropped: Counter[str] = Counter()
@@ -168,7 +194,12 @@ def _import_one(store, path, format, ledger, cleared, strict, error_cap, progres
     error_count = 0
     batch = _Batch(cleared=cleared)
     pending = 0
-    for item in read_source(path, format, tally=dropped, **options):
+    items = read_source(path, format, tally=dropped, **options)
+    shape = None
+    if format in _SNAPSHOT_PAGES:  # a site: shaped as a whole (its reader holds all its pages anyway)
+        items, shape = shape_site(list(items), **site)
+        store.put_site_shape(path, shape.summary())
+    for item in items:
         if isinstance(item, InputError):
             error = item
         else:
@@ -199,6 +230,7 @@ def _import_one(store, path, format, ledger, cleared, strict, error_cap, progres
         error_count=error_count,
         dropped=dict(dropped),
         seconds=time.perf_counter() - started,
+        site=shape,
     )
 
 
@@ -238,7 +270,7 @@ def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
     elif isinstance(item, LinkRecord):
         if item.source == item.target:
             return InputError(item.origin.file, item.origin.line, f"self-link of {item.source!r} dropped")
-        batch.links.append((item.source, item.target, item.weight))
+        batch.links.append((item.source, item.target, item.weight, item.origin.file, item.origin.line))
         batch.places.extend((item.source, item.target, place, count) for place, count in item.occurrences())
     elif isinstance(item, PageRecord):
         if format in _IMPLICIT_PAGES:

@@ -2,7 +2,8 @@
 related, personal and landing lists (built by :mod:`rankrec.build`).
 
 - ``manifest.json``: format version, graph fingerprint, the whole configuration (:mod:`rankrec.configuration`)
-  and where it came from, counts, library versions, the store it was built from, what was precomputed;
+  and where it came from, counts, library versions, the store it was built from (path, latest import
+  and store id), what was precomputed;
 - the page table: ``pages.*`` and ``titles.*`` (UTF-8 blob + offsets), ``page_order.npy``
   (pages sorted, for lookups), ``row_ids.npy``, ``archived.npy``, ``space.npy`` (codes), ``views.npy``,
   ``page_groups.*`` and ``group_pages.*`` (access groups both ways, CSR);
@@ -30,7 +31,7 @@ import scipy.sparse as sp
 from ._arrays import StringTable, load_array, load_csr, load_strings, save_csr, save_strings
 from .basis import Basis, _versions, load_basis
 from .configuration import Configuration
-from .errors import InputError, StaleIndex, UnknownPage
+from .errors import ForeignIndex, InputError, StaleIndex, UnknownPage
 from .graph import WikiGraph, load_graph
 from .pagerank import Transition, push
 from .ranker.features import Signals
@@ -69,6 +70,7 @@ class IndexManifest:
     precompute: dict
     seconds: dict
     ranker: dict = field(default_factory=dict)  # the learnt ranker's training summary ({}: none)
+    store_id: str | None = None  # the id of the store built from (rankrec.store; None: older index or store)
     created: str = field(default_factory=lambda: datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"))
     versions: dict = field(default_factory=lambda: {**_versions(), "scikit-learn": _sklearn_version()})
     format_version: int = INDEX_FORMAT
@@ -363,11 +365,19 @@ class Index:
         return self.manifest.tol * damping / (1.0 - damping) + 1e-6
 
     def check_current(self, store: Store) -> None:
-        """StaleIndex unless ``store``'s graph is the one the index was built from.
+        """StaleIndex unless ``store`` is the store the index was built from, with the same graph.
 
-        When the store has had no import since the build, the graph cannot have changed and is
-        not read; otherwise it is loaded and its fingerprint compared.
+        An index whose manifest records a store id is refused with :class:`~rankrec.errors.ForeignIndex`
+        (a StaleIndex) when ``store`` has another id, or none: it was built from another store, however
+        alike their contents. Then, or for an older index without a store id, when the store has had no
+        import since the build the graph cannot have changed and is not read; otherwise it is loaded
+        and its fingerprint compared.
         """
+        built_from = self.manifest.store_id
+        if built_from is not None and store.store_id() != built_from:
+            raise ForeignIndex(
+                store.store_id(), built_from, str(self.folder), store.path, self.manifest.store
+            )
         if store.latest_import() == self.manifest.store_import:
             return
         found = load_graph(store).fingerprint

@@ -11,6 +11,8 @@ from scipy.sparse.csgraph import connected_components
 from .chrome import judge_chrome
 from .store import Store
 
+_PLACES_SHOWN = 3  # file:line places named per unresolved target or page
+
 
 def _spread(counts: np.ndarray) -> dict[str, float]:
     if counts.size == 0:
@@ -45,7 +47,14 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
     and the UTF-8 bytes of their stored text (before compression). ``chrome`` is the page-chrome
     judgement the build makes (:func:`rankrec.chrome.judge_chrome`): link occurrences with a place,
     how many are chrome and their share; ``chrome_places`` the template places, most widespread first, and
-    ``chrome_top_targets`` the pages chrome points at most.
+    ``chrome_top_targets`` the pages chrome points at most. Links: ``links`` are those between present
+    pages (the graph's), ``unresolved_links`` those to pages no source describes, ``links_total`` every
+    stored link (what `rankrec import` reads, once per page and target: the sum of the two, plus any
+    from pages no source describes); ``same_page_links`` the links of pages to themselves (section
+    anchors, their own file), counted at import and kept out of the graph. Each of the worst unresolved
+    targets, and of the pages with most unresolved links, names ``at`` the ``file:line`` of its first
+    links (by file and line) and how many more there are. ``sites`` says, for every folder of pages
+    imported, the title prefix and suffix its latest import cut off and how its spaces were found.
 
     >>> with Store(":memory:") as store:
     ...     summary = wiki_stats(store)
@@ -59,10 +68,25 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         archived = sum(archived for _, _, archived in store.page_table())
         restricted = len({page for page, _ in store.page_group_pairs()})
         users, pages, times = store.view_arrays()
-        worst_targets = store.unresolved_targets(worst)
-        worst_sources = store.pages_with_unresolved_links(worst)
+        worst_targets = [
+            (target, count, store.unresolved_link_origins(target=target, limit=_PLACES_SHOWN))
+            for target, count in store.unresolved_targets(worst)
+        ]
+        worst_sources = [
+            (page, count, store.unresolved_link_origins(source=page, limit=_PLACES_SHOWN))
+            for page, count in store.pages_with_unresolved_links(worst)
+        ]
+        links_total = store.stored_link_count()
+        same_page = store.same_page_link_count()
         with_text, text_bytes = store.text_counts()
         placed = store.link_place_arrays()
+        sites = store.site_shapes()
+    counts, summary = summary, {}
+    for key, value in counts.items():  # the link counts side by side
+        summary[key] = value
+        if key == "unresolved_links":
+            summary["links_total"] = links_total
+            summary["same_page_links"] = same_page
     n = ids.size
     rows = np.searchsorted(ids, sources)
     columns = np.searchsorted(ids, targets)
@@ -101,7 +125,27 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         "days": round((last - first) / 86400, 1) if times.size else 0.0,
     }
     summary["worst_unresolved_targets"] = [
-        {"target": target, "links": count} for target, count in worst_targets
+        {"target": target, "links": count, "at": _places(*origins)}
+        for target, count, origins in worst_targets
     ]
-    summary["pages_with_most_unresolved"] = [{"page": page, "links": count} for page, count in worst_sources]
+    summary["pages_with_most_unresolved"] = [
+        {"page": page, "links": count, "at": _places(*origins)} for page, count, origins in worst_sources
+    ]
+    fields = ("title_suffix", "title_prefix", "spaces", "space_count")
+    summary["sites"] = [
+        {"source": source, **{name: shape.get(name) for name in fields}}
+        for source, shape in sorted(sites.items())
+    ]
     return summary
+
+
+def _places(origins: list[tuple[str, int | None]], total: int) -> str:
+    """``file:line`` of the first links, and how many more: ``a.md:3, b.md and 4 more``.
+
+    >>> _places([("a.md", 3), ("b.md", None), ("b.md", None)], 6)
+    'a.md:3, b.md and 3 more'
+    """
+    named = (file if line is None else f"{file}:{line}" for file, line in origins)
+    shown = ", ".join(dict.fromkeys(named))  # links of one file without lines are named once
+    more = total - len(origins)
+    return shown + (f" and {more:,} more" if more > 0 else "")

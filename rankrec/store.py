@@ -11,12 +11,20 @@ methods run inside :meth:`Store.reading`, one snapshot.
 Page text and link places live in tables of their own (``page_text``, ``link_places``,
 ``link_occurrences``). A store made before they existed has none of them: it reads as a store
 without text or places, and its first write transaction adds the (empty) tables.
+
+Every store has a random **store id** (``meta`` key ``store_id``, 32 hex digits), made once with the
+store and never changed: an index records the id of the store it was built from, so that it is not
+served with another store whose counts happen to match (:meth:`rankrec.index.Index.check_current`).
+A store made before ids existed reads as one without an id (:meth:`Store.store_id` is None) and gets
+one in its first write transaction; a copy of the store file keeps the id (it is the same snapshot).
 """
 
 from __future__ import annotations
 
 import hashlib
+import json
 import sqlite3
+import uuid
 import zlib
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
@@ -28,6 +36,7 @@ from .errors import InputError, UnknownPage
 from .sources.records import HEADINGS_BYTES, TEXT_BYTES, clip_utf8
 
 SCHEMA_VERSION = 1
+STORE_ID_KEY = "store_id"  # the meta key of the store id (added after version 1, with no new version)
 
 # Added after version 1 came out, each table IF NOT EXISTS: older stores gain them on their next write.
 _TEXT_SCHEMA = (
@@ -46,6 +55,16 @@ _TEXT_SCHEMA = (
     occurrences INTEGER NOT NULL,
     PRIMARY KEY (source_id, target_id, place_id)
 ) WITHOUT ROWID""",
+)
+
+# Where each link was read (added after version 1): the file, interned in ``link_files``, and the line.
+_LINK_FILES = "CREATE TABLE IF NOT EXISTS link_files (id INTEGER PRIMARY KEY, file TEXT NOT NULL UNIQUE)"
+# Columns added after version 1 came out, each with a default (SQLite's ALTER TABLE ADD COLUMN): a store
+# made before them gains them on its next write transaction and reads as holding the default until then.
+_ADDED_COLUMNS = (
+    ("pages", "same_page_links", "INTEGER NOT NULL DEFAULT 0"),  # links of the page to itself, counted
+    ("links", "file_id", "INTEGER REFERENCES link_files(id)"),  # NULL: read before files were kept
+    ("links", "line", "INTEGER"),
 )
 
 _SCHEMA = """
@@ -100,6 +119,20 @@ CREATE TABLE IF NOT EXISTS imports (
 """ + "".join(statement + ";\n" for statement in _TEXT_SCHEMA)
 
 
+def new_store_id() -> str:
+    """A fresh random store id: 32 lowercase hex digits (a version 4 UUID, 122 random bits)."""
+    return uuid.uuid4().hex
+
+
+def read_store_id(path: str | Path) -> str | None:
+    """The store id of the store file at ``path``, read without writing (None: ``":memory:"``, no file
+    there, or a store made before ids existed)."""
+    if str(path) == ":memory:" or not Path(path).is_file():
+        return None
+    with Store(path, create=False) as store:
+        return store.store_id()
+
+
 class Store(StoreReads):
     """An open wiki store. Use as a context manager, or call :meth:`close`.
 
@@ -133,6 +166,9 @@ class Store(StoreReads):
         self._user_ids: dict[str, int] = {}
         self._place_ids: dict[str, int] = {}
         self._text_tables = False  # known to exist (set by the first write or read that looks)
+        self._columns_added = False  # _ADDED_COLUMNS known to exist (set like _text_tables)
+        self._file_ids: dict[str, int] = {}
+        self._identified = False  # the store id is known to be stored (set by the first write transaction)
 
     def _check_schema(self) -> None:
         existing = self.connection.execute(
@@ -144,9 +180,14 @@ class Store(StoreReads):
                 found = None if row is None else row[0]
                 raise sqlite3.DatabaseError(f"schema version {found}, this rankrec reads {SCHEMA_VERSION}")
             return
-        self.connection.executescript("BEGIN;" + _SCHEMA + "COMMIT;")
-        self.connection.execute(
-            "INSERT INTO meta (key, value) VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),)
+        # one transaction: the tables, the schema version and the store id come together or not at all
+        # (both values are digits and hex digits, safe to write as literals)
+        self.connection.executescript(
+            "BEGIN;"
+            + _SCHEMA
+            + f"INSERT INTO meta (key, value) VALUES ('schema_version', '{SCHEMA_VERSION:d}');"
+            + f"INSERT INTO meta (key, value) VALUES ('{STORE_ID_KEY}', '{new_store_id()}');"
+            + "COMMIT;"
         )
 
     # -- lifecycle -------------------------------------------------------------------------------
@@ -167,6 +208,17 @@ class Store(StoreReads):
                 for statement in _TEXT_SCHEMA:
                     self.connection.execute(statement)
                 self._text_tables = True
+            if not self._columns_added:  # migration: columns added after version 1
+                self.connection.execute(_LINK_FILES)
+                for table, column, declaration in _ADDED_COLUMNS:
+                    if column not in self._column_names(table):
+                        self.connection.execute(f"ALTER TABLE {table} ADD COLUMN {column} {declaration}")
+                self._columns_added = True
+            if not self._identified:  # migration: a store made before store ids gets one now
+                self.connection.execute(
+                    "INSERT OR IGNORE INTO meta (key, value) VALUES (?, ?)", (STORE_ID_KEY, new_store_id())
+                )
+                self._identified = True
             yield self
 
     @contextmanager
@@ -212,10 +264,24 @@ class Store(StoreReads):
             self._user_ids.clear()
             self._place_ids.clear()
             self._text_tables = False  # tables this transaction added are gone again
+            self._columns_added = False  # and so are columns
+            self._file_ids.clear()
+            self._identified = False  # and so is a store id it added
             raise_unavailable(self.path, error)
             raise
 
     # -- ids -------------------------------------------------------------------------------------
+    def store_id(self) -> str | None:
+        """The store's random id, made once with the store (None: a store made before ids existed,
+        not written since; its next write transaction gives it one). Reading never writes.
+
+        >>> with Store(":memory:") as first, Store(":memory:") as second:
+        ...     len(first.store_id()), first.store_id() != second.store_id()
+        (32, True)
+        """
+        row = self.connection.execute("SELECT value FROM meta WHERE key = ?", (STORE_ID_KEY,)).fetchone()
+        return None if row is None else str(row[0])
+
     def page_id(self, page: str) -> int:
         """Row id of ``page``, adding a not-present row for a page only referred to."""
         return self._row_id(self._page_ids, "pages", "page", page)
@@ -268,6 +334,11 @@ class Store(StoreReads):
                 page_id,
             ),
         )
+        if self._columns_added:  # known inside a transaction, where pages are put
+            self.connection.execute(
+                "UPDATE pages SET same_page_links = ? WHERE id = ?",
+                (int(getattr(record, "same_page_links", 0)), page_id),
+            )
         self.connection.execute("DELETE FROM page_tags WHERE page_id = ?", (page_id,))
         self.connection.execute("DELETE FROM page_groups WHERE page_id = ?", (page_id,))
         self.connection.executemany(
@@ -303,12 +374,30 @@ class Store(StoreReads):
         self.connection.executemany("DELETE FROM links WHERE source_id = ?", rows)
         self.connection.executemany("DELETE FROM link_occurrences WHERE source_id = ?", rows)
 
-    def put_links(self, rows: Iterable[tuple[str, str, float]]) -> None:
+    def put_links(self, rows: Iterable[tuple]) -> None:
+        """``(source, target, weight)``, or ``(source, target, weight, file, line)`` with where the link
+        was read (kept for `rankrec stats` to name; inside :meth:`transaction`, which adds the columns)."""
+        plain, placed = [], []
+        for row in rows:
+            (placed if len(row) > 3 else plain).append(row)
         self.connection.executemany(
             "INSERT INTO links (source_id, target_id, weight) VALUES (?, ?, ?) "
             "ON CONFLICT (source_id, target_id) DO UPDATE SET weight = excluded.weight",
-            [(self.page_id(source), self.page_id(target), weight) for source, target, weight in rows],
+            [(self.page_id(source), self.page_id(target), weight) for source, target, weight in plain],
         )
+        if placed:
+            self.connection.executemany(
+                "INSERT INTO links (source_id, target_id, weight, file_id, line) VALUES (?, ?, ?, ?, ?) "
+                "ON CONFLICT (source_id, target_id) DO UPDATE SET weight = excluded.weight, "
+                "file_id = excluded.file_id, line = excluded.line",
+                [
+                    (self.page_id(source), self.page_id(target), weight, self._file_id(file), line)
+                    for source, target, weight, file, line in placed
+                ],
+            )
+
+    def _file_id(self, file: str | None) -> int | None:
+        return None if file is None else self._row_id(self._file_ids, "link_files", "file", file)
 
     def put_link_places(self, rows: Iterable[tuple[str, str, str, int]]) -> None:
         """``(source, target, place, occurrences)``: how often a link sits in each place of its page."""
@@ -338,6 +427,77 @@ class Store(StoreReads):
             "INSERT INTO imports (source, format, records, errors) VALUES (?, ?, ?, ?)",
             (source, format, records, errors),
         )
+
+    def put_site_shape(self, source: str, shape: dict) -> None:
+        """Record what the import of folder ``source`` found of its site (title affixes, how its spaces
+        were found), replacing what an earlier import of it recorded (``meta`` key ``site_shape``)."""
+        shapes = self.site_shapes()
+        shapes[source] = shape
+        self.connection.execute(
+            "INSERT INTO meta (key, value) VALUES ('site_shape', ?) "
+            "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
+            (json.dumps(shapes, sort_keys=True, ensure_ascii=False),),
+        )
+
+    def site_shapes(self) -> dict[str, dict]:
+        """Folder source -> what its latest import found of its site (see :meth:`put_site_shape`)."""
+        row = self.connection.execute("SELECT value FROM meta WHERE key = 'site_shape'").fetchone()
+        return {} if row is None else dict(json.loads(row[0]))
+
+    # -- reads of what the columns added after version 1 hold ----------------------------------------
+    def _column_names(self, table: str) -> set[str]:
+        """Column names of ``table`` (a constant name)."""
+        return {row[1] for row in self.connection.execute(f"PRAGMA table_info({table})")}
+
+    def _has_added_columns(self) -> bool:
+        """True when the store has the columns added after version 1 (an older store, until written, not)."""
+        if not self._columns_added:
+            has_files = self.scalar(
+                "SELECT count(*) FROM sqlite_master WHERE type = 'table' AND name = 'link_files'"
+            )
+            self._columns_added = bool(has_files) and all(
+                column in self._column_names(table) for table, column, _ in _ADDED_COLUMNS
+            )
+        return self._columns_added
+
+    def same_page_link_count(self) -> int:
+        """Links of present pages to themselves (section anchors, their own file), counted at import."""
+        if not self._has_added_columns():
+            return 0
+        return int(self.scalar("SELECT coalesce(sum(same_page_links), 0) FROM pages WHERE present = 1"))
+
+    def stored_link_count(self) -> int:
+        """Every stored link: between present pages, to pages no source describes, and any other."""
+        return int(self.scalar("SELECT count(*) FROM links"))
+
+    def unresolved_link_origins(
+        self, *, target: str | None = None, source: str | None = None, limit: int = 3
+    ):
+        """Where the links to missing pages were read (all, or those to ``target``, or those from
+        ``source``), as ``(file, line)`` pairs, first ``limit`` by file and line, and how many there are.
+
+        The file is where the link was read, else (a store written before that was kept, or a link put
+        without it) the source page's origin; the line is None when not known.
+        """
+        where, parameters = "t.present = 0", []
+        if target is not None:
+            where, parameters = where + " AND t.page = ?", [*parameters, target]
+        if source is not None:
+            where, parameters = where + " AND s.page = ?", [*parameters, source]
+        joins = (
+            "FROM links JOIN pages AS t ON t.id = links.target_id JOIN pages AS s ON s.id = links.source_id"
+        )
+        with self.reading():
+            if self._has_added_columns():
+                select = "SELECT coalesce(f.file, s.origin) AS file, links.line AS line "
+                joins += " LEFT JOIN link_files AS f ON f.id = links.file_id"
+            else:
+                select = "SELECT s.origin AS file, NULL AS line "
+            total = self.scalar(f"SELECT count(*) {joins} WHERE {where}", tuple(parameters))
+            rows = self.connection.execute(
+                f"{select}{joins} WHERE {where} ORDER BY file, line LIMIT ?", (*parameters, limit)
+            ).fetchall()
+        return [(file, line) for file, line in rows], int(total)
 
     # -- event log upkeep (each call is its own transaction; not inside :meth:`transaction`) ------
     def append_views(self, records: Iterable, *, known_pages_only: bool = False) -> int:

@@ -31,6 +31,7 @@ import numpy as np
 import scipy.sparse as sp
 from numba import njit
 
+from ._memory import release_memory
 from ._text_vectors import TOKEN_PATTERN, page_vectors
 from ._validation import check_count, check_fraction
 from .errors import InputError
@@ -221,6 +222,30 @@ def _scan(vectors: sp.csr_array, document_frequency: np.ndarray, chunk: int) -> 
     return most, np.argsort(first_terms, kind="stable")
 
 
+def _score(vectors, document_frequency, order, probe_postings, keep, top, chunk, workers, progress):
+    """:func:`_score_rows` of every page, a chunk of ``order`` at a time in ``workers`` threads: each
+    page's count of neighbours, and ``top`` places a page of their columns and values."""
+    n = vectors.shape[0]
+    probing = document_frequency <= probe_postings
+    postings = _postings(vectors.indptr, vectors.indices, vectors.data, probing)  # term × page
+    arrays = [vectors.indptr, vectors.indices, vectors.data, *postings]
+    found = (np.zeros(n, np.int64), np.empty(n * top, np.int32), np.empty(n * top, np.float32))
+    buffers: queue.SimpleQueue = queue.SimpleQueue()  # work buffers, one set a thread
+    for _ in range(min(workers, -(-n // chunk)) or 1):
+        buffers.put((np.zeros(n, np.float32), np.empty(n, np.int32), np.zeros(vectors.shape[1], np.float32)))
+
+    def score(first: int) -> None:  # each chunk writes its own pages' places of ``found``
+        work = buffers.get()
+        chosen = order[first : first + chunk]
+        _score_rows(chosen, *arrays, document_frequency, probe_postings, keep, top, work, found)
+        buffers.put(work)
+
+    with ThreadPoolExecutor(max_workers=workers) as pool:  # the kernel releases the GIL
+        for done, _ in enumerate(pool.map(score, range(0, n, chunk)), start=1):
+            report(progress, "text neighbours", min(done * chunk, n), n)
+    return found
+
+
 def _check_settings(top, title_weight, chunk, probe_postings, candidates, min_df, max_df, max_features):
     check_count("top", top)
     check_fraction("title_weight", title_weight)
@@ -330,26 +355,14 @@ def text_neighbours(
     document_frequency = np.bincount(vectors.indices, minlength=vectors.shape[1])
     most, order = _scan(vectors, document_frequency, chunk)
     exact = most <= probe_postings
-    probing = document_frequency <= probe_postings
-    postings = _postings(vectors.indptr, vectors.indices, vectors.data, probing)  # term × page
     keep = top if exact else candidates
-    arrays = [vectors.indptr, vectors.indices, vectors.data, *postings]
-    found = (np.zeros(n, np.int64), np.empty(n * top, np.int32), np.empty(n * top, np.float32))
-    buffers: queue.SimpleQueue = queue.SimpleQueue()  # work buffers, one set a thread
-    for _ in range(min(workers, -(-n // chunk)) or 1):
-        buffers.put((np.zeros(n, np.float32), np.empty(n, np.int32), np.zeros(vectors.shape[1], np.float32)))
-
-    def score(first: int) -> None:  # each chunk writes its own pages' places of ``found``
-        work = buffers.get()
-        chosen = order[first : first + chunk]
-        _score_rows(chosen, *arrays, document_frequency, probe_postings, keep, top, work, found)
-        buffers.put(work)
-
-    with ThreadPoolExecutor(max_workers=workers) as pool:  # the kernel releases the GIL
-        for done, _ in enumerate(pool.map(score, range(0, n, chunk)), start=1):
-            report(progress, "text neighbours", min(done * chunk, n), n)
+    found = _score(vectors, document_frequency, order, probe_postings, keep, top, chunk, workers, progress)
+    del vectors, order  # the lists alone from here on
+    release_memory()
     filled = (np.arange(top) < found[0][:, None]).ravel()
-    indptr = np.r_[0, np.cumsum(found[0])]
+    # the columns' int32 for the row starts too when they fit (scipy copies int32 columns to int64 to
+    # match int64 row starts)
+    indptr = np.r_[0, np.cumsum(found[0])].astype(np.int32 if n * top < 2**31 else np.int64)
     similar = sp.csr_array((found[2][filled], found[1][filled], indptr), shape=(n, n))
     similar.sort_indices()
     return TextNeighbours(

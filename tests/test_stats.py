@@ -50,11 +50,16 @@ def test_stats_of_a_small_wiki_counted_by_hand(store):
         "last": "1970-01-04T00:00:00Z",
         "days": 3.0,
     }
+    # put without file and line, the links are named by their source pages' origin ("t")
     assert summary["worst_unresolved_targets"] == [
-        {"target": "ghost", "links": 2},
-        {"target": "void", "links": 2},
+        {"target": "ghost", "links": 2, "at": "t"},
+        {"target": "void", "links": 2, "at": "t"},
     ]
-    assert summary["pages_with_most_unresolved"] == [{"page": "c", "links": 2}, {"page": "d", "links": 2}]
+    assert summary["pages_with_most_unresolved"] == [
+        {"page": "c", "links": 2, "at": "t"},
+        {"page": "d", "links": 2, "at": "t"},
+    ]
+    assert (summary["links_total"], summary["same_page_links"]) == (8, 0)  # 3 + 5, and none put
 
 
 def test_largest_strong_component_agrees_with_networkx(tmp_path):

@@ -5,6 +5,7 @@ from __future__ import annotations
 import mmap
 import re
 import string
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -350,6 +351,8 @@ def test_page_vectors_equal_scikit_learn_in_any_batch_size(bounds, batch):
     fields = [model.transform(texts) for model, texts in zip(reference, (headings, bodies), strict=True)]
     expected = normalize(sp.hstack([0.3 * fields[0], 0.7 * fields[1]]).tocsr())
     assert vectors.dtype == np.float32 and vectors.has_sorted_indices
+    # 8 bytes an entry, as the memory notes count them: no int64 copy of the columns
+    assert vectors.indices.dtype == vectors.indptr.dtype == np.int32
     np.testing.assert_allclose(vectors.toarray(), expected.toarray(), rtol=1e-5, atol=1e-7)
 
 
@@ -361,6 +364,29 @@ def test_page_vectors_counted_in_processes_are_the_same():
     assert here[1:] == there[1:]
     for part in ("indptr", "indices", "data"):
         np.testing.assert_array_equal(getattr(there[0], part), getattr(here[0], part))
+
+
+def test_page_vectors_spilled_to_files_are_the_same_and_leave_no_file(monkeypatch, tmp_path):
+    # common practice: where the counts wait (memory or a temporary file) is a memory choice only
+    import rankrec._text_vectors as text_vectors
+
+    headings, bodies = _random_corpus(90)
+    bounds = {"title_weight": 0.3, "min_df": 2, "max_df": 0.5, "max_features": 2**18, "batch": 7}
+    here = page_vectors(headings, bodies, 90, **bounds)
+    monkeypatch.setattr(text_vectors, "SPILL_ENTRIES", 50)
+    monkeypatch.setenv("TMPDIR", str(tmp_path))
+    monkeypatch.setattr(text_vectors.tempfile, "tempdir", None)  # TMPDIR is read again
+    written = []
+    save = np.savez
+    monkeypatch.setattr(
+        text_vectors.np, "savez", lambda path, **arrays: (written.append(path), save(path, **arrays))
+    )
+    spilled = page_vectors(_OnePass(headings), _OnePass(bodies), 90, **bounds)
+    assert len(written) >= 13 and all(Path(path).is_relative_to(tmp_path) for path in written)
+    assert here[1:] == spilled[1:]
+    for part in ("indptr", "indices", "data"):
+        np.testing.assert_array_equal(getattr(spilled[0], part), getattr(here[0], part))
+    assert list(tmp_path.iterdir()) == []
 
 
 def test_page_vectors_refuse_a_short_field():

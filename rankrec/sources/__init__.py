@@ -4,7 +4,8 @@ Each reader yields :mod:`records <rankrec.sources.records>` with their provenanc
 :class:`~rankrec.errors.InputError` values for the records it skips; none of them touches the
 store or the graph. :func:`check_view` checks one view event as the views reader does (the
 service takes views in through it); :func:`parse_timestamp` reads a time as every reader does;
-:func:`check_id` is the one bound on page, user, team and group ids that every entry point applies.
+:func:`check_id` is the one bound on page, user, team and group ids that every entry point applies;
+:func:`check_base_url` checks an HTML folder's base URL before anything is read or written.
 """
 
 from __future__ import annotations
@@ -15,24 +16,38 @@ from pathlib import Path
 from typing import Any
 
 from .._validation import ID_MAX_CHARS, check_id
-from ..errors import InputError
+from ..errors import InputError, UsageError
 from ._fields import FieldError, parse_timestamp
+from ._links import ROOT_RELATIVE, SAME_PAGE, check_base_url
+from ._parallel import PARSING
+from ._site_shape import SiteShape, shape_site
+from ._site_spaces import SPACE_MODES
 from ._text import iter_lines
+from ._titles import TitleAffixes, detect_title_affixes
 from .records import Origin, Record, ViewRecord
 from .views import check_view
 
 __all__ = [
     "FORMATS",
     "ID_MAX_CHARS",
+    "ROOT_RELATIVE",
+    "SAME_PAGE",
     "FieldError",
     "Origin",
+    "PARSING",
     "Record",
+    "SPACE_MODES",
+    "SiteShape",
+    "TitleAffixes",
     "ViewRecord",
+    "check_base_url",
     "check_id",
     "check_view",
     "detect_format",
+    "detect_title_affixes",
     "parse_timestamp",
     "read_source",
+    "shape_site",
 ]
 
 FORMATS = ("markdown", "html", "edges", "pages", "views", "access-log", "teams", "groups")
@@ -80,16 +95,29 @@ def detect_format(path: str | Path) -> str:
 
 
 def _detect_folder(path: Path) -> str:
-    markdown = html = 0
+    """Markdown or HTML by the page files of the first 5,000 files below ``path`` (hidden ones left out,
+    as the readers leave them out); a folder holding both kinds is a UsageError naming one of each."""
+    found: dict[str, list[str]] = {"markdown": [], "html": []}
     for index, file in enumerate(path.rglob("*")):
+        relative = file.relative_to(path)
+        if any(part.startswith(".") for part in relative.parts):
+            continue
         suffix = file.suffix.lower()
-        markdown += suffix in _MARKDOWN
-        html += suffix in _HTML
-        if index > 5000 and (markdown or html):
+        kind = "markdown" if suffix in _MARKDOWN else "html" if suffix in _HTML else None
+        if kind is not None:
+            found[kind].append(relative.as_posix())
+        if index > 5000 and (found["markdown"] or found["html"]):
             break
+    markdown, html = found["markdown"], found["html"]
+    if markdown and html:
+        raise UsageError(
+            f"{path} holds both Markdown pages ({len(markdown):,} files such as {markdown[0]}) and HTML "
+            f"pages ({len(html):,} files such as {html[0]}); give --format markdown or --format html to "
+            "say which to read (the other kind is then left out)"
+        )
     if not (markdown or html):
         raise InputError(str(path), None, "folder holds no Markdown (.md) or HTML (.html) pages")
-    return "markdown" if markdown >= html else "html"
+    return "markdown" if markdown else "html"
 
 
 def _first_line(path: Path) -> str:
@@ -106,7 +134,10 @@ def read_source(path: str | Path, format: str, **options: Any) -> Iterator[Recor
     """Records of ``path`` read as ``format``; ``options`` that the reader does not take are ignored.
 
     Options: ``encoding`` (all), ``base_url`` and ``exclude`` (html), ``page_pattern`` and
-    ``anonymous`` (access-log), ``now`` (views, access-log; Unix seconds, for tests).
+    ``anonymous`` (access-log), ``now`` (views, access-log; Unix seconds, for tests), ``tally``
+    (markdown, html, access-log: a Counter of what is left out without being a bad record, such as
+    :data:`SAME_PAGE` and :data:`ROOT_RELATIVE` links), ``workers`` and ``progress`` (markdown, html:
+    processes parsing the files, and ``progress("parsing files", files parsed, files)``).
     """
     if format not in FORMATS:
         raise ValueError(f"format must be one of {', '.join(FORMATS)}; got {format!r}")
@@ -114,11 +145,12 @@ def read_source(path: str | Path, format: str, **options: Any) -> Iterator[Recor
     if format == "markdown":
         from .markdown import read_markdown_folder
 
-        return read_markdown_folder(path, **_pick(given, "encoding"))
+        return read_markdown_folder(path, **_pick(given, "encoding", "tally", "workers", "progress"))
     if format == "html":
         from .html import read_html_folder
 
-        return read_html_folder(path, **_pick(given, "encoding", "base_url", "exclude"))
+        picked = _pick(given, "encoding", "base_url", "exclude", "tally", "workers", "progress")
+        return read_html_folder(path, **picked)
     if format == "edges":
         from .edges import read_edge_list
 

@@ -15,7 +15,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from urllib.parse import unquote, urljoin, urlsplit
 
-from ..errors import InputError
+from .._validation import quoted
+from ..errors import InputError, UsageError
 from ._text import file_type_problem
 from .records import LinkRecord, Origin
 
@@ -29,12 +30,19 @@ JUMP = "jump"  # an in-page jump, an empty link or a script: neither a link nor 
 OUTSIDE = "outside"  # a relative path that climbs above the wiki folder: an InputError
 NOT_A_PAGE = "not-a-page"  # another file of the folder (an image, a PDF): dropped
 
+# What the folder readers count in a ``tally`` (a Counter) without it being a bad record.
+SAME_PAGE = "same-page links"  # a page's links to itself: section anchors, its own file
+ROOT_RELATIVE = "root-relative links"  # HTML ``href="/x"`` read without a base URL: left out
+
 _HEADING_CHARS = 80  # of a heading's text in a Markdown place
 _HEADING_READ = 4 * _HEADING_CHARS  # characters of a heading looked at (a heading may be long)
 
 # RFC 3986 section 3.1: scheme = ALPHA *( ALPHA / DIGIT / "+" / "-" / "." ) followed by ":".
 _SCHEME = re.compile(r"[A-Za-z][A-Za-z0-9+.\-]*:")
 # RFC 3986 appendix B: the regular expression that splits a URI reference into its five parts.
+# A host and port without a scheme ("docs.example.org:8080/x", "localhost:8000"), which RFC 3986 would
+# read as the scheme "docs.example.org" or "localhost" followed by a path: a missing scheme in practice.
+_HOST_AND_PORT = re.compile(r"[A-Za-z0-9.\-]+:[0-9]+(?:[/?#]|$)")
 _URI_PARTS = re.compile(r"^(([^:/?#]+):)?(//([^/?#]*))?([^?#]*)(\?([^#]*))?(#(.*))?")
 
 
@@ -224,16 +232,56 @@ def relative_link_target(page: str, href: str, others: Collection[str] = frozens
     return PAGE, page_id_for_path(relative)
 
 
-def check_base_url(base_url: str) -> str:
-    """``base_url`` ending with ``/``, or ValueError unless it is an absolute http(s) URL."""
+def check_base_url(base_url: str, *, name: str = "base_url") -> str:
+    """``base_url`` ending with ``/``, or UsageError (a ValueError) unless it is an absolute http(s) URL.
+
+    The message names the option ``name`` (``--base-url`` on the command line) and says what is
+    wrong: no scheme (RFC 3986 section 4.3: an absolute URI starts with one), a scheme other than
+    http or https (a ``file:`` URL names no address the pages are served at), no host, a query
+    or a fragment. Nothing is read or written before this check.
+
+    >>> check_base_url("https://docs.example.invalid/guide")
+    'https://docs.example.invalid/guide/'
+    >>> check_base_url("docs.example.invalid/guide", name="--base-url")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    rankrec.errors.UsageError: --base-url 'docs.example.invalid/guide' has no scheme; ...
+    """
     if not isinstance(base_url, str):
-        raise TypeError(f"base_url must be a string, got {base_url!r}")
-    parts = urlsplit(base_url)
-    if parts.scheme.lower() not in ("http", "https") or not parts.netloc or parts.query or parts.fragment:
-        raise ValueError(
-            f"base_url must be an absolute http(s) URL without query or fragment, got {base_url!r}"
-        )
+        raise TypeError(f"{name} must be a string, got {base_url!r}")
+    problem = _base_url_problem(base_url)
+    if problem is not None:
+        raise UsageError(f"{name} {quoted(base_url)} {problem}")
     return base_url if base_url.endswith("/") else base_url + "/"
+
+
+def _base_url_problem(base_url: str) -> str | None:
+    """Why ``base_url`` is not an absolute http(s) URL without query and fragment, or None."""
+    wanted = "give the http(s) address the folder is served at, such as 'https://docs.example.org/guide/'"
+    if not has_scheme(base_url) or _HOST_AND_PORT.match(base_url):
+        return f"has no scheme; {wanted}"
+    try:
+        parts = urlsplit(base_url)
+    except ValueError as error:  # e.g. a bad IPv6 literal
+        return f"is not a URL ({error}); {wanted}"
+    scheme = parts.scheme.lower()
+    if scheme not in ("http", "https"):
+        return f"is a {scheme}: URL, not an address pages are served at; {wanted}"
+    if not parts.netloc:
+        return f"has no host; {wanted}"
+    if parts.query or parts.fragment:
+        return "must not hold a query (?...) or fragment (#...): pages' URLs are made by adding their paths"
+    return None
+
+
+def is_root_relative(href: str) -> bool:
+    """True for a root-relative reference: a path starting with one ``/`` (RFC 3986 section 4.2
+    calls it an absolute-path reference; ``//host`` is a network-path reference, not one of these).
+
+    >>> is_root_relative("/bugs.html"), is_root_relative("//cdn.example/x"), is_root_relative("a/b")
+    (True, False, False)
+    """
+    return href.startswith("/") and not href.startswith("//")
 
 
 def _authority(scheme: str, netloc: str) -> str:

@@ -28,19 +28,24 @@ InputError naming the block's first line. A wiki link is at most 512 characters.
 from __future__ import annotations
 
 import os
+from collections import Counter
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import PurePosixPath
 
 import yaml
 
+from .._validation import check_count
 from ..blocks import strip_block
 from ..errors import InputError
+from ..progress import Progress
 from ._front_matter import Meta, read_front_matter, split_front_matter
 from ._links import (
     EXTERNAL,
+    JUMP,
     OUTSIDE,
     PAGE,
+    SAME_PAGE,
     default_space,
     folder_pages,
     heading_key,
@@ -49,6 +54,7 @@ from ._links import (
     relative_link_target,
 )
 from ._markdown_parser import WIKI, parser
+from ._parallel import parse_in_order
 from ._text import CappedText, check_encoding, read_text
 from .records import HEADINGS_BYTES, TEXT_BYTES, LinkRecord, Origin, PageRecord, clip_utf8
 
@@ -83,6 +89,7 @@ class _Walk:
         self.links: list[tuple[int | None, str, str, str]] = []
         self.errors: list[InputError] = []
         self.external: set[str] = set()
+        self.same_page = 0  # links to the page itself: section anchors, its own file
 
     def run(self, tokens) -> None:
         blocks: list[str] = []  # types of the open blocks around the current token
@@ -129,12 +136,18 @@ class _Walk:
                 line += content.count("\n", counted, offset)
                 counted = offset
             if child.type == "wikilink":
-                if child.meta["target"]:  # [[#Section]] is an in-page jump
+                if child.meta["target"]:
                     self.links.append((line, WIKI, child.meta["target"], place))
+                else:  # [[#Section]]: a section of the page itself
+                    self.same_page += 1
                 continue
             kind, value = relative_link_target(self.page, href, self.others)
-            if kind == PAGE:
+            if kind == PAGE and value == self.page:
+                self.same_page += 1  # its own file, with or without a fragment
+            elif kind == PAGE:
                 self.links.append((line, PAGE, value, place))
+            elif kind == JUMP and value.startswith("#"):
+                self.same_page += 1  # a section of the page itself
             elif kind == EXTERNAL:
                 self.external.add(value)
             elif kind == OUTSIDE:
@@ -184,6 +197,9 @@ def _parse_page(relative: str, file: str, text: str, others: set[str]) -> _Parse
     walk = _Walk(page, file, others, meta.title)
     walk.run(tokens)
     title = walk.title or PurePosixPath(relative).stem
+    itself = {page.casefold(), title.casefold()}  # a wiki link naming either is to the page itself
+    links = [link for link in walk.links if link[1] != WIKI or link[2].casefold() not in itself]
+    same_page = walk.same_page + len(walk.links) - len(links)
     headings = walk.headings.text()
     record = PageRecord(
         page=page,
@@ -196,8 +212,9 @@ def _parse_page(relative: str, file: str, text: str, others: set[str]) -> _Parse
         external_links=len(walk.external),
         text=walk.text.text(),
         headings=clip_utf8(" ".join(title.split()) + ("\n" + headings if headings else ""), HEADINGS_BYTES),
+        same_page_links=same_page,
     )
-    return _Parsed(record, walk.links, walk.errors)
+    return _Parsed(record, links, walk.errors)
 
 
 def _front_matter(yaml_text: str, file: str) -> Meta | InputError:
@@ -250,14 +267,22 @@ def _inline_text(children) -> str:
 
 
 def read_markdown_folder(
-    folder: str | os.PathLike[str], *, encoding: str = "utf-8"
+    folder: str | os.PathLike[str],
+    *,
+    encoding: str = "utf-8",
+    tally: Counter | None = None,
+    workers: int = 1,
+    progress: Progress | None = None,
 ) -> Iterator[PageRecord | LinkRecord | InputError]:
     """Yield the pages and links of a folder of Markdown files, and an InputError per bad record.
 
     Every PageRecord comes before any LinkRecord. A page with bad front matter is skipped
-    (with its links); a link leaving the folder and a link from a page to itself become
-    InputErrors; several links from a page to one target give one LinkRecord (weight 1,
-    line of the first). External links are counted in ``PageRecord.external_links``.
+    (with its links); a link leaving the folder becomes an InputError; several links from a
+    page to one target give one LinkRecord (weight 1, line of the first). External links are
+    counted in ``PageRecord.external_links``. A link from a page to itself (``#part``, its own
+    file, ``[[#Section]]``, a wiki link naming its own id or title) is no link and no bad record:
+    it is counted in ``PageRecord.same_page_links`` (and in ``tally``, if given, under
+    ``"same-page links"``).
 
     Parameters
     ----------
@@ -266,6 +291,12 @@ def read_markdown_folder(
         hidden folders and files skipped.
     encoding : str
         Text encoding of the files (a byte-order mark overrides it).
+    tally : collections.Counter or None
+        Counts what is left out without being a bad record (see above).
+    workers : int
+        Processes parsing the files (1: this one); the records are the same, in the same order.
+    progress : callable or None
+        ``progress("parsing files", files parsed, files)``.
 
     Examples
     --------
@@ -276,27 +307,35 @@ def read_markdown_folder(
     ['PageRecord', 'LinkRecord']
     """
     check_encoding(encoding)
-    return _read(folder, encoding)
+    if tally is not None and not isinstance(tally, Counter):
+        raise TypeError(f"tally must be a collections.Counter or None, got {tally!r}")
+    check_count("workers", workers)
+    return _read(folder, encoding, Counter() if tally is None else tally, workers, progress)
 
 
-def _read(folder: str | os.PathLike[str], encoding: str) -> Iterator[PageRecord | LinkRecord | InputError]:
+def _parse_file(context: tuple[str, set[str]], relative: str, file: str) -> _Parsed | InputError:
+    """One file's page and links, or why not (a module-level function: worker processes call it)."""
+    encoding, others = context
+    try:
+        text = read_text(file, encoding)
+    except InputError as error:
+        return error
+    return _parse_page(relative, file, text, others)
+
+
+def _read(
+    folder: str | os.PathLike[str], encoding: str, tally: Counter, workers: int = 1, progress=None
+) -> Iterator[PageRecord | LinkRecord | InputError]:
     files, pages = folder_pages(folder, _SUFFIXES, "Markdown")
     parsed: list[_Parsed] = []
-    for entry in pages:
-        if isinstance(entry, InputError):
-            yield entry
-            continue
-        relative, file = entry
-        try:
-            text = read_text(file, encoding)
-        except InputError as error:
-            yield error
-            continue
-        result = _parse_page(relative, file, text, files.others)
+    context = (encoding, files.others if files else set())
+    for result in parse_in_order(_parse_file, context, pages, workers=workers, progress=progress):
         if isinstance(result, InputError):
             yield result
             continue
         parsed.append(result)
+        if result.record.same_page_links:
+            tally[SAME_PAGE] += result.record.same_page_links
         yield result.record
         yield from result.errors
     if not parsed:

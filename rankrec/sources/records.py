@@ -11,6 +11,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+DEFAULT_EXCLUDE = "nav, header, footer, [role=navigation]"
+"""CSS selector of the HTML elements whose links and text are always left out (``--exclude`` adds to it);
+other site chrome is judged from where links repeat (:mod:`rankrec.chrome`)."""
+
 TEXT_BYTES = 65_536
 """Most UTF-8 bytes of a page's text that are kept (64 KiB); longer text is cut at a character."""
 HEADINGS_BYTES = 16_384
@@ -39,7 +43,11 @@ class PageRecord:
 
     ``text`` is the page's main text as plain text, whitespace collapsed (empty: the source
     gave none); ``headings`` its title and headings, one per line. Readers keep at most
-    :data:`TEXT_BYTES` and :data:`HEADINGS_BYTES` of them (:func:`clip_utf8`).
+    :data:`TEXT_BYTES` and :data:`HEADINGS_BYTES` of them (:func:`clip_utf8`). ``parent`` is the
+    page id the page names as the one above it (an HTML ``rel="up"`` link), if any: the importer
+    may give a site without folders its spaces from it; it is not stored. ``same_page_links``
+    counts the page's links to itself (a section anchor ``#part``, or its own file with or without
+    one): neither links of the graph nor bad records, only counted.
     """
 
     page: str
@@ -53,6 +61,8 @@ class PageRecord:
     external_links: int = 0
     text: str = ""
     headings: str = ""
+    parent: str | None = None
+    same_page_links: int = 0
 
 
 @dataclass(frozen=True, slots=True)
