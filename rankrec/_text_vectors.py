@@ -43,6 +43,7 @@ import scipy.sparse as sp
 from sklearn.feature_extraction.text import CountVectorizer, TfidfTransformer
 from sklearn.preprocessing import normalize
 
+from ._ascii_counts import count_ascii
 from ._memory import release_memory
 
 TOKEN_PATTERN = r"(?u)(?<![^\W_])(?=(?:[^\W_]*?[^\W\d_]){2})[^\W_]+(?![^\W_])"
@@ -73,7 +74,28 @@ def runs(text: str) -> list[str]:
 
 def count(documents: list[str]) -> tuple[list[str], np.ndarray, sp.csr_array]:
     """A batch's runs (its vocabulary), each one's column, and the pages × columns counts, by
-    scikit-learn's ``CountVectorizer`` (lower-cased, :func:`runs`)."""
+    scikit-learn's ``CountVectorizer`` (lower-cased, :func:`runs`). The ASCII pages are counted by
+    :func:`rankrec._ascii_counts.count_ascii` (the same counts, without a Python step per word), the
+    others by ``CountVectorizer``, and the two parts joined."""
+    plain = np.fromiter(map(str.isascii, documents), dtype=bool, count=len(documents))
+    parts = []
+    if plain.any():
+        found = count_ascii(documents if plain.all() else [documents[i] for i in np.flatnonzero(plain)])
+        if found is None:  # two runs with one hash: all the slow way
+            plain[:] = False
+        else:
+            parts.append((np.flatnonzero(plain), found))
+    if not plain.all():
+        rest = np.flatnonzero(~plain)
+        parts.append(
+            (rest, _vectorised(documents if rest.size == plain.size else [documents[i] for i in rest]))
+        )
+    if len(parts) == 1:
+        return parts[0][1]
+    return _joined(parts, len(documents))
+
+
+def _vectorised(documents: list[str]) -> tuple[list[str], np.ndarray, sp.csr_array]:
     counter = CountVectorizer(tokenizer=runs, token_pattern=None, dtype=np.float32)
     try:
         counts = sp.csr_array(counter.fit_transform(documents))
@@ -81,6 +103,33 @@ def count(documents: list[str]) -> tuple[list[str], np.ndarray, sp.csr_array]:
         return [], np.zeros(0, dtype=np.int64), sp.csr_array((len(documents), 0), dtype=np.float32)
     terms = list(counter.vocabulary_)
     return terms, np.fromiter(counter.vocabulary_.values(), dtype=np.int64, count=len(terms)), counts
+
+
+def _joined(parts, pages: int) -> tuple[list[str], np.ndarray, sp.csr_array]:
+    """One batch's counts from the counts of parts of its pages (``(rows, (terms, columns, counts))``)."""
+    numbers: dict[str, int] = {}
+    blocks, rows = [], []
+    for where, (terms, columns, counts) in parts:
+        column_term = np.empty(len(terms), dtype=np.int64)
+        column_term[columns] = np.arange(len(terms))
+        for term in terms:
+            numbers.setdefault(term, len(numbers))
+        term_number = np.fromiter(map(numbers.__getitem__, terms), dtype=np.int64, count=len(terms))
+        remapped = term_number[column_term[counts.indices]] if counts.nnz else counts.indices
+        blocks.append((counts.data, remapped, counts.indptr))
+        rows.append(where)
+    width = len(numbers)
+    stacked = sp.vstack(
+        [
+            sp.csr_array((data, indices, indptr), shape=(indptr.size - 1, width))
+            for data, indices, indptr in blocks
+        ],
+        format="csr",
+    )
+    order = np.empty(pages, dtype=np.int64)
+    order[np.concatenate(rows)] = np.arange(pages)
+    joined = sp.csr_array(stacked[order])
+    return list(numbers), np.arange(width, dtype=np.int64), joined
 
 
 def _count_fields(headings: list[str], bodies: list[str]):

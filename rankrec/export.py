@@ -1,17 +1,24 @@
 """Every page's related list at once: into a file (:func:`export_lists`) or into the pages of a Markdown
-wiki (:func:`write_into_wiki`).
+wiki (:func:`write_into_wiki`); every team's landing ordering into a file (:func:`export_landing`).
 
-Both ask :func:`rankrec.recommend.related` for each page's list, as the service would for a viewer in the
-given access groups (none: a public viewer, who gets lists of public pages only), in page-id order;
-archived pages and pages the viewer may not see get no list. A file is written beside its target and
-renamed over it at the end, so a failed export leaves the previous file; a page is written the same way,
-one at a time, keeping its encoding, byte-order mark, line endings and permissions.
+Related lists come from :func:`rankrec.recommend.related` for each page, as the service would answer a
+viewer in the given access groups (none: a public viewer, who gets lists of public pages only), in
+page-id order; archived pages and pages the viewer may not see get no list. Landing orderings come from
+:func:`rankrec.recommend.team_from_store` and :func:`rankrec.recommend.landing`, the path of `rankrec
+landing` and of the service, for every team of the store in name order; the pages are those every member
+may see *and* the viewer may see, as the service filters them; a team with too few distinct active
+readers gets no list and is only counted (:attr:`LandingSummary.too_few_readers`), never named by member.
+A file is written beside its target and renamed over it at the end, so a failed export leaves the
+previous file (or none); a page is written the same way, one at a time, keeping its encoding,
+byte-order mark, line endings and permissions.
 """
 
 from __future__ import annotations
 
 import csv
+import dataclasses
 import difflib
+import errno
 import hashlib
 import io
 import json
@@ -19,6 +26,7 @@ import os
 import tempfile
 import time
 from collections.abc import Callable, Iterator
+from contextlib import closing
 from dataclasses import dataclass, field
 from pathlib import Path
 from urllib.parse import quote
@@ -27,14 +35,16 @@ import numpy as np
 
 from ._validation import check_choice, check_count
 from .blocks import line_ending, link_target, render_block, with_block
-from .errors import InputError
+from .errors import GroupTooSmall, InputError, NoSpace, UsageError
 from .index import Index
 from .progress import Progress, report
-from .recommend import Reader, related
+from .recommend import Item, Reader, landing, related, team_from_store
 
 FORMATS = ("json", "jsonl", "csv")
 CSV_COLUMNS = ("page", "rank", "related_page", "title", "url", "score", "reason")
+LANDING_CSV_COLUMNS = ("team", "rank", "page", "title", "url", "score", "reason")
 _REPORT_EVERY = 500  # pages between progress reports
+_REPORT_TEAMS_EVERY = 20  # teams between progress reports
 _UTF8_BOM = b"\xef\xbb\xbf"
 
 
@@ -46,6 +56,19 @@ class ExportSummary:
     items: int
     path: str
     seconds: float
+
+
+@dataclass(frozen=True)
+class LandingSummary:
+    """What :func:`export_landing` wrote: lists (one per team), items in all, the file, the seconds it
+    took, and how many teams were left out for too few distinct active readers (fewer than ``minimum``)."""
+
+    lists: int
+    items: int
+    path: str
+    seconds: float
+    too_few_readers: int
+    minimum: int
 
 
 @dataclass(frozen=True)
@@ -91,30 +114,97 @@ def url_of(urls: dict[str, str], template: str | None) -> Callable[[str], str | 
     return urls.get
 
 
-def _listed(index: Index, groups, k: int, progress: Progress | None) -> Iterator[tuple[str, list]]:
+def _listed(index: Index, groups, k: int, progress: Progress | None) -> Iterator[tuple[str, tuple]]:
     """(page id, items) of every page the viewer may see, in page-id order."""
     reader = _viewer(groups, index.size)
     visible = index.visible(None if reader is None else reader.groups) & ~np.asarray(index.archived)
     order = np.asarray(index.page_order)
     order = order[visible[order]]
     for done, number in enumerate(order.tolist(), start=1):
-        yield index.pages[number], list(related(index, number, reader=reader, k=k).items)
+        yield index.pages[number], related(index, number, reader=reader, k=k).items
         if done % _REPORT_EVERY == 0 or done == order.size:
             report(progress, "related lists", done, int(order.size))
 
 
 def _write_atomically(path: Path, write: Callable[[io.TextIOBase], None], *, newline: str | None) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    descriptor, staging = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    """Call ``write(handle)`` on a new file beside ``path`` (0600, made with its folders), then rename it
+    over ``path``; if anything fails the staging file is removed and ``path`` is as it was. A folder or
+    file that cannot be made raises UsageError, a full disk or quota NoSpace."""
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        descriptor, staging = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    except OSError as error:
+        if error.errno in (errno.ENOSPC, errno.EDQUOT):
+            raise NoSpace(str(path)) from error
+        where = f"{error.filename}: " if error.filename and str(error.filename) != str(path) else ""
+        raise UsageError(f"cannot write {path} ({where}{error.strerror or error})") from error
     try:
         with os.fdopen(descriptor, "w", encoding="utf-8", newline=newline) as handle:
             write(handle)
             handle.flush()
             os.fsync(handle.fileno())
         os.replace(staging, path)
-    except BaseException:
+    except BaseException as error:
         Path(staging).unlink(missing_ok=True)
+        if isinstance(error, OSError) and error.errno in (errno.ENOSPC, errno.EDQUOT):
+            raise NoSpace(str(path)) from error
         raise
+
+
+def _items_of(found, url: Callable[[str], str | None]) -> list[dict]:
+    """Items as the file holds them: page id, title, URL (``url(page)``), score and reason."""
+    return [
+        {
+            "page": item.page,
+            "title": item.title,
+            "url": url(item.page),
+            "score": item.score,
+            "reason": item.reason,
+        }
+        for item in found
+    ]
+
+
+def _write_lists(
+    target: Path,
+    lists: Iterator[tuple[str, tuple[Item, ...]]],
+    *,
+    format: str,
+    subject: str,
+    columns: tuple[str, ...],
+    url: Callable[[str], str | None],
+) -> tuple[int, int]:
+    """Stream ``lists`` ((subject, items) pairs) into ``target`` atomically; (lists, items) written.
+
+    ``json``: one object, subject -> items (RFC 8259); ``jsonl``: one object per line, ``subject`` and
+    ``items`` (jsonlines.org); ``csv``: ``columns``, one row per item, the subject and rank first (RFC 4180).
+    """
+    counts = [0, 0]
+
+    def write(handle) -> None:
+        if format == "csv":
+            writer = csv.writer(handle, lineterminator="\n")
+            writer.writerow(columns)
+        elif format == "json":
+            handle.write("{")
+        for name, found in lists:
+            entries = _items_of(found, url)
+            if format == "csv":
+                for rank, item in enumerate(entries, start=1):
+                    writer.writerow([name, rank, *item.values()])
+            elif format == "jsonl":
+                handle.write(json.dumps({subject: name, "items": entries}, ensure_ascii=False) + "\n")
+            else:
+                separator = "," if counts[0] else ""
+                handle.write(f"{separator}\n{json.dumps(name, ensure_ascii=False)}: ")
+                handle.write(json.dumps(entries, ensure_ascii=False))
+            counts[0] += 1
+            counts[1] += len(entries)
+        if format == "json":
+            handle.write("\n}\n")
+
+    _write_atomically(target, write, newline="")
+    return counts[0], counts[1]
 
 
 def export_lists(
@@ -136,46 +226,73 @@ def export_lists(
     check_choice("format", format, FORMATS)
     check_count("k", k)
     started = time.perf_counter()
-    counts = [0, 0]
-
-    def items_of(found: list) -> list[dict]:
-        return [
-            {
-                "page": item.page,
-                "title": item.title,
-                "url": url(item.page),
-                "score": item.score,
-                "reason": item.reason,
-            }
-            for item in found
-        ]
-
-    def write(handle) -> None:
-        lists = _listed(index, groups, k, progress)
-        if format == "csv":
-            writer = csv.writer(handle, lineterminator="\n")
-            writer.writerow(CSV_COLUMNS)
-        elif format == "json":
-            handle.write("{")
-        for page, found in lists:
-            entries = items_of(found)
-            if format == "csv":
-                for rank, item in enumerate(entries, start=1):
-                    writer.writerow([page, rank, *item.values()])
-            elif format == "jsonl":
-                handle.write(json.dumps({"page": page, "items": entries}, ensure_ascii=False) + "\n")
-            else:
-                separator = "," if counts[0] else ""
-                handle.write(f"{separator}\n{json.dumps(page, ensure_ascii=False)}: ")
-                handle.write(json.dumps(entries, ensure_ascii=False))
-            counts[0] += 1
-            counts[1] += len(entries)
-        if format == "json":
-            handle.write("\n}\n")
-
     target = Path(path)
-    _write_atomically(target, write, newline="")
-    return ExportSummary(counts[0], counts[1], str(target), time.perf_counter() - started)
+    lists, items = _write_lists(
+        target,
+        _listed(index, groups, k, progress),
+        format=format,
+        subject="page",
+        columns=CSV_COLUMNS,
+        url=url,
+    )
+    return ExportSummary(lists, items, str(target), time.perf_counter() - started)
+
+
+def _landing_lists(
+    index: Index, store, groups, k: int, progress: Progress | None, left_out: list[int]
+) -> Iterator[tuple[str, tuple[Item, ...]]]:
+    """(team, items) of every team of ``store`` that `rankrec landing` answers, in name order, as the
+    service answers a viewer in ``groups``; teams refused for too few readers are counted in ``left_out``."""
+    audience = index.visible(groups or None)
+    with store.reading():  # every team's members, views and groups from one snapshot
+        names = store.names_of("team")
+        for done, name in enumerate(names, start=1):
+            try:
+                team = team_from_store(store, index, name)
+            except GroupTooSmall:
+                left_out[0] += 1
+            else:
+                team = dataclasses.replace(team, visible=team.visible & audience)
+                yield name, landing(index, team, k=k).items
+            if done % _REPORT_TEAMS_EVERY == 0 or done == len(names):
+                report(progress, "landing lists", done, len(names))
+
+
+def export_landing(
+    index: Index,
+    store,
+    path: str | Path,
+    *,
+    format: str = "json",
+    groups: frozenset[str] | None = None,
+    k: int = 20,
+    url: Callable[[str], str | None] = lambda page: None,
+    progress: Progress | None = None,
+) -> LandingSummary:
+    """Write every team's landing ordering to ``path`` (see the module docstring) and say what was written.
+
+    ``store`` is the store ``index`` was built from (checked current by the caller). ``format``: ``json``
+    (one object, team -> its items), ``jsonl`` (one object per line: ``team`` and ``items``) or ``csv``
+    (:data:`LANDING_CSV_COLUMNS`, one row per item). Items are those of :func:`export_lists`; reasons are
+    the landing reasons, which band how many of a team read a page and never name a reader.
+    """
+    check_choice("format", format, FORMATS)
+    check_count("k", k)
+    started = time.perf_counter()
+    target = Path(path)
+    left_out = [0]
+    with closing(_landing_lists(index, store, groups, k, progress, left_out)) as landings:
+        lists, items = _write_lists(
+            target, landings, format=format, subject="team", columns=LANDING_CSV_COLUMNS, url=url
+        )
+    return LandingSummary(
+        lists,
+        items,
+        str(target),
+        time.perf_counter() - started,
+        too_few_readers=left_out[0],
+        minimum=index.configuration.team_min_readers,
+    )
 
 
 # -- into a Markdown wiki ----------------------------------------------------------------------------
@@ -310,7 +427,9 @@ def _replace_page(path: Path, data: bytes) -> None:
 __all__ = [
     "FORMATS",
     "ExportSummary",
+    "LandingSummary",
     "WikiSummary",
+    "export_landing",
     "export_lists",
     "stored_page_hashes",
     "url_of",

@@ -1,4 +1,5 @@
-"""``rankrec export``: every page's related list into a file, or into the pages of a Markdown wiki."""
+"""``rankrec export``: every page's related list into a file or into the pages of a Markdown wiki; every
+team's landing ordering into a file (``--teams``)."""
 
 from __future__ import annotations
 
@@ -6,7 +7,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from ._cli_common import open_index, step_bars
+from ._cli_common import list_urls, open_index, step_bars
 from .export import FORMATS
 
 _SHOWN_DIFFS = 3  # files whose whole diff a dry run prints (the others are counted)
@@ -16,15 +17,19 @@ def register(commands) -> None:
     """Add the ``export`` sub-command."""
     export = commands.add_parser(
         "export",
-        help="write every page's related list to a file, or into the pages of a Markdown wiki",
+        help="write every page's related list (or, with --teams, every team's landing ordering) to a file, "
+        "or related lists into the pages of a Markdown wiki",
         description=(
             "Ask the index for every page's related list, as the service answers a viewer in the given "
             "access groups (none: a public viewer, public pages only). With --out: one file, JSON (page "
             "-> items), JSON Lines or CSV, each item with page id, title, URL, score and reason. With "
             "--into: a 'Related pages' block between two comment markers in each Markdown page of the "
             "folder, replacing the previous block or appended; links are relative, so they resolve in the "
-            "folder and in a site generator; the next import does not read the block's links. Files are "
-            "replaced atomically; pages changed since the import are left alone and named."
+            "folder and in a site generator; the next import does not read the block's links. With --teams "
+            "and --out: every team's landing ordering instead (team -> items), as `rankrec landing TEAM` "
+            "makes it, keeping only pages the viewer may see too; teams with too few distinct active "
+            "readers get no list and are only counted. Files are replaced atomically; pages changed since "
+            "the import are left alone and named."
         ),
     )
     export.add_argument("--index", required=True, help="the index folder (written by `rankrec build`)")
@@ -32,6 +37,11 @@ def register(commands) -> None:
     target = export.add_mutually_exclusive_group(required=True)
     target.add_argument("--out", metavar="FILE", help="write the lists to FILE")
     target.add_argument("--into", metavar="WIKI_DIR", help="write a related block into each Markdown page")
+    export.add_argument(
+        "--teams",
+        action="store_true",
+        help="with --out: every team's landing ordering (as `rankrec landing` makes it), not related lists",
+    )
     export.add_argument(
         "--format",
         choices=FORMATS,
@@ -44,7 +54,9 @@ def register(commands) -> None:
         metavar="G",
         help="lists as a viewer in access group G sees them (repeat for several groups)",
     )
-    export.add_argument("-k", type=int, default=10, help="items per list (10)")
+    export.add_argument(
+        "-k", type=int, metavar="K", help="items per list (default 10; with --teams 20, as `rankrec landing`)"
+    )
     export.add_argument(
         "--url-template",
         metavar="T",
@@ -66,15 +78,25 @@ def _format(args: argparse.Namespace) -> str:
 
 def _cmd_export(args: argparse.Namespace) -> int:
     from .errors import UsageError
-    from .export import export_lists, stored_page_hashes, url_of, write_into_wiki
+    from .export import export_lists, stored_page_hashes, write_into_wiki
 
     if args.into is None and args.dry_run:
         raise UsageError("--dry-run goes with --into (an export to a file writes nothing else)")
+    if args.teams and args.out is None:
+        raise UsageError("--teams goes with --out (landing orderings are written to a file)")
+    if args.k is None:
+        args.k = 20 if args.teams else 10
+    if args.k < 1:
+        raise UsageError(f"-k must be at least 1; got {args.k}")
+    if args.url_template is not None and "{page}" not in args.url_template:
+        raise UsageError(f"--url-template must hold {{page}}; got {args.url_template!r}")
     index, store = open_index(args, need_store=True)
     groups = frozenset(args.viewer_group) or None
     with store, step_bars() as progress:
+        if args.teams:
+            return _export_landing(args, index, store, groups, progress)
         if args.out is not None:
-            url = url_of(store.page_urls(), args.url_template)
+            url = list_urls(args, store)
             done = export_lists(
                 index, args.out, format=_format(args), groups=groups, k=args.k, url=url, progress=progress
             )
@@ -106,4 +128,30 @@ def _cmd_export(args: argparse.Namespace) -> int:
         print(f"left alone, changed since the import: {relative}", file=sys.stderr)
     for problem in done.unreadable:
         print(f"left alone, unreadable: {problem}", file=sys.stderr)
+    return 0
+
+
+def _export_landing(args: argparse.Namespace, index, store, groups, progress) -> int:
+    """``--teams``: every team's landing ordering into ``--out``; left-out teams counted on stderr."""
+    from .export import export_landing
+
+    done = export_landing(
+        index,
+        store,
+        args.out,
+        format=_format(args),
+        groups=groups,
+        k=args.k,
+        url=list_urls(args, store),
+        progress=progress,
+    )
+    print(
+        f"{done.lists:,} landing lists, {done.items:,} items written to {done.path} in {done.seconds:.1f} s"
+    )
+    if done.too_few_readers:
+        teams = "team" if done.too_few_readers == 1 else "teams"
+        print(
+            f"{done.too_few_readers:,} {teams} left out: fewer than {done.minimum} distinct active readers",
+            file=sys.stderr,
+        )
     return 0

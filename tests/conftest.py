@@ -22,3 +22,15 @@ def require_shared(*parts: str) -> Path:
 def shared_data():
     """The ``require_shared`` function, as a fixture."""
     return require_shared
+
+
+def write_files(folder: Path, files: dict[str, str | bytes]) -> Path:
+    """Write ``files`` (relative name -> text, UTF-8, or bytes) below ``folder``; return ``folder``."""
+    for name, content in files.items():
+        path = folder / name
+        path.parent.mkdir(parents=True, exist_ok=True)
+        if isinstance(content, bytes):
+            path.write_bytes(content)
+        else:
+            path.write_text(content, encoding="utf-8")
+    return folder

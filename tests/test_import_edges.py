@@ -24,14 +24,7 @@ from rankrec.sources.markdown import read_markdown_folder
 from rankrec.sources.records import LinkRecord, PageRecord
 from rankrec.stats import wiki_stats
 from rankrec.store import Store
-
-
-def write(folder: Path, files: dict[str, str]) -> Path:
-    for name, text in files.items():
-        path = folder / name
-        path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_text(text, encoding="utf-8")
-    return folder
+from tests.conftest import write_files as write
 
 
 def stats_json(wiki: Path, capsys) -> dict:

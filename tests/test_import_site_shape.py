@@ -26,20 +26,13 @@ from rankrec.importer import import_sources
 from rankrec.sources import detect_title_affixes as detect
 from rankrec.stats import wiki_stats
 from rankrec.store import Store
+from tests.conftest import write_files as _write
 
 SPHINX_SUFFIX = " &#8212; Fenwick Orchard 2.4 handbook"
 
 
 def _page(title: str, body: str = "", head: str = "") -> str:
     return f"<html><head><title>{title}</title>{head}</head><body>{body}</body></html>\n"
-
-
-def _write(folder: Path, pages: dict[str, str]) -> Path:
-    for name, markup in pages.items():
-        path = folder / name
-        path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_text(markup, encoding="utf-8")
-    return folder
 
 
 def _titles_and_spaces(store: Store) -> dict[str, tuple[str, str | None]]:

@@ -399,3 +399,66 @@ def test_page_vectors_refuse_a_short_field():
 def test_runs_are_the_plain_patterns_runs(text):
     # reference: Python's re module with the RUNS pattern (ASCII text takes a faster path)
     assert runs(text) == re.findall(RUNS, text)
+
+
+def _counted_pages(result) -> list[dict[str, float]]:
+    words, columns, counts = result
+    word_of = np.empty(len(words), dtype=object)
+    word_of[columns] = words
+    counts = sp.csr_array(counts)
+    return [
+        dict(zip(word_of[counts.indices[start:end]].tolist(), counts.data[start:end].tolist(), strict=True))
+        for start, end in zip(counts.indptr[:-1], counts.indptr[1:], strict=True)
+    ]
+
+
+_PIECES = [
+    "Disk",
+    "disk",
+    "QUOTA",
+    "ipv6",
+    "k8s_net",
+    "2024",
+    "a",
+    "—",
+    "Größe",
+    "café",
+    "x-y",
+    "\n",
+    "  ",
+    "İstanbul",
+]
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_batch_counts_equal_count_vectorizer_on_ascii_and_mixed_pages(seed):
+    # reference: scikit-learn's CountVectorizer (lower-cased, the runs tokenizer) on the same pages:
+    # the ASCII pages take the compiled path, the others CountVectorizer's, and the two are joined
+    from sklearn.feature_extraction.text import CountVectorizer
+
+    from rankrec._text_vectors import count
+
+    rng = np.random.default_rng(seed)
+    pages = ["".join(rng.choice(_PIECES, size=rng.integers(0, 30))) + " " for _ in range(60)]
+    if seed % 2:
+        pages = [page.encode("ascii", "ignore").decode() for page in pages]  # all ASCII
+    model = CountVectorizer(tokenizer=runs, token_pattern=None)
+    expected = model.fit_transform(pages)
+    reference = (list(model.vocabulary_), np.array(list(model.vocabulary_.values())), expected)
+    assert _counted_pages(count(pages)) == _counted_pages(reference)
+
+
+def test_batch_counts_fall_back_when_two_runs_share_a_hash(monkeypatch):
+    # common practice: a hash is checked, never trusted; forced here to report a clash
+    import rankrec._ascii_counts as ascii_counts
+    from rankrec._text_vectors import count
+
+    pages = ["disk quota disk", "quota printer", ""]
+    expected = _counted_pages(count(pages))
+    monkeypatch.setattr(ascii_counts, "_one_run_per_hash", lambda *arrays: False)
+    assert ascii_counts.count_ascii(pages) is None
+    assert (
+        _counted_pages(count(pages))
+        == expected
+        == [{"disk": 2.0, "quota": 1.0}, {"quota": 1.0, "printer": 1.0}, {}]
+    )

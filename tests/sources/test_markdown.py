@@ -14,17 +14,7 @@ from hypothesis import strategies as st
 from rankrec.errors import InputError
 from rankrec.sources.markdown import _parse_page, read_markdown_folder
 from rankrec.sources.records import LinkRecord, PageRecord
-
-
-def write(folder: Path, files: dict[str, str | bytes]) -> Path:
-    for name, content in files.items():
-        path = folder / name
-        path.parent.mkdir(parents=True, exist_ok=True)
-        if isinstance(content, bytes):
-            path.write_bytes(content)
-        else:
-            path.write_text(content, encoding="utf-8")
-    return folder
+from tests.conftest import write_files as write
 
 
 def read(folder: Path, files: dict[str, str | bytes]) -> list:
