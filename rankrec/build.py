@@ -48,6 +48,7 @@ EXACT_LIMIT = 5_000  # method "auto": block power iteration up to this many page
 # site hubs (common practice: round thresholds): linked from a fifth of all pages, or from a twentieth
 # with mostly chrome links
 HUB_SHARE, CHROME_HUB_SHARE = 0.2, 0.05
+INDEX_MIN_LINKS = 20  # fewest targets of an index page (common practice: a small wiki's hub pages differ)
 STAGES = ("graph", "global", "basis", "teams", "text", "ranker", "related")  # the manifest's seconds
 
 
@@ -113,7 +114,10 @@ def site_hubs(adjacency, chrome_share) -> np.ndarray:
     """Site hubs and chrome pages, a boolean per page: linked from at least ``HUB_SHARE`` of all pages
     (chrome links count), or from at least ``CHROME_HUB_SHARE`` of them with at least half of the link
     occurrences pointing at the page chrome (``chrome_share``: :func:`chrome_in_share`; home, license,
-    index and contents pages of generated sites); never fewer than two linking pages."""
+    index and contents pages of generated sites); never fewer than two linking pages. Also the
+    general index and contents pages themselves: pages linking to at least ``HUB_SHARE`` of all pages
+    and to at least ``INDEX_MIN_LINKS`` (a generated index's words are every page's words, so its
+    text resembles every page's without being related to any)."""
     linked = sp.coo_array(adjacency)
     linked.sum_duplicates()
     size = linked.shape[0]
@@ -121,7 +125,9 @@ def site_hubs(adjacency, chrome_share) -> np.ndarray:
     sources = np.bincount(linked.col[other], minlength=size).astype(np.float64)
     wide = sources >= max(2.0, HUB_SHARE * size)
     navigation = (sources >= max(2.0, CHROME_HUB_SHARE * size)) & (np.asarray(chrome_share) >= 0.5)
-    return wide | navigation
+    targets = np.bincount(linked.row[other], minlength=size)
+    listing = targets >= max(INDEX_MIN_LINKS, HUB_SHARE * size)
+    return wide | navigation | listing
 
 
 def reading_neighbours(evidence: Evidence, configuration: Configuration) -> tuple:

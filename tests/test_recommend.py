@@ -403,3 +403,30 @@ def test_site_hubs_move_below_the_first_places_of_a_related_list(tmp_path):
         else:
             assert served == plain
     assert moved >= 10  # the hub led most plain lists: the rule was exercised
+
+
+def test_index_pages_are_site_hubs_but_small_wikis_keep_their_hub_pages():
+    # reference: a generated site's general index (Sphinx's genindex, DocBook's bookindex) links to most
+    # pages; networkx's out_degree_centrality gives the share of pages each page links to
+    import networkx as nx
+    import scipy.sparse as sp
+
+    from rankrec.build import INDEX_MIN_LINKS, site_hubs
+
+    rng = np.random.default_rng(4)
+    size = 200
+    dense = (rng.random((size, size)) < 0.02).astype(float)
+    np.fill_diagonal(dense, 0)
+    dense[0, 1:] = 1.0  # page 0: the general index, linking to every page
+    dense[1, 2:30] = 1.0  # page 1: a chapter page, linking to 14% of the pages
+    graph = nx.from_numpy_array(dense, create_using=nx.DiGraph)
+    share = nx.out_degree_centrality(graph)  # out-degree / (n - 1)
+    hubs = site_hubs(sp.csr_matrix(dense), np.zeros(size))
+    listing = np.array([share[page] * (size - 1) >= max(INDEX_MIN_LINKS, 0.2 * size) for page in range(size)])
+    in_share = nx.in_degree_centrality(graph)
+    wide = np.array([in_share[page] * (size - 1) >= 0.2 * size for page in range(size)])
+    assert hubs[0] and not hubs[1]
+    np.testing.assert_array_equal(hubs, listing | wide)
+    small = np.zeros((12, 12))
+    small[0, 1:] = 1.0  # a small wiki's home page linking to its 11 others: under INDEX_MIN_LINKS
+    assert not site_hubs(sp.csr_matrix(small), np.zeros(12))[0]
