@@ -4,19 +4,10 @@ Pages are numbered by SQLite row ids. A page that is only *referred to* (a link 
 viewed page that no source has described) is kept as a row with ``present = 0``, so links to
 pages that do not exist are counted and reported instead of being dropped, and a later import
 that brings the page makes them resolve. Imports run inside :meth:`Store.transaction`: all of
-it or nothing. This module and :mod:`rankrec._store_reads` (the named read methods ``Store``
-inherits) hold all of the project's SQL; reads that build something from several of those
-methods run inside :meth:`Store.reading`, one snapshot.
-
-Page text and link places live in tables of their own (``page_text``, ``link_places``,
-``link_occurrences``). A store made before they existed has none of them: it reads as a store
-without text or places, and its first write transaction adds the (empty) tables.
-
-Every store has a random **store id** (``meta`` key ``store_id``, 32 hex digits), made once with the
-store and never changed: an index records the id of the store it was built from, so that it is not
-served with another store whose counts happen to match (:meth:`rankrec.index.Index.check_current`).
-A store made before ids existed reads as one without an id (:meth:`Store.store_id` is None) and gets
-one in its first write transaction; a copy of the store file keeps the id (it is the same snapshot).
+it or nothing. This module, :mod:`rankrec._store_reads` (the named read methods ``Store``
+inherits) and :mod:`rankrec._store_schema` (the tables, and how older stores are brought up to
+them) hold all of the project's SQL; reads that build something from several of those methods
+run inside :meth:`Store.reading`, one snapshot.
 """
 
 from __future__ import annotations
@@ -24,7 +15,6 @@ from __future__ import annotations
 import hashlib
 import json
 import sqlite3
-import uuid
 import zlib
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
@@ -32,96 +22,9 @@ from pathlib import Path
 
 from ._store_os import create_private, raise_unavailable, store_unavailable
 from ._store_reads import StoreReads
+from ._store_schema import STORE_ID_KEY, create_or_check, has_added_columns, migrate
 from .errors import InputError, UnknownPage
 from .sources.records import HEADINGS_BYTES, TEXT_BYTES, clip_utf8
-
-SCHEMA_VERSION = 1
-STORE_ID_KEY = "store_id"  # the meta key of the store id (added after version 1, with no new version)
-
-# Added after version 1 came out, each table IF NOT EXISTS: older stores gain them on their next write.
-_TEXT_SCHEMA = (
-    """CREATE TABLE IF NOT EXISTS page_text (
-    page_id INTEGER PRIMARY KEY REFERENCES pages(id),
-    text BLOB NOT NULL,
-    headings TEXT NOT NULL,
-    sha256 TEXT NOT NULL,
-    text_bytes INTEGER NOT NULL
-)""",  # text: zlib-compressed UTF-8; sha256: hex digest of that UTF-8; text_bytes: its length
-    "CREATE TABLE IF NOT EXISTS link_places (id INTEGER PRIMARY KEY, place TEXT NOT NULL UNIQUE)",
-    """CREATE TABLE IF NOT EXISTS link_occurrences (
-    source_id INTEGER NOT NULL REFERENCES pages(id),
-    target_id INTEGER NOT NULL REFERENCES pages(id),
-    place_id INTEGER NOT NULL REFERENCES link_places(id),
-    occurrences INTEGER NOT NULL,
-    PRIMARY KEY (source_id, target_id, place_id)
-) WITHOUT ROWID""",
-)
-
-# Where each link was read (added after version 1): the file, interned in ``link_files``, and the line.
-_LINK_FILES = "CREATE TABLE IF NOT EXISTS link_files (id INTEGER PRIMARY KEY, file TEXT NOT NULL UNIQUE)"
-# Columns added after version 1 came out, each with a default (SQLite's ALTER TABLE ADD COLUMN): a store
-# made before them gains them on its next write transaction and reads as holding the default until then.
-_ADDED_COLUMNS = (
-    ("pages", "same_page_links", "INTEGER NOT NULL DEFAULT 0"),  # links of the page to itself, counted
-    ("links", "file_id", "INTEGER REFERENCES link_files(id)"),  # NULL: read before files were kept
-    ("links", "line", "INTEGER"),
-)
-
-_SCHEMA = """
-CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
-CREATE TABLE IF NOT EXISTS pages (
-    id INTEGER PRIMARY KEY,
-    page TEXT NOT NULL UNIQUE,
-    title TEXT,
-    space TEXT,
-    url TEXT,
-    archived INTEGER NOT NULL DEFAULT 0,
-    present INTEGER NOT NULL DEFAULT 0,
-    external_links INTEGER NOT NULL DEFAULT 0,
-    origin TEXT
-);
-CREATE TABLE IF NOT EXISTS page_tags (
-    page_id INTEGER NOT NULL REFERENCES pages(id), tag TEXT NOT NULL, PRIMARY KEY (page_id, tag)
-) WITHOUT ROWID;
-CREATE TABLE IF NOT EXISTS page_groups (
-    page_id INTEGER NOT NULL REFERENCES pages(id), name TEXT NOT NULL, PRIMARY KEY (page_id, name)
-) WITHOUT ROWID;
-CREATE TABLE IF NOT EXISTS links (
-    source_id INTEGER NOT NULL REFERENCES pages(id),
-    target_id INTEGER NOT NULL REFERENCES pages(id),
-    weight REAL NOT NULL DEFAULT 1.0,
-    PRIMARY KEY (source_id, target_id)
-) WITHOUT ROWID;
-CREATE INDEX IF NOT EXISTS links_by_target ON links (target_id);
-CREATE TABLE IF NOT EXISTS users (id INTEGER PRIMARY KEY, user TEXT NOT NULL UNIQUE);
-CREATE TABLE IF NOT EXISTS views (
-    user_id INTEGER NOT NULL REFERENCES users(id),
-    page_id INTEGER NOT NULL REFERENCES pages(id),
-    timestamp REAL NOT NULL,
-    dwell REAL,
-    PRIMARY KEY (user_id, page_id, timestamp)
-) WITHOUT ROWID;
-CREATE INDEX IF NOT EXISTS views_by_time ON views (timestamp);
-CREATE TABLE IF NOT EXISTS memberships (
-    kind TEXT NOT NULL CHECK (kind IN ('team', 'group')),
-    name TEXT NOT NULL,
-    user_id INTEGER NOT NULL REFERENCES users(id),
-    PRIMARY KEY (kind, name, user_id)
-) WITHOUT ROWID;
-CREATE TABLE IF NOT EXISTS imports (
-    id INTEGER PRIMARY KEY,
-    source TEXT NOT NULL,
-    format TEXT NOT NULL,
-    records INTEGER NOT NULL,
-    errors INTEGER NOT NULL,
-    imported_at TEXT NOT NULL DEFAULT (strftime('%Y-%m-%dT%H:%M:%SZ', 'now'))
-);
-""" + "".join(statement + ";\n" for statement in _TEXT_SCHEMA)
-
-
-def new_store_id() -> str:
-    """A fresh random store id: 32 lowercase hex digits (a version 4 UUID, 122 random bits)."""
-    return uuid.uuid4().hex
 
 
 def read_store_id(path: str | Path) -> str | None:
@@ -154,7 +57,7 @@ class Store(StoreReads):
             self.connection.execute("PRAGMA foreign_keys=ON")
             self.connection.execute("PRAGMA cache_size=-131072")  # 128 MiB of page cache for big imports
             self.connection.execute("PRAGMA temp_store=MEMORY")
-            self._check_schema()
+            create_or_check(self.connection)
         except (sqlite3.OperationalError, OSError) as error:
             unavailable = store_unavailable(self.path, error)
             if unavailable is None:
@@ -168,27 +71,7 @@ class Store(StoreReads):
         self._text_tables = False  # known to exist (set by the first write or read that looks)
         self._columns_added = False  # _ADDED_COLUMNS known to exist (set like _text_tables)
         self._file_ids: dict[str, int] = {}
-        self._identified = False  # the store id is known to be stored (set by the first write transaction)
-
-    def _check_schema(self) -> None:
-        existing = self.connection.execute(
-            "SELECT name FROM sqlite_master WHERE type='table' AND name='meta'"
-        ).fetchone()
-        if existing:
-            row = self.connection.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
-            if row is None or int(row[0]) != SCHEMA_VERSION:
-                found = None if row is None else row[0]
-                raise sqlite3.DatabaseError(f"schema version {found}, this rankrec reads {SCHEMA_VERSION}")
-            return
-        # one transaction: the tables, the schema version and the store id come together or not at all
-        # (both values are digits and hex digits, safe to write as literals)
-        self.connection.executescript(
-            "BEGIN;"
-            + _SCHEMA
-            + f"INSERT INTO meta (key, value) VALUES ('schema_version', '{SCHEMA_VERSION:d}');"
-            + f"INSERT INTO meta (key, value) VALUES ('{STORE_ID_KEY}', '{new_store_id()}');"
-            + "COMMIT;"
-        )
+        self._migrated = False  # migrate() has run in this store's transactions (reset by a rollback)
 
     # -- lifecycle -------------------------------------------------------------------------------
     def close(self) -> None:
@@ -204,21 +87,9 @@ class Store(StoreReads):
     def transaction(self) -> Iterator[Store]:
         """Everything inside goes in together or not at all (also on KeyboardInterrupt)."""
         with self._transaction("BEGIN IMMEDIATE"):
-            if not self._text_tables:
-                for statement in _TEXT_SCHEMA:
-                    self.connection.execute(statement)
-                self._text_tables = True
-            if not self._columns_added:  # migration: columns added after version 1
-                self.connection.execute(_LINK_FILES)
-                for table, column, declaration in _ADDED_COLUMNS:
-                    if column not in self._column_names(table):
-                        self.connection.execute(f"ALTER TABLE {table} ADD COLUMN {column} {declaration}")
-                self._columns_added = True
-            if not self._identified:  # migration: a store made before store ids gets one now
-                self.connection.execute(
-                    "INSERT OR IGNORE INTO meta (key, value) VALUES (?, ?)", (STORE_ID_KEY, new_store_id())
-                )
-                self._identified = True
+            if not self._migrated:  # a store made before version 1's additions gains them now
+                migrate(self.connection)
+                self._text_tables = self._columns_added = self._migrated = True
             yield self
 
     @contextmanager
@@ -266,7 +137,7 @@ class Store(StoreReads):
             self._text_tables = False  # tables this transaction added are gone again
             self._columns_added = False  # and so are columns
             self._file_ids.clear()
-            self._identified = False  # and so is a store id it added
+            self._migrated = False  # and so is what a migration added
             raise_unavailable(self.path, error)
             raise
 
@@ -445,19 +316,10 @@ class Store(StoreReads):
         return {} if row is None else dict(json.loads(row[0]))
 
     # -- reads of what the columns added after version 1 hold ----------------------------------------
-    def _column_names(self, table: str) -> set[str]:
-        """Column names of ``table`` (a constant name)."""
-        return {row[1] for row in self.connection.execute(f"PRAGMA table_info({table})")}
-
     def _has_added_columns(self) -> bool:
         """True when the store has the columns added after version 1 (an older store, until written, not)."""
         if not self._columns_added:
-            has_files = self.scalar(
-                "SELECT count(*) FROM sqlite_master WHERE type = 'table' AND name = 'link_files'"
-            )
-            self._columns_added = bool(has_files) and all(
-                column in self._column_names(table) for table, column, _ in _ADDED_COLUMNS
-            )
+            self._columns_added = has_added_columns(self.connection)
         return self._columns_added
 
     def same_page_link_count(self) -> int:

@@ -2,7 +2,8 @@
 
 A hub is what ``rankrec evaluate`` counts in its "lists with a hub in their top 3" figure and what
 serving keeps out of a list's first places (:func:`rankrec.build.site_hubs`, stored in the index): a page
-linked from a fifth of all pages, or from a twentieth with mostly page-chrome links. The lists are those
+linked from a fifth of all pages, or from a twentieth with mostly page-chrome links, or a general index
+or contents page linking to a fifth of them. The lists are those
 the index serves a public viewer (:func:`rankrec.recommend.related`)::
 
     .venv/bin/python tools/hub_share.py --index DIR

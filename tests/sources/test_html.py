@@ -14,19 +14,13 @@ from hypothesis import strategies as st
 from rankrec.errors import InputError
 from rankrec.sources.html import read_html_folder
 from rankrec.sources.records import LinkRecord, PageRecord
+from tests.conftest import write_files
 
 from .test_links import RFC3986_ABNORMAL, RFC3986_NORMAL
 
 
 def read(folder: Path, files: dict[str, str | bytes], **options) -> list:
-    for name, content in files.items():
-        path = folder / name
-        path.parent.mkdir(parents=True, exist_ok=True)
-        if isinstance(content, bytes):
-            path.write_bytes(content)
-        else:
-            path.write_text(content, encoding="utf-8")
-    return list(read_html_folder(folder, **options))
+    return list(read_html_folder(write_files(folder, files), **options))
 
 
 def pages(records) -> dict[str, PageRecord]:
