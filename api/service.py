@@ -35,7 +35,7 @@ class Service:
         self.limits = Limits(settings)
         self._key = self._pseudonym_key(settings.pseudonym_key)
         self._local = threading.local()
-        self._opened: list[Store] = []
+        self._opened: list[tuple[threading.Thread, Store]] = []  # each read store and its thread
         self._opened_lock = threading.Lock()
 
     @staticmethod
@@ -55,7 +55,12 @@ class Service:
         return stored_id(self._key, user)
 
     def read_store(self, wiki: Path) -> Store:
-        """A store connection for reading, one per thread and store file (kept open for reuse)."""
+        """A store connection for reading, one per thread and store file (kept open for reuse).
+
+        Worker threads come and go (anyio retires one idle for 10 seconds), so opening one also
+        closes the connections of threads that have ended: nothing else holds them, and kept open
+        they would hold their files (three descriptors each) until the service runs out of them.
+        """
         stores = getattr(self._local, "stores", None)
         if stores is None:
             stores = self._local.stores = {}
@@ -63,14 +68,20 @@ class Service:
         if store is None:
             store = stores[wiki] = Store(wiki, create=False)
             with self._opened_lock:
-                self._opened.append(store)
+                alive = []
+                for thread, opened in self._opened:
+                    if thread.is_alive():
+                        alive.append((thread, opened))
+                    else:
+                        opened.close()
+                self._opened = [*alive, (threading.current_thread(), store)]
         return store
 
     def close(self) -> None:
         """Stop the watcher and close every store connection opened for reading."""
         self.live.stop_watching()
         with self._opened_lock:
-            for store in self._opened:
+            for _, store in self._opened:
                 store.close()
             self._opened.clear()
         self._local = threading.local()
