@@ -34,11 +34,11 @@ from .configuration import Configuration
 from .errors import GroupTooSmall
 from .evidence import Evidence, read_evidence
 from .graph import blend_navigation, chrome_pairs, content_matrix, dense_numbers, navigation_counts
-from .index import READING, IndexManifest, write_tables
+from .index import PAGES_READ, READING, IndexManifest, write_tables
 from .pagerank import personalised_pagerank, prepare
 from .profiles import SECONDS_PER_DAY, reader_profiles, team_restart
 from .progress import Progress, report
-from .ranker.covisits import covisited_pages, session_successors
+from .ranker.covisits import covisited_pages, page_reading, session_successors
 from .ranker.features import Signals
 from .recommend.candidates import DEFAULT_K_RELATED, seed_vectors, write_related
 from .store import Store, read_store_id
@@ -139,6 +139,15 @@ def reading_neighbours(evidence: Evidence, configuration: Configuration) -> tupl
     )
 
 
+def pages_read(evidence: Evidence, configuration: Configuration) -> tuple:
+    """(click-through, sessions) per page of the evidence's views (:func:`rankrec.ranker.covisits.
+    page_reading`), (None, None) without views."""
+    if not np.any(evidence.views.pages >= 0):
+        return None, None
+    gap = configuration.session_gap_seconds
+    return page_reading(evidence.views, evidence.graph.adjacency, evidence.size, gap=gap)
+
+
 def _signals(evidence: Evidence, configuration: Configuration, text, chrome_share, workers: int):
     """The ranker's signals of ``evidence`` (its own transition and global PageRank), and the transition."""
     adjacency, _ = navigation_matrix(evidence, configuration)
@@ -156,6 +165,7 @@ def _signals(evidence: Evidence, configuration: Configuration, text, chrome_shar
         chrome_share,
         text,
         reading_neighbours(evidence, configuration),
+        pages_read(evidence, configuration),
     )
     return signals, transition
 
@@ -370,6 +380,9 @@ def build_from_evidence(
             for name, matrix in zip(READING, reading_neighbours(evidence, configuration), strict=True):
                 if matrix is not None:
                     save_csr(staging, name, matrix)
+            for name, array in zip(PAGES_READ, pages_read(evidence, configuration), strict=True):
+                if array is not None:
+                    np.save(staging / f"{name}.npy", array)
         with _timed(seconds, "related"):
             write_related(staging, chosen, method, configuration, k_related, workers, progress)
         manifest = IndexManifest(

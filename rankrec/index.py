@@ -51,6 +51,7 @@ __all__ = [
 
 INDEX_FORMAT = 4
 READING = ("covisited", "successors")  # the ranker's reading neighbours (rankrec.ranker.covisits)
+PAGES_READ = ("click_through", "sessions")  # per page (rankrec.ranker.covisits.page_reading)
 RELATED_ARRAYS = ("row", "pages", "scores", "combined", "via", "space", "kind")
 
 
@@ -132,7 +133,10 @@ def index_signals(folder: Path, transition, global_vector, space, views, archive
         load_csr(folder, name, (size, size)) if (folder / f"{name}.data.npy").exists() else None
         for name in READING
     )
-    return Signals.of(transition, global_vector, space, views, archived, chrome, text, reading)
+    pages_read = tuple(
+        load_array(folder, name) if (folder / f"{name}.npy").exists() else None for name in PAGES_READ
+    )
+    return Signals.of(transition, global_vector, space, views, archived, chrome, text, reading, pages_read)
 
 
 def load_transition(folder: Path, size: int) -> Transition:

@@ -9,6 +9,8 @@ exactly its own terms (a worked identity).
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import networkx as nx
 import numpy as np
 import pytest
@@ -87,12 +89,39 @@ def test_pool_holds_vector_text_and_link_neighbours_never_the_seed_or_archived()
     signals, transition = _signals(adjacency, similar)
     archived = np.zeros(30, dtype=bool)
     archived[[3, 4]] = True
-    signals = Signals(**{**signals.__dict__, "archived": archived})
+    signals = replace(signals, archived=archived)
     indices, values = _vector(transition, 1)
     pool = set(candidate_pool(signals, 1, indices, values, pool=5).tolist())
     assert 6 in pool or archived[6]  # the text neighbour of page 1
     assert set(graph.successors(1)) - {3, 4} <= pool and set(graph.predecessors(1)) - {3, 4} <= pool
     assert 1 not in pool and not pool & {3, 4}
+
+
+def test_the_pages_read_in_most_sessions_are_candidates_of_every_seed_and_their_features_read_them():
+    # reading history: pages 20..29 read in many sessions, archived page 3 the most
+    adjacency, _ = _adjacency(30, 0.05, seed=4)
+    signals, transition = _signals(adjacency)
+    sessions = np.zeros(30, dtype=np.float32)
+    sessions[20:30] = np.arange(10, 20)
+    sessions[3] = 100
+    click = np.full(30, 0.02, dtype=np.float32)
+    click[25] = 0.5
+    archived = np.zeros(30, dtype=bool)
+    archived[3] = True
+    views = np.zeros(30)
+    views[29] = 9
+    signals = replace(signals, sessions=sessions, click_through=click, archived=archived, views=views)
+    assert signals.popular.tolist() == list(range(20, 30))  # archived page 3 never
+    indices, values = _vector(transition, 1)
+    pool = candidate_pool(signals, 1, indices, values, pool=2)
+    assert set(range(20, 30)) <= set(pool.tolist()) and 3 not in pool
+    features = pair_features(signals, 1, pool, indices, values)
+    column = {name: features[:, position] for position, name in enumerate(FEATURES)}
+    at = {page: row for row, page in enumerate(pool.tolist())}
+    assert column["sessions_log"][at[29]] == pytest.approx(np.log1p(19))
+    assert np.exp(column["click_through_log"][at[25]]) == pytest.approx(0.5, rel=1e-5)
+    out_degree = np.count_nonzero(adjacency.toarray()[29])  # page 29's links, counted by numpy
+    assert column["views_out_degree"][at[29]] == pytest.approx(np.log1p(9) * np.log1p(out_degree))
 
 
 @settings(max_examples=10, deadline=None)
@@ -171,7 +200,7 @@ def test_the_reason_names_the_feature_group_with_the_largest_attribution():
         (np.linspace(0.9, 0.1, 29, dtype=np.float32), (np.zeros(29, dtype=np.int64), np.arange(1, 30))),
         shape=(30, 30),
     )
-    reading_signals = Signals(**{**signals.__dict__, "successors": successors})
+    reading_signals = replace(signals, successors=successors)
     coef = np.zeros(len(FEATURES))
     coef[FEATURES.index("goes_on")] = 5.0
     coef[FEATURES.index("text_similarity")] = 0.5

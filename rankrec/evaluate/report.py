@@ -131,7 +131,8 @@ def _ranker_block(ranker: dict) -> str:
         f"The related lists are ordered by a learnt ranker ({ranker['kind']}), trained inside the build on "
         f"the training part's own {ranker['labels']} ({ranker['queries_used']:,} queries, "
         f"{ranker['examples']:,} candidates; the candidate pools held {ranker['pool_recall']:.1%} of the "
-        f"relevant pages). Its build-time check (nDCG@10 on a quarter of those queries): {scores}. "
+        f"relevant pages). Its build-time check (nDCG@10, 4-fold cross-validation over those queries): "
+        f"{scores}. "
         f"`{WITHOUT_RANKER_NAME}` below is the same index without it."
     )
 

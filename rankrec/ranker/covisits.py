@@ -5,7 +5,9 @@ from it, candidate sources and features of the related-list ranker (:mod:`rankre
   (:func:`rankrec.evaluate.baselines.covisitation`), undirected;
 - :func:`session_successors`: directed, the share of the sessions holding a page that read another page
   *after* it (anywhere later in the session), the pairwise form of sequential rules (common practice in
-  session-based recommendation).
+  session-based recommendation);
+- :func:`page_reading`: per page, how often readers follow the links that lead to it (click-through)
+  and how many sessions read it.
 
 Both read the views the evidence holds (a training part's alone when the ranker learns from sessions:
 the sessions that give its labels never reach them), leave out views of pages outside the wiki, cut
@@ -26,6 +28,7 @@ NEIGHBOURS_KEPT = 50  # co-visited or successor pages kept per page (a candidate
 # reason "readers go on to it from here") tell what one or two readers did (common practice: k-anonymity)
 MIN_SESSIONS = 5
 MAX_SESSION_PAGES = 100
+CLICK_PRIOR = 50.0  # views added to a page's exposure: a page few readers saw tends to the prior 1/50
 _PAIRS_PER_CHUNK = 1 << 22  # ordered pairs counted at once (bounded memory on long histories)
 
 
@@ -108,3 +111,35 @@ def session_successors(
     share.setdiag(0.0)
     share.eliminate_zeros()
     return _pruned(share, top)
+
+
+def page_reading(views: ViewLog, adjacency, size: int, *, gap: float) -> tuple[np.ndarray, np.ndarray]:
+    """Per page, float32: its click-through, ``(moves into it + 1) / (views of the pages linking to it +
+    CLICK_PRIOR)`` (a move: consecutive views of one reader within ``gap`` seconds; additive smoothing,
+    common practice), and the number of sessions that read it. Without history every page has
+    click-through ``1 / CLICK_PRIOR`` and no sessions.
+
+    >>> views = ViewLog(np.array([0, 0, 1]), np.array([0, 1, 0]), np.array([0.0, 1, 0]))
+    >>> links = sp.csr_array(np.array([[0, 1], [0, 0]]))
+    >>> click, sessions = page_reading(views, links, 2, gap=10)
+    >>> (click.astype(float) * 52).round(3).tolist(), sessions.tolist()
+    ([1.04, 2.0], [2.0, 1.0])
+    """
+    from ..evaluate.tasks import session_numbers
+    from ..graph import navigation_counts
+
+    users, pages, times = _inside(views)
+    moves = navigation_counts(users, pages, times, size, gap=gap)
+    into = np.asarray(moves.sum(axis=0)).ravel().astype(np.float64)
+    linked = sp.csr_array(adjacency, dtype=np.float64, copy=True)
+    linked.data[:] = 1.0
+    linked.setdiag(0.0)
+    linked.eliminate_zeros()
+    exposure = linked.T @ np.bincount(pages, minlength=size).astype(np.float64)
+    click = ((into + 1.0) / (exposure + CLICK_PRIOR)).astype(np.float32)
+    sessions = np.zeros(size, dtype=np.float32)
+    if pages.size:
+        session = session_numbers(users, times, gap)
+        read = np.unique(session * np.int64(size) + pages) % size
+        sessions = np.bincount(read, minlength=size).astype(np.float32)
+    return click, sessions

@@ -22,7 +22,7 @@ import numpy as np
 from ..errors import InputError
 from .features import FEATURES
 
-RANKER_FORMAT = 2
+RANKER_FORMAT = 3
 KINDS = ("lightgbm", "linear")
 
 
