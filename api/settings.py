@@ -74,7 +74,10 @@ class ServiceSettings:
         rate limit), holding at most ``rate_burst`` requests (:mod:`api.limits`); 1000 and 2000 (above
         what one 2-core machine serves, so an honest front end is not capped: measured 430 req/s).
     unknown_cost : float
-        Requests' worth a request answered "unknown page" (or team) takes from the bucket; 10.
+        Requests' worth a request answered "unknown page" (or team) takes from the bucket; 50 (an
+        unknown id costs about what a list costs to answer, so at 10 a token probing for ids still took
+        a third of a 2-core machine from honest clients, measured with ``tools/attack_throughput.py``;
+        at 50 it takes about 20 a second and an honest front end can still absorb 20 typos a second).
     max_concurrent, max_concurrent_per_token : int
         List and search requests running at once, in all and per token (32 and 8; the thread pool
         that runs them has 40 threads, so health, views and admin calls always find one).
@@ -103,7 +106,7 @@ class ServiceSettings:
     max_concurrent: int = 32
     max_concurrent_per_token: int = 8
     limit_pause_seconds: float = 1.0
-    unknown_cost: float = 10.0
+    unknown_cost: float = 50.0
 
     def __post_init__(self) -> None:
         for name in ("max_k", "max_batch", "max_body_bytes", "rate_burst", "max_concurrent"):
