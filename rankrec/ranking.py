@@ -110,7 +110,7 @@ def rank_pages(
         How many pages.
     damping : float in (0, 1)
         Damping factor.
-    lift : float >= 0
+    lift : float >= -2
         Rank by ``score / global^lift`` (0: by score). Needs a restart: the global ranking lifted by
         itself would say nothing.
     space_pages : {"any", "first", "only"}

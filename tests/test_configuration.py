@@ -25,7 +25,7 @@ def test_defaults_are_the_documented_ones():
     [
         ({"damping": 1.0}, ValueError, "damping"),
         ({"damping": "0.85"}, TypeError, "damping"),
-        ({"lift": -0.1}, ValueError, "lift"),
+        ({"lift": -2.1}, ValueError, "lift"),
         ({"navigation_weight": 1.5}, ValueError, "navigation_weight"),
         ({"navigation_window_days": 0}, ValueError, "navigation_window_days"),
         ({"session_gap_seconds": -1}, ValueError, "session_gap_seconds"),

@@ -2,7 +2,9 @@
 explanations from attributions, and access rules through every candidate source.
 
 Outside sources: co-citation (Small 1973) and bibliographic coupling (Kessler 1963) counted with
-networkx's predecessor/successor sets; two-step transition probabilities with a dense numpy matrix power;
+networkx's predecessor/successor sets; two-step transition probabilities, and the click walk's (a Markov
+chain whose row-stochastic matrix is built densely with numpy: each row's reachable pages weighted by their
+click-through), with a dense numpy matrix power;
 random graphs from networkx's ``gnp_random_graph``; the occlusion attribution of a linear model is
 exactly its own terms (a worked identity).
 """
@@ -24,9 +26,10 @@ from rankrec.evaluate.links import held_out_links_split
 from rankrec.evidence import Evidence
 from rankrec.index import load_index
 from rankrec.pagerank import personalised_pagerank, prepare
-from rankrec.ranker.features import FEATURES, Signals, candidate_pool, pair_features
+from rankrec.profiles import ViewLog
+from rankrec.ranker.features import CLICK_WALK, FEATURES, Signals, candidate_pool, click_walk, pair_features
 from rankrec.ranker.model import Ranker
-from rankrec.ranker.training import examples, fit_lightgbm
+from rankrec.ranker.training import SESSION_WINDOWS, _session_windows, examples, fit_lightgbm
 from rankrec.recommend import Reader, related
 from rankrec.recommend.candidates import ranked_block, ranked_candidates
 from rankrec.recommend.explain import READ_ON, SIMILAR_TEXT
@@ -81,6 +84,53 @@ def test_link_features_match_networkx_counts_and_a_dense_matrix_power():
             assert np.exp(column["two_step_log"][row]) == pytest.approx(
                 two_step[seed, page] + 1e-12, rel=1e-4
             )
+
+
+@pytest.mark.parametrize("with_history", [True, False], ids=["click-through", "no-history"])
+def test_click_walk_features_are_the_rows_of_a_dense_click_matrix_and_its_square(with_history):
+    # reference: the click walk written as a dense row-stochastic numpy matrix, squared by numpy
+    adjacency, _ = _adjacency(40, 0.12, seed=11)
+    signals, transition = _signals(adjacency)
+    click = np.random.default_rng(3).uniform(0.01, 1.0, 40) if with_history else None
+    signals = replace(signals, click_through=click)
+    reach = (transition.forward.toarray() > 0) * (np.ones(40) if click is None else click)[None, :]
+    totals = reach.sum(axis=1, keepdims=True)
+    walk = np.divide(reach, totals, out=np.zeros_like(reach), where=totals > 0)
+    square = walk @ walk
+    for seed in (0, 9, 33):
+        indices, values = _vector(transition, seed)
+        pool = candidate_pool(signals, seed, indices, values, pool=5)
+        likeliest = np.argsort(-square[seed])[: min(CLICK_WALK, np.count_nonzero(square[seed]))]
+        assert set(likeliest.tolist()) - {seed} <= set(pool.tolist())
+        features = pair_features(signals, seed, pool, indices, values)
+        column = {name: features[:, position] for position, name in enumerate(FEATURES)}
+        np.testing.assert_allclose(column["click_share"], walk[seed, pool], rtol=1e-5, atol=1e-7)
+        two_steps = np.exp(column["click_two_step_log"])
+        np.testing.assert_allclose(two_steps, square[seed, pool] + 1e-12, rtol=1e-4)
+        found = click_walk(signals, seed)
+        assert found.two.sum() == pytest.approx(square[seed].sum())  # a probability distribution (or 0)
+
+
+def test_session_windows_are_successive_periods_whose_labels_never_reach_their_features():
+    # three hundred readers' sessions of three pages over a year: every window's features read only
+    # views before its own period, and each period ends where the later window's begins
+    rng = np.random.default_rng(8)
+    sessions = 3000
+    starts = np.sort(rng.uniform(0, 365 * 86400.0, sessions))
+    users = np.repeat(rng.integers(0, 300, sessions), 3)
+    times = np.repeat(starts, 3) + np.tile([0.0, 60.0, 120.0], sessions)
+    pages = rng.integers(0, 50, times.size)
+    adjacency, _ = _adjacency(50, 0.1, seed=1)
+    evidence = Evidence.from_links(adjacency, ViewLog(users, pages, times))
+    windows = _session_windows(evidence, 10_000, 0, 1800.0)
+    assert len(windows) == SESSION_WINDOWS
+    later_start = np.inf
+    for split, features_evidence, summary in windows:
+        cutoff = summary["cutoff"]
+        query_times = split.queries.times
+        assert query_times.min() >= cutoff and query_times.max() < later_start
+        assert features_evidence.views.times.max() < cutoff  # no view of the labels' period or after
+        later_start = cutoff
 
 
 def test_pool_holds_vector_text_and_link_neighbours_never_the_seed_or_archived():

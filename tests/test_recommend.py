@@ -298,6 +298,17 @@ def test_lift_lowers_site_wide_hubs(wiki):
         return np.mean([global_vector[index.page_number(item.page)] for item in result.items])
 
     assert mean_global(lifted) < mean_global(plain)
+    leaning = related(index, index.pages[2], k=10, lift=-1.0)  # below 0: towards what matters site-wide
+    assert mean_global(leaning) > mean_global(plain)
+
+
+def test_a_negative_lift_multiplies_by_the_global_score():
+    # the definition score / global^lift, checked with numpy for lift -1 and -0.5
+    from rankrec.recommend.select import lifted
+
+    values, overall = np.array([0.5, 0.3, 0.2]), np.array([0.1, 0.4, 0.5])
+    np.testing.assert_allclose(lifted(values, overall, -1.0), values * overall)
+    np.testing.assert_allclose(lifted(values, overall, -0.5), values * np.sqrt(overall))
 
 
 def test_blend_one_follows_the_reader(wiki):

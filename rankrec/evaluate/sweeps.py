@@ -48,10 +48,11 @@ GRID_NAMES = ("damping", "lift", "half_life_days", "navigation_weight", "text_we
 @dataclass(frozen=True)
 class Grid:
     """The values each sweep tries (common practice: damping around the classic 0.85; half-lives from a
-    week to a year; navigation weight, lift and text weight over their whole useful range)."""
+    week to a year; navigation weight, lift and text weight over their whole useful range: lift below 0
+    leans towards pages important site-wide, above 0 away from them)."""
 
     damping: tuple[float, ...] = (0.5, 0.7, 0.85, 0.95)
-    lift: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75, 1.0)
+    lift: tuple[float, ...] = (-1.0, -0.5, 0.0, 0.25, 0.5, 0.75, 1.0)
     half_life_days: tuple[float, ...] = (7.0, 30.0, 90.0, 365.0)
     navigation_weight: tuple[float, ...] = (0.0, 0.3, 0.6, 0.9)
     text_weight: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75)

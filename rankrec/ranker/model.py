@@ -22,7 +22,7 @@ import numpy as np
 from ..errors import InputError
 from .features import FEATURES
 
-RANKER_FORMAT = 3
+RANKER_FORMAT = 4
 KINDS = ("lightgbm", "linear")
 
 

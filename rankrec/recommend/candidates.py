@@ -18,7 +18,7 @@ import numpy as np
 from ..configuration import Configuration
 from ..index import Index, index_signals, load_array, load_transition
 from ..pagerank import Transition, personalised_pagerank, push
-from ..ranker.features import FEATURES, POOL, absent_values, candidate_pool, pair_features
+from ..ranker.features import FEATURES, POOL, absent_values, candidate_pool, click_walk, pair_features
 from ..ranker.model import load_ranker
 from ..text import load_text_neighbours
 from .explain import READ_ON, SIMILAR_TEXT, VIA_PAGE, contributions
@@ -156,8 +156,9 @@ def ranked_block(transition, signals, ranker, space, seeds, vectors, *, damping,
     per-call cost, not its per-row cost, dominates a single pool)."""
     pools, blocks = [], []
     for seed, (indices, values) in zip(seeds, vectors, strict=True):
-        pools.append(candidate_pool(signals, int(seed), indices, values, POOL))
-        blocks.append(pair_features(signals, int(seed), pools[-1], indices, values))
+        walk = click_walk(signals, int(seed))
+        pools.append(candidate_pool(signals, int(seed), indices, values, POOL, walk))
+        blocks.append(pair_features(signals, int(seed), pools[-1], indices, values, walk))
     features = np.vstack(blocks) if blocks else np.zeros((0, len(FEATURES)), dtype=np.float32)
     scores = ranker.score(features)
     bounds = np.cumsum([0] + [pool.size for pool in pools])
