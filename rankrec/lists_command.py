@@ -8,6 +8,7 @@ from pathlib import Path
 from ._cli_common import list_urls, open_index, print_list, step_bars, stored_user
 from ._output import print_mapping, print_rows
 from .errors import UsageError
+from .ranker.model import labels_text
 
 
 def register(commands) -> None:
@@ -221,8 +222,9 @@ def _ranker_line(ranker: dict) -> str:
         reason = ranker.get("reason", "none was trained")
         return f"related lists: the PageRank and text mix (no learnt ranker: {reason})"
     scores = ", ".join(f"{name} {value:.3f}" for name, value in ranker["validation_ndcg@10"].items())
+    source = labels_text(ranker)
     return (
-        f"related lists: learnt ranker {ranker['kind']}, trained on {ranker['labels']} "
+        f"related lists: learnt ranker {ranker['kind']}, trained on {source} "
         f"({ranker['queries_used']:,} queries; check nDCG@10 {scores})"
     )
 

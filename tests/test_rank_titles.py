@@ -105,8 +105,8 @@ def test_bad_combinations_are_refused(store):
         rank_pages(opened, lift=0.5)  # global PageRank lifted by itself says nothing
     with pytest.raises(ValueError, match="space_pages"):
         rank_pages(opened, pages=["ops/p01"], space_pages="first")
-    with pytest.raises(ValueError, match="lift must not be negative"):
-        rank_pages(opened, spaces=["ops"], lift=-1)
+    with pytest.raises(ValueError, match="lift must be at least -2"):
+        rank_pages(opened, spaces=["ops"], lift=-3)
 
 
 def test_cli_prints_titles_in_every_format(store, capsys):
@@ -135,7 +135,7 @@ def test_cli_prints_titles_in_every_format(store, capsys):
     [
         (["--lift", "0.5"], "--lift weighs personalised against global PageRank"),
         (["--space-pages", "first"], "--space-pages first needs --space"),
-        (["--space", "ops", "--lift", "-1"], "lift must not be negative"),
+        (["--space", "ops", "--lift", "-3"], "lift must be at least -2"),
         (["-k", "0"], "k must be at least 1"),
     ],
     ids=["lift-without-restart", "space-pages-without-space", "negative-lift", "zero-k"],

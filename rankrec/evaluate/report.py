@@ -26,6 +26,7 @@ import numpy as np
 from .. import __version__
 from .._atomic import publish_folder
 from ..configuration import Settings, write_settings
+from ..ranker.model import labels_text
 from . import plots as charts
 from .plots import LABELS, setting_text
 from .run import WITHOUT_RANKER as WITHOUT_RANKER_NAME
@@ -127,11 +128,15 @@ def _ranker_block(ranker: dict) -> str:
         reason = ranker.get("reason", "none asked for")
         return f"No learnt ranker: {reason}; the lists are the PageRank and text mix."
     scores = ", ".join(f"{name} {value:.3f}" for name, value in ranker.get("validation_ndcg@10", {}).items())
+    source = labels_text(ranker)
+    checked = ranker.get("checked_queries", ranker["queries_used"])
+    folds = ranker.get("folds", 4)
     return (
         f"The related lists are ordered by a learnt ranker ({ranker['kind']}), trained inside the build on "
-        f"the training part's own {ranker['labels']} ({ranker['queries_used']:,} queries, "
+        f"the training part's own {source} ({ranker['queries_used']:,} queries, "
         f"{ranker['examples']:,} candidates; the candidate pools held {ranker['pool_recall']:.1%} of the "
-        f"relevant pages). Its build-time check (nDCG@10, 4-fold cross-validation over those queries): "
+        f"relevant pages). Its build-time check (nDCG@10, {folds}-fold cross-validation over {checked:,} of "
+        f"those queries): "
         f"{scores}. "
         f"`{WITHOUT_RANKER_NAME}` below is the same index without it."
     )

@@ -76,6 +76,16 @@ class Ranker:
         (folder / "ranker.json").write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
 
 
+def labels_text(summary: dict) -> str:
+    """What a ranker's training summary says it learnt from, in words.
+
+    >>> labels_text({"labels": "sessions", "windows": 3}), labels_text({"labels": "held-out links"})
+    ('sessions of 3 periods', 'held-out links')
+    """
+    periods = summary.get("windows", 1)
+    return f"{summary['labels']} of {periods} periods" if periods > 1 else summary["labels"]
+
+
 def load_ranker(folder: Path) -> Ranker | None:
     """The ranker saved in ``folder`` (None when there is none); InputError when it does not fit this
     rankrec (another format, other features)."""

@@ -269,6 +269,7 @@ def train_ranker(
         seeds = split.queries.pages[:, 0]
         signals, transition = signals_of(reduced)
         *part, recall = examples(signals, seeds, vectors_of(transition, seeds), split.relevant)
+        del signals, transition  # let one window's graph go before the next is made (memory at 1M pages)
         parts.append(part)
         found, wanted = found + recall * split.relevant.nnz, wanted + split.relevant.nnz
         report(progress, "ranker: training examples", number + 1, len(windows) + 2)
@@ -282,6 +283,7 @@ def train_ranker(
     kinds = ("linear", "lightgbm") if kind == "auto" else (kind,)
     sample = _query_sample(groups.size, CV_QUERIES, seed)
     rows = np.repeat(sample, groups)
+    summary |= {"folds": FOLDS, "checked_queries": int(sample.sum())}
     scores = _cross_validated(
         kinds, features[rows], labels[rows], groups[sample], counts[sample], seed, workers
     )

@@ -57,7 +57,7 @@ def test_select_pages_follows_its_rule_with_ties(seed, k, lift):
 
 def test_select_pages_refuses_bad_arguments():
     with pytest.raises(ValueError, match="lift"):
-        select_pages(np.ones(3), np.ones(3), np.ones(3, bool), 2, lift=-1.0)
+        select_pages(np.ones(3), np.ones(3), np.ones(3, bool), 2, lift=-2.5)
     with pytest.raises(ValueError, match="global_vector"):
         select_pages(np.ones(3), np.ones(4), np.ones(3, bool), 2, lift=0.0)
 
