@@ -213,7 +213,16 @@ def test_training_is_deterministic_under_a_seed_and_occlusion_matches_the_linear
     linear = Ranker("linear", FEATURES, {}, mean=mean, scale=scale, coef=coef)
     absent = {FEATURES.index("out_link"): 0.0, FEATURES.index("in_link"): 0.0}
     expected = sum(coef[c] * (features[:, c] - value) / scale[c] for c, value in absent.items())
-    assert np.allclose(linear.contribution(features, absent), expected)
+    text = FEATURES.index("text_similarity")
+    found, found_text = linear.contributions(features, [absent, {text: 0.0}])
+    assert np.allclose(found, expected)
+    assert np.allclose(found_text, coef[text] * features[:, text] / scale[text])
+    # the trees' attribution in one call equals each group's occluded copy scored apart
+    trees = Ranker("lightgbm", FEATURES, {}, booster=first)
+    occluded = features.astype(np.float64)
+    occluded[:, list(absent)] = 0.0
+    (lost,) = trees.contributions(features, [absent])
+    assert np.allclose(lost, trees.score(features) - trees.score(occluded))
 
 
 def _linear(coef: np.ndarray) -> Ranker:

@@ -273,6 +273,30 @@ def test_contributions_match_a_hand_computed_example():
     assert none.kind[0] == NO_LINK
 
 
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), kept=st.floats(0.05, 1.0))
+def test_shares_read_from_the_senders_out_links_equal_those_read_from_the_items_in_links(seed, kept):
+    # the identity of the module docstring, read from either side of the link matrix: a random graph
+    # with a hub every page links to, a sparse vector (a push result) and a few items
+    import scipy.sparse as sp
+
+    rng = np.random.default_rng(seed)
+    size = 60
+    dense = (rng.random((size, size)) < 0.08).astype(float)
+    dense[:, 0] = 1.0  # page 0: a hub with every page's link
+    np.fill_diagonal(dense, 0.0)
+    forward = sp.csr_array(dense / np.maximum(dense.sum(axis=1, keepdims=True), 1.0))
+    backward = sp.csr_array(forward.T)
+    x = np.where(rng.random(size) < kept, rng.random(size), 0.0)
+    items = np.unique(np.r_[0, rng.choice(size, 5, replace=False)])[::-1].copy()
+    space = rng.integers(-1, 4, size)
+    support = (forward, np.flatnonzero(x), x[x > 0])
+    plain = contributions(backward, lambda pages: x[pages], items, space, damping=0.85)
+    sent = contributions(backward, lambda pages: x[pages], items, space, damping=0.85, support=support)
+    for name in ("via", "space", "kind"):
+        assert np.array_equal(getattr(plain, name), getattr(sent, name))
+
+
 def test_lift_zero_ranks_by_the_exact_personalised_pagerank(wiki):
     # lift 0 forces the full path (the index was built with 0.5): the order is the exact PPR order.
     path, graph, index = wiki

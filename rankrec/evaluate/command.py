@@ -266,10 +266,19 @@ def register(commands) -> None:
     )
     settings.add_argument("--no-sweep", action="store_true", help="use these settings as they are")
     grid = command.add_argument_group("sweep grids (comma-separated values)")
-    grid.add_argument("--grid-damping", type=_numbers, metavar="V,V,...", help="default 0.5,0.7,0.85,0.95")
-    grid.add_argument("--grid-lift", type=_numbers, metavar="V,V,...", help="default 0,0.25,0.5,0.75,1")
-    grid.add_argument("--grid-half-life", type=_numbers, metavar="V,V,...", help="default 7,30,90,365 (days)")
+    from .sweeps import GRID_NAMES, Grid  # the grid's own defaults, shown as they are
+
+    grid_defaults = Grid()
+    shown = {name: ",".join(f"{value:g}" for value in getattr(grid_defaults, name)) for name in GRID_NAMES}
+    grid.add_argument("--grid-damping", type=_numbers, metavar="V,V,...", help=f"default {shown['damping']}")
+    grid.add_argument("--grid-lift", type=_numbers, metavar="V,V,...", help=f"default {shown['lift']}")
     grid.add_argument(
-        "--grid-navigation-weight", type=_numbers, metavar="V,V,...", help="default 0,0.3,0.6,0.9"
+        "--grid-half-life", type=_numbers, metavar="V,V,...", help=f"default {shown['half_life_days']} (days)"
+    )
+    grid.add_argument(
+        "--grid-navigation-weight",
+        type=_numbers,
+        metavar="V,V,...",
+        help=f"default {shown['navigation_weight']}",
     )
     command.set_defaults(run=evaluate)

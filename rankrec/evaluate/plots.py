@@ -64,7 +64,8 @@ def plot_intervals(evaluation: Evaluation, staging: Path) -> str:
     return "ndcg_intervals.png"
 
 
-def plot_sweep(evaluation: Evaluation, sweep, staging: Path) -> str:
+def plot_sweep(evaluation: Evaluation, sweep, staging: Path, again: bool = False) -> str:
+    """A sweep's heat map; ``again``: the second sweep of the same two settings (its own file)."""
     figure = Figure(figsize=(1.3 * len(sweep.columns) + 2.5, 0.9 * len(sweep.rows) + 2), layout="constrained")
     ax = figure.subplots()
     image = ax.imshow(sweep.scores, cmap="viridis", aspect="auto")
@@ -92,7 +93,7 @@ def plot_sweep(evaluation: Evaluation, sweep, staging: Path) -> str:
         f"{name.replace('_', ' ')} {setting_text(value)}" for name, value in sweep.fixed.items()
     )
     ax.set_title(f"{sweep.row_name} × {sweep.column_name} ({fixed})".replace("_", " "), fontsize=10)
-    name = f"sweep_{sweep.row_name}_{sweep.column_name}.png"
+    name = f"sweep_{sweep.row_name}_{sweep.column_name}{'_again' if again else ''}.png"
     figure.savefig(staging / name, dpi=100)
     return name
 

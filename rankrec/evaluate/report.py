@@ -97,7 +97,11 @@ def write_report(evaluation: Evaluation, folder: str | Path) -> Path:
         (staging / "results.json").write_text(json.dumps(content, indent=2) + "\n", encoding="utf-8")
         plots = [charts.plot_by_k(evaluation, staging), charts.plot_intervals(evaluation, staging)]
         if evaluation.choice is not None:
-            plots += [charts.plot_sweep(evaluation, sweep, staging) for sweep in evaluation.choice.sweeps]
+            drawn = set()
+            for sweep in evaluation.choice.sweeps:
+                pair = (sweep.row_name, sweep.column_name)
+                plots.append(charts.plot_sweep(evaluation, sweep, staging, again=pair in drawn))
+                drawn.add(pair)
         if evaluation.settings.get("ranker", {}).get("importances"):
             plots.append(charts.plot_importances(evaluation, staging))
         (staging / "report.md").write_text(markdown(evaluation, content, plots), encoding="utf-8")

@@ -11,7 +11,9 @@ mean nDCG@k over its queries:
    learnt ranker, which weighs global PageRank itself, lift is not swept);
 2. half-life × navigation weight, at the best damping and lift of the first sweep (the session
    task restarts from the session's pages, so half-life has no effect there and only the navigation
-   weight is swept);
+   weight is swept); when its best cell moved away from the starting half-life or navigation weight,
+   damping × lift is swept once more at that cell (one more round of coordinate ascent: the best
+   damping and lift on a navigation-heavy walk need not be those of the starting one);
 3. for related lists (session-like tasks) with page text, and whenever the configuration learns a ranker:
    the lists *without* the ranker (``ranker="none"``: the PageRank and text mix), text weight × lift
    (text weight at its start without page text; lift swept here when the ranker kept it out of the first
@@ -72,7 +74,7 @@ class Grid:
         """Upper bound of the index builds (damping × lift, half-life × navigation weight, then text weight
         × title weight when pages have text)."""
         return (
-            len(self.damping) * len(self.lift)
+            2 * len(self.damping) * len(self.lift)
             + len(self.half_life_days) * len(self.navigation_weight)
             + len(self.text_weight) * len(self.lift)
             + 1
@@ -242,12 +244,30 @@ def choose_configuration(
         second,
         MappingProxyType({"damping": damping, "lift": lift}),
     )
+    sweeps = (damping_sweep, history_sweep)
+    half_life, weight, _ = history_sweep.best()
+    if (half_life, weight) != (start.half_life_days, start.navigation_weight):
+        again = np.full((len(grid.damping), len(lifts)), np.nan)
+        for row, damping_value in enumerate(grid.damping):
+            for column, lift_value in enumerate(lifts):
+                if (damping_value, lift_value) == (damping, lift):
+                    again[row, column] = second[half_lives.index(half_life), navigation_weights.index(weight)]
+                    continue  # built in the second sweep already
+                again[row, column] = score(
+                    start.with_values(
+                        damping=damping_value,
+                        lift=lift_value,
+                        half_life_days=half_life,
+                        navigation_weight=weight,
+                    )
+                )
+        fixed = {"half_life_days": half_life, "navigation_weight": weight}
+        sweeps += (Sweep("damping", "lift", grid.damping, lifts, again, MappingProxyType(fixed)),)
     finite = [(value, position) for position, (value, _) in enumerate(tried) if np.isfinite(value)]
     if not finite:
         raise NothingToEvaluate("validation", split.name, f"no configuration has a defined {metric}")
     best = max(finite, key=lambda pair: (pair[0], -pair[1]))[1]
     value, chosen = tried[best]
-    sweeps = (damping_sweep, history_sweep)
     with_text = getattr(evidence, "has_text", False) and split.task == "sessions"  # related lists mix text
     if with_text or (start.ranker != "none" and split.task == "sessions"):
         # without the learnt ranker: the PageRank and text mix, its text weight swept when pages have text

@@ -205,12 +205,12 @@ def click_walk(signals: Signals, seed: int) -> ClickWalk:
     if out_pages.size == 0:
         empty = np.zeros(0)
         return ClickWalk(np.zeros(0, dtype=np.int64), empty, empty, empty)
-    weight = np.ones(out_pages.size) if click is None else np.asarray(click, dtype=np.float64)[out_pages]
+    weight = np.ones(out_pages.size) if click is None else np.asarray(click)[out_pages].astype(np.float64)
     first = weight / weight.sum()
     rows = signals.forward[out_pages]
     reached = np.asarray(rows.indices, dtype=np.int64)
     entry_rows = np.repeat(np.arange(out_pages.size), np.diff(rows.indptr))
-    pull = np.ones(reached.size) if click is None else np.asarray(click, dtype=np.float64)[reached]
+    pull = np.ones(reached.size) if click is None else np.asarray(click)[reached].astype(np.float64)
     totals = np.bincount(entry_rows, weights=pull, minlength=out_pages.size)
     step = first[entry_rows] * pull / np.where(totals > 0, totals, 1.0)[entry_rows]
     pages, where = np.unique(np.concatenate([out_pages, reached]), return_inverse=True)
@@ -309,7 +309,7 @@ def pair_features(
         return out
     column = {name: position for position, name in enumerate(FEATURES)}
     ppr = _lookup(indices, values, candidates)
-    overall = np.asarray(signals.global_vector, dtype=np.float64)[candidates]
+    overall = np.asarray(signals.global_vector)[candidates].astype(np.float64)
     order = np.argsort(-ppr, kind="stable")
     rank = np.empty(m)
     rank[order] = np.arange(m)
@@ -341,7 +341,7 @@ def pair_features(
         out[:, column[value]], out[:, column[rank_column]] = _neighbour_values(matrix, seed, candidates, top)
     space = np.asarray(signals.space)
     out[:, column["same_space"]] = (space[candidates] == space[seed]) & (space[seed] >= 0)
-    out[:, column["views_log"]] = np.log1p(np.asarray(signals.views, dtype=np.float64)[candidates])
+    out[:, column["views_log"]] = np.log1p(np.asarray(signals.views)[candidates].astype(np.float64))
     starts = np.asarray(signals.backward.indptr)
     out[:, column["in_degree_log"]] = np.log1p(starts[candidates + 1] - starts[candidates])
     out[:, column["chrome_in_share"]] = np.asarray(signals.chrome_in_share)[candidates]

@@ -47,14 +47,21 @@ class Ranker:
             return np.asarray(self.booster.predict(features, num_threads=1), dtype=np.float64)
         return ((features - self.mean) / self.scale) @ self.coef
 
-    def contribution(self, features: np.ndarray, absent: dict[int, float]) -> np.ndarray:
-        """Per row, the score lost when the columns of ``absent`` take its values (see the module
-        docstring): ``score(x) − score(x with those columns absent)``."""
+    def contributions(self, features: np.ndarray, groups, scores: np.ndarray | None = None) -> list:
+        """Per group of ``groups`` (each a dict column -> absent value), per row, the score lost when those
+        columns take their absent values (see the module docstring): ``score(x) − score(x with the group
+        absent)``. ``scores``: ``score(features)`` when the caller has it. Every occluded copy is scored in
+        one call (a tree model's per-call cost dominates a list's few rows)."""
         features = np.asarray(features, dtype=np.float64)
-        occluded = features.copy()
-        for column, value in absent.items():
-            occluded[:, column] = value
-        return self.score(features) - self.score(occluded)
+        groups = list(groups)
+        scores = self.score(features) if scores is None else np.asarray(scores, dtype=np.float64)
+        occluded = np.tile(features, (len(groups), 1))
+        rows = features.shape[0]
+        for number, absent in enumerate(groups):
+            for column, value in absent.items():
+                occluded[number * rows : (number + 1) * rows, column] = value
+        lost = self.score(occluded).reshape(len(groups), rows) if rows else np.zeros((len(groups), 0))
+        return [scores - row for row in lost]
 
     def importances(self) -> dict[str, float]:
         """Each feature's importance (see the module docstring), largest 1."""

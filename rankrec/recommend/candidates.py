@@ -165,8 +165,8 @@ def ranked_block(transition, signals, ranker, space, seeds, vectors, *, damping,
     orders = [top_k(scores[bounds[row] : bounds[row + 1]], k) for row in range(len(pools))]
     chosen_rows = np.concatenate([bounds[row] + order for row, order in enumerate(orders)]).astype(np.int64)
     chosen = features[chosen_rows]
-    text_part, link_part, reading_part = (
-        ranker.contribution(chosen, absent) for absent in absent_values(signals.text_top)
+    text_part, link_part, reading_part = ranker.contributions(
+        chosen, absent_values(signals.text_top), scores[chosen_rows]
     )
     linked = chosen[:, FEATURES.index("out_link")] > 0
     by_link = linked & (link_part > np.maximum(text_part, reading_part)) & (link_part > 0)
@@ -179,8 +179,17 @@ def ranked_block(transition, signals, ranker, space, seeds, vectors, *, damping,
         part = slice(first, first + orders[row].size)
         first = part.stop
         pages = pools[row][orders[row]]
-        lookup = _lookup(np.asarray(indices), np.asarray(values), signals.size)
-        explained = contributions(transition.backward, lookup, pages, np.asarray(space), damping=damping)
+        indices, values = np.asarray(indices), np.asarray(values)
+        lookup = _lookup(indices, values, signals.size)
+        sending = values > 0
+        explained = contributions(
+            transition.backward,
+            lookup,
+            pages,
+            np.asarray(space),
+            damping=damping,
+            support=(transition.forward, indices[sending], values[sending]),
+        )
         explained.via[by_link[part]] = seed
         explained.kind[by_link[part]] = VIA_PAGE
         explained.kind[textual[part]] = SIMILAR_TEXT

@@ -47,6 +47,27 @@ def _gather_rows(indptr: np.ndarray, items: np.ndarray) -> tuple[np.ndarray, np.
     return positions, owner
 
 
+def _from_senders(forward, indices, values, items: np.ndarray, in_pointers, damping: float):
+    """(sources, item row, share) of every link from a page of the vector's support (``indices`` with
+    ``values``) to an item, read from the support's out-links; None when the items' in-links are fewer
+    (reading those is then cheaper)."""
+    indices = np.asarray(indices, dtype=np.int64)
+    values = np.asarray(values, dtype=np.float64)
+    pointers = np.asarray(forward.indptr)
+    sending = int((pointers[indices + 1] - pointers[indices]).sum()) if indices.size else 0
+    receiving = int((np.asarray(in_pointers)[items + 1] - np.asarray(in_pointers)[items]).sum())
+    if sending >= receiving:
+        return None
+    positions, owner = _gather_rows(pointers, indices)
+    targets = np.asarray(forward.indices[positions], dtype=np.int64)
+    order = np.argsort(items, kind="stable")
+    ranked = items[order]
+    place = np.minimum(np.searchsorted(ranked, targets), ranked.size - 1)
+    hit = ranked[place] == targets
+    share = damping * values[owner[hit]] * np.asarray(forward.data[positions[hit]], dtype=np.float64)
+    return indices[owner[hit]], order[place[hit]], share
+
+
 def contributions(
     backward,
     lookup,
@@ -55,6 +76,7 @@ def contributions(
     *,
     damping: float,
     restart_part: np.ndarray | None = None,
+    support: tuple | None = None,
 ) -> Contributions:
     """Strongest in-link sources of ``items`` under the vector that ``lookup`` reads.
 
@@ -70,6 +92,10 @@ def contributions(
     damping : float
     restart_part : ndarray, optional
         ``c·r[j]`` for each item, when the restart distribution is not the item's own seed.
+    support : (forward, indices, values), optional
+        ``P`` itself and the vector's nonzero pages (sorted) with their values. Only those pages send
+        score, so when their out-links are fewer than the items' in-links (items that are site hubs
+        have hundreds of thousands) the shares are read from the out-links instead: the same result.
 
     Returns
     -------
@@ -95,9 +121,13 @@ def contributions(
     kind = np.full(count, NO_LINK, dtype=np.int8)
     if count == 0:
         return Contributions(via, space, kind)
-    positions, owner = _gather_rows(backward.indptr, items)
-    sources = np.asarray(backward.indices[positions], dtype=np.int64)
-    share = damping * np.asarray(lookup(sources), dtype=np.float64) * backward.data[positions]
+    sent = None if support is None else _from_senders(*support, items, backward.indptr, damping)
+    if sent is None:
+        positions, owner = _gather_rows(backward.indptr, items)
+        sources = np.asarray(backward.indices[positions], dtype=np.int64)
+        share = damping * np.asarray(lookup(sources), dtype=np.float64) * backward.data[positions]
+    else:
+        sources, owner, share = sent
     total = np.bincount(owner, weights=share, minlength=count)
     positive = share > 0
     sources, owner_kept, share_kept = sources[positive], owner[positive], share[positive]
@@ -109,7 +139,7 @@ def contributions(
         via[owner_kept[leaders]] = sources[leaders]
         best_share[owner_kept[leaders]] = share_kept[leaders]
         codes = np.asarray(space_codes[sources], dtype=np.int64)
-        width = int(space_codes.max(initial=-1)) + 2
+        width = int(codes.max(initial=-1)) + 2  # the codes the sources hold (not all pages': a million)
         grouped = np.bincount(owner_kept * width + codes + 1, weights=share_kept, minlength=count * width)
         grouped = grouped.reshape(count, width)[:, 1:]  # drop "no space"
         if grouped.shape[1]:

@@ -117,3 +117,32 @@ def test_grid_refuses_empty_or_out_of_range_values():
         Grid(damping=())
     with pytest.raises(ValueError, match="navigation_weight"):
         Grid(navigation_weight=(0.2, 2.0))
+
+
+def test_damping_and_lift_are_swept_again_when_the_history_sweep_moves_away_from_the_start():
+    # coordinate ascent (common practice): after the navigation weight moved, damping × lift is tried
+    # again at the new weight, and the choice is the best cell of every sweep
+    views = _random_views(6, views=900, span=20_000.0)
+    split = _splits("temporal", views)
+    evidence = Evidence.from_links(_random_graph(views[3], 6))
+    choice = choose_configuration(split, evidence, grid=SMALL, k=5)
+    moved = choice.sweeps[1].best()[:2] != (30.0, 0.3)  # the Configuration defaults
+    again = [
+        sweep for sweep in choice.sweeps[2:] if (sweep.row_name, sweep.column_name) == ("damping", "lift")
+    ]
+    assert moved and len(again) == 1  # this seed's history sweep moves the navigation weight
+    half_life, weight, _ = choice.sweeps[1].best()
+    assert dict(again[0].fixed) == {"half_life_days": half_life, "navigation_weight": weight}
+    # a cell is what that configuration earns on validation, computed afresh
+    damping, lift = again[0].rows[1], again[0].columns[0]
+    configuration = Configuration(
+        damping=damping, lift=lift, half_life_days=half_life, navigation_weight=weight
+    )
+    lists = rankrec_lists(choice.validation, evidence, 5, configuration)
+    assert mean_metric(lists, choice.validation, 5) == pytest.approx(again[0].scores[1, 0])
+    cells = np.concatenate([sweep.scores.ravel() for sweep in choice.sweeps])
+    assert choice.score == pytest.approx(np.nanmax(cells))
+    # with a starting point already at the history sweep's best, no second round is run
+    settled = Configuration(half_life_days=half_life, navigation_weight=weight)
+    repeat = choose_configuration(split, evidence, grid=SMALL, k=5, start=settled)
+    assert repeat.sweeps[1].best()[:2] == (half_life, weight) and len(repeat.sweeps) == 2
