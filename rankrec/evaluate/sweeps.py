@@ -71,8 +71,8 @@ class Grid:
 
     @property
     def solves(self) -> int:
-        """Upper bound of the index builds (damping × lift, half-life × navigation weight, then text weight
-        × title weight when pages have text)."""
+        """Upper bound of the index builds (damping × lift, half-life × navigation weight, damping × lift
+        again, then text weight × lift when related lists mix text or a ranker, and the hub rule)."""
         return (
             2 * len(self.damping) * len(self.lift)
             + len(self.half_life_days) * len(self.navigation_weight)

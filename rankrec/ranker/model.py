@@ -60,7 +60,7 @@ class Ranker:
         for number, absent in enumerate(groups):
             for column, value in absent.items():
                 occluded[number * rows : (number + 1) * rows, column] = value
-        lost = self.score(occluded).reshape(len(groups), rows) if rows else np.zeros((len(groups), 0))
+        lost = self.score(occluded).reshape(len(groups), rows)
         return [scores - row for row in lost]
 
     def importances(self) -> dict[str, float]:
