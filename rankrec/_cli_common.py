@@ -33,6 +33,17 @@ def step_bars():
             bar.close()
 
 
+def worker_count(text: str) -> int:
+    """``--workers``' argparse type: a whole number of at least 1."""
+    try:
+        count = int(text)
+    except ValueError:
+        count = 0
+    if count < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number of at least 1; got {text!r}")
+    return count
+
+
 def pseudonym_key(args: argparse.Namespace) -> bytes | None:
     from .privacy import load_key
 

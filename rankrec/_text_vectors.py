@@ -30,12 +30,9 @@ from __future__ import annotations
 
 import contextlib
 import itertools
-import multiprocessing
 import re
 import tempfile
-from collections import deque
 from collections.abc import Iterable
-from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -45,6 +42,7 @@ from sklearn.preprocessing import normalize
 
 from ._ascii_counts import count_ascii
 from ._memory import release_memory
+from ._pool import in_order
 
 TOKEN_PATTERN = r"(?u)(?<![^\W_])(?=(?:[^\W_]*?[^\W\d_]){2})[^\W_]+(?![^\W_])"
 """Runs of letters and digits (``_`` and punctuation split them) that hold at least two letters."""
@@ -231,18 +229,7 @@ def _batches(headings: Iterable[str], bodies: Iterable[str], size: int):
 def _counted(batches, workers: int):
     """:func:`count` of each field of each batch, in order: here, or in ``workers`` processes (at most
     two batches a process in flight, so that reading does not run far ahead of counting)."""
-    if workers == 1:
-        yield from itertools.starmap(_count_fields, batches)
-        return
-    context = multiprocessing.get_context("spawn")  # numba's thread pool is not fork-safe
-    with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
-        pending: deque = deque()
-        for headings, bodies in batches:
-            pending.append(pool.submit(_count_fields, headings, bodies))
-            if len(pending) >= 2 * workers:
-                yield pending.popleft().result()
-        while pending:
-            yield pending.popleft().result()
+    yield from in_order(_count_fields, batches, workers)
 
 
 def _fill(fields: list[_Field], columns: list[np.ndarray], offsets: list[int], pages: int, width: int):

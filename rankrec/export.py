@@ -33,17 +33,19 @@ from urllib.parse import quote
 
 import numpy as np
 
+from ._pool import in_order
 from ._validation import check_choice, check_count
 from .blocks import line_ending, link_target, render_block, with_block
-from .errors import GroupTooSmall, InputError, NoSpace, UsageError
-from .index import Index
+from .errors import GroupTooSmall, InputError, NoSpace, StaleIndex, UsageError
+from .index import Index, IndexManifest, load_index
 from .progress import Progress, report
 from .recommend import Item, Reader, landing, related, team_from_store
+from .recommend.candidates import fill_candidates
 
 FORMATS = ("json", "jsonl", "csv")
 CSV_COLUMNS = ("page", "rank", "related_page", "title", "url", "score", "reason")
 LANDING_CSV_COLUMNS = ("team", "rank", "page", "title", "url", "score", "reason")
-_REPORT_EVERY = 500  # pages between progress reports
+_CHUNK_PAGES = 512  # pages a task lists: their candidates are scored together, and progress moves by it
 _REPORT_TEAMS_EVERY = 20  # teams between progress reports
 _UTF8_BOM = b"\xef\xbb\xbf"
 
@@ -114,16 +116,58 @@ def url_of(urls: dict[str, str], template: str | None) -> Callable[[str], str | 
     return urls.get
 
 
-def _listed(index: Index, groups, k: int, progress: Progress | None) -> Iterator[tuple[str, tuple]]:
-    """(page id, items) of every page the viewer may see, in page-id order."""
+def _chunk_lists(index: Index, groups, k: int, numbers: np.ndarray) -> list[tuple[str, tuple[Item, ...]]]:
+    """(page id, items) of each of ``numbers``, as :func:`related` serves them; the candidates of pages
+    not precomputed are scored a block at a time first (:func:`fill_candidates`), then let go again."""
     reader = _viewer(groups, index.size)
-    visible = index.visible(None if reader is None else reader.groups) & ~np.asarray(index.archived)
+    added = fill_candidates(index, numbers)
+    try:
+        return [(index.pages[number], related(index, number, reader=reader, k=k).items) for number in numbers]
+    finally:
+        for number in added:
+            index.cache.pop(number, None)
+
+
+_LOADED: dict[str, Index] = {}  # a worker process's index, loaded on its first task
+
+
+def _worker_index(folder: str, manifest: IndexManifest) -> Index:
+    index = _LOADED.get(folder)
+    if index is None:
+        _LOADED.clear()
+        index = _LOADED[folder] = load_index(folder)
+    if index.manifest != manifest:  # rebuilt while the export ran: its lists would mix two indexes
+        raise StaleIndex(expected="the index the export started from", found="an index published since")
+    return index
+
+
+def _worker_lists(folder: str, manifest: IndexManifest, groups, k: int, numbers: np.ndarray) -> list:
+    """:func:`_chunk_lists` in a worker process, on the index loaded once per process."""
+    return _chunk_lists(_worker_index(folder, manifest), groups, k, numbers)
+
+
+def _listed(
+    index: Index, groups, k: int, progress: Progress | None, workers: int = 1
+) -> Iterator[tuple[str, tuple]]:
+    """(page id, items) of every page the viewer may see, in page-id order, chunk by chunk (here, or in
+    ``workers`` processes that each load the index)."""
+    visible = index.visible(groups) & ~np.asarray(index.archived)
     order = np.asarray(index.page_order)
     order = order[visible[order]]
-    for done, number in enumerate(order.tolist(), start=1):
-        yield index.pages[number], related(index, number, reader=reader, k=k).items
-        if done % _REPORT_EVERY == 0 or done == order.size:
-            report(progress, "related lists", done, int(order.size))
+    chunks = [order[first : first + _CHUNK_PAGES] for first in range(0, order.size, _CHUNK_PAGES)]
+    if workers == 1 or len(chunks) <= 1:
+        found = (_chunk_lists(index, groups, k, chunk) for chunk in chunks)
+    else:
+        folder = str(index.folder)
+        found = in_order(
+            _worker_lists, [(folder, index.manifest, groups, k, chunk) for chunk in chunks], workers
+        )
+    done = 0
+    report(progress, "related lists", 0, int(order.size))
+    for lists in found:
+        yield from lists
+        done += len(lists)
+        report(progress, "related lists", done, int(order.size))
 
 
 def _write_atomically(path: Path, write: Callable[[io.TextIOBase], None], *, newline: str | None) -> None:
@@ -216,20 +260,23 @@ def export_lists(
     k: int = 10,
     url: Callable[[str], str | None] = lambda page: None,
     progress: Progress | None = None,
+    workers: int = 1,
 ) -> ExportSummary:
     """Write every page's related list to ``path`` (see the module docstring) and say what was written.
 
     ``format``: ``json`` (one object, page id -> its items), ``jsonl`` (one object per line: ``page`` and
     ``items``) or ``csv`` (:data:`CSV_COLUMNS`, one row per item). Each item has the related page's id,
-    title, URL (``url(page)``, None without one), score and reason.
+    title, URL (``url(page)``, None without one), score and reason. ``workers`` processes make the
+    lists (each loads the index); the file is the same whatever their number.
     """
     check_choice("format", format, FORMATS)
     check_count("k", k)
+    check_count("workers", workers)
     started = time.perf_counter()
     target = Path(path)
     lists, items = _write_lists(
         target,
-        _listed(index, groups, k, progress),
+        _listed(index, groups, k, progress, workers),
         format=format,
         subject="page",
         columns=CSV_COLUMNS,
@@ -357,43 +404,54 @@ def write_into_wiki(
     visible = index.visible(None if reader is None else reader.groups) & ~np.asarray(index.archived)
     written = unchanged = without_list = not_in_index = 0
     changed, unreadable, diffs = [], refused, []
-    for done, (relative, file) in enumerate(pages, start=1):
-        page = page_id_for_path(relative)
-        number = index.find(page)
-        if number is None or not visible[number]:
-            not_in_index += 1
-            continue
-        if Path(file).is_symlink():  # replacing it would put a file where the wiki keeps a link
-            unreadable.append(f"{relative}: a symbolic link; not written")
-            continue
-        try:
-            mark, text = _decoded(read_page_bytes(file), encoding)
-            normalised = text.replace("\r\n", "\n").replace("\r", "\n")
-            if _page_text_hash(relative, file, normalised, others) != stored_hashes.get(page):
-                changed.append(relative)
+    report(progress, "pages", 0, len(pages))
+    for first in range(0, len(pages), _CHUNK_PAGES):
+        chunk = pages[first : first + _CHUNK_PAGES]
+        numbers = [index.find(page_id_for_path(relative)) for relative, _ in chunk]
+        listed = [number for number in numbers if number is not None and visible[number]]
+        added = fill_candidates(index, listed)  # the chunk's candidates scored as one block
+        for (relative, file), number in zip(chunk, numbers, strict=True):
+            if number is None or not visible[number]:
+                not_in_index += 1
                 continue
-        except (InputError, UnicodeDecodeError, OSError) as error:
-            unreadable.append(f"{relative}: {error}")
-            continue
-        found = related(index, number, reader=reader, k=k).items
-        items = [
-            (item.title, link_target(relative, file_of[item.page])) for item in found if item.page in file_of
-        ]
-        if not items:
-            without_list += 1
-            continue
-        updated = with_block(text, render_block(items, line_ending(text)))
-        if updated == text:
-            unchanged += 1
-            continue
-        diffs.append(
-            "".join(difflib.unified_diff(text.splitlines(True), updated.splitlines(True), relative, relative))
-        )
-        if not dry_run:
-            _replace_page(Path(file), mark + updated.encode("utf-8" if mark else encoding))
-        written += 1
-        if done % _REPORT_EVERY == 0 or done == len(pages):
-            report(progress, "pages", done, len(pages))
+            if Path(file).is_symlink():  # replacing it would put a file where the wiki keeps a link
+                unreadable.append(f"{relative}: a symbolic link; not written")
+                continue
+            try:
+                mark, text = _decoded(read_page_bytes(file), encoding)
+                normalised = text.replace("\r\n", "\n").replace("\r", "\n")
+                if _page_text_hash(relative, file, normalised, others) != stored_hashes.get(
+                    page_id_for_path(relative)
+                ):
+                    changed.append(relative)
+                    continue
+            except (InputError, UnicodeDecodeError, OSError) as error:
+                unreadable.append(f"{relative}: {error}")
+                continue
+            found = related(index, number, reader=reader, k=k).items
+            items = [
+                (item.title, link_target(relative, file_of[item.page]))
+                for item in found
+                if item.page in file_of
+            ]
+            if not items:
+                without_list += 1
+                continue
+            updated = with_block(text, render_block(items, line_ending(text)))
+            if updated == text:
+                unchanged += 1
+                continue
+            diffs.append(
+                "".join(
+                    difflib.unified_diff(text.splitlines(True), updated.splitlines(True), relative, relative)
+                )
+            )
+            if not dry_run:
+                _replace_page(Path(file), mark + updated.encode("utf-8" if mark else encoding))
+            written += 1
+        for number in added:
+            index.cache.pop(number, None)
+        report(progress, "pages", first + len(chunk), len(pages))
     return WikiSummary(
         files=len(pages),
         written=written,

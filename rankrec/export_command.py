@@ -7,7 +7,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from ._cli_common import list_urls, open_index, step_bars
+from ._cli_common import list_urls, open_index, step_bars, worker_count
 from .export import FORMATS
 
 _SHOWN_DIFFS = 3  # files whose whole diff a dry run prints (the others are counted)
@@ -66,6 +66,13 @@ def register(commands) -> None:
         "--dry-run", action="store_true", help="with --into: print the changes, write nothing"
     )
     export.add_argument("--encoding", default="utf-8", help="with --into: the pages' encoding (utf-8)")
+    export.add_argument(
+        "--workers",
+        type=worker_count,
+        default=1,
+        metavar="N",
+        help="with --out: processes making the lists (default 1); the file is the same for any N",
+    )
     export.set_defaults(run=_cmd_export)
 
 
@@ -98,7 +105,14 @@ def _cmd_export(args: argparse.Namespace) -> int:
         if args.out is not None:
             url = list_urls(args, store)
             done = export_lists(
-                index, args.out, format=_format(args), groups=groups, k=args.k, url=url, progress=progress
+                index,
+                args.out,
+                format=_format(args),
+                groups=groups,
+                k=args.k,
+                url=url,
+                progress=progress,
+                workers=args.workers,
             )
             print(
                 f"{done.lists:,} lists, {done.items:,} items written to {done.path} in {done.seconds:.1f} s"

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ._cli_common import pseudonym_key, step_bars
+from ._cli_common import pseudonym_key, step_bars, worker_count
 from ._output import print_mapping
 from .sources import FORMATS, ROOT_RELATIVE, SAME_PAGE, SPACE_MODES, check_base_url, detect_format
 from .sources.records import DEFAULT_EXCLUDE
@@ -79,7 +79,7 @@ def register(commands) -> None:
     )
     imp.add_argument(
         "--workers",
-        type=_worker_count,
+        type=worker_count,
         default=1,
         metavar="N",
         help="folders: processes parsing the page files (default 1); the store is the same for any N",
@@ -164,16 +164,6 @@ def _store_line(wiki: str, held: dict) -> str:
         f"between its pages (stats: links) and {held['unresolved_links']:,} to pages no source describes "
         "(stats: unresolved links)" + (f", {other:,} from pages no source describes" if other else "")
     )
-
-
-def _worker_count(text: str) -> int:
-    try:
-        count = int(text)
-    except ValueError:
-        count = 0
-    if count < 1:
-        raise argparse.ArgumentTypeError(f"must be a whole number of at least 1; got {text!r}")
-    return count
 
 
 def _site_line(site, kept: bool) -> str:

@@ -16,6 +16,7 @@ processes (``workers``); they come back in file order, so the store is the same 
 
 from __future__ import annotations
 
+import itertools
 import time
 from collections import Counter
 from collections.abc import Sequence
@@ -29,7 +30,7 @@ from .errors import InputError
 from .privacy import stored_id
 from .progress import Progress, report
 from .sources import SPACE_MODES, SiteShape, detect_format, read_source, shape_site
-from .sources.records import LinkRecord, MembershipRecord, PageRecord, ViewRecord
+from .sources.records import EdgeRows, LinkRecord, MembershipRecord, PageRecord, ViewRecord
 from .store import Store
 
 _BATCH = 50_000
@@ -65,13 +66,14 @@ class _Batch:
     places: list = field(default_factory=list)  # (source, target, place, occurrences)
     views: list = field(default_factory=list)
     memberships: list = field(default_factory=list)
-    cleared: set = field(default_factory=set)
+    cleared: set | None = field(default_factory=set)  # None: the store held no links, none to forget
 
     def flush(self, store: Store, force: bool = False) -> None:
         if self.links and (force or len(self.links) >= _BATCH):
-            fresh = {row[0] for row in self.links} - self.cleared
-            store.clear_links_from(fresh)
-            self.cleared |= fresh
+            if self.cleared is not None:
+                fresh = {row[0] for row in self.links} - self.cleared
+                store.clear_links_from(fresh)
+                self.cleared |= fresh
             store.put_links(self.links)
             store.put_link_places(self.places)
             self.links.clear()
@@ -164,7 +166,6 @@ def import_sources(
         jobs.append((str(path), detect_format(path) if format == "auto" else format))
     reports: list[ImportReport] = []
     ledger = _PageLedger(pseudonym_key)
-    cleared: set[str] = set()
     handled = 0
 
     def counted(records: int) -> None:
@@ -172,7 +173,8 @@ def import_sources(
         handled += records
         report(progress, "importing", handled, 0)
 
-    with store.transaction():
+    with store.transaction(), store.links_loading() as no_links:
+        cleared = None if no_links else set()  # None: no page has old out-links to forget
         for path, format in jobs:
             reports.append(
                 _import_one(store, path, format, ledger, cleared, strict, error_cap, counted, site, options)
@@ -202,6 +204,12 @@ def _import_one(
     for item in items:
         if isinstance(item, InputError):
             error = item
+        elif isinstance(item, EdgeRows):
+            _put_edges(store, item, batch)
+            records["pages"] += len(item.pages)
+            records["links"] += len(item.sources)
+            pending += len(item.sources)
+            error = None
         else:
             error = _put(store, item, batch, ledger, format)
             if error is None:
@@ -261,6 +269,15 @@ def _bad_id(item) -> InputError | None:
     return None
 
 
+def _put_edges(store, rows: EdgeRows, batch: _Batch) -> None:
+    """A run of an edge list's rows: its new endpoints marked present (as PageRecords of an edge list
+    would be), its links batched. The reader checked every id."""
+    store.put_named_pages(rows.pages, [f"{rows.file}:{line}" for line in rows.page_lines])
+    batch.links.extend(
+        zip(rows.sources, rows.targets, rows.weights, itertools.repeat(rows.file), rows.lines, strict=False)
+    )
+
+
 def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
     error = _bad_id(item)
     if error is not None:
@@ -280,7 +297,8 @@ def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
         if error is not None:
             return error
         store.put_page(item)
-        if format in _SNAPSHOT_PAGES and item.page not in batch.cleared:
+        cleared = batch.cleared
+        if format in _SNAPSHOT_PAGES and cleared is not None and item.page not in cleared:
             store.clear_links_from([item.page])
             batch.cleared.add(item.page)
     elif isinstance(item, MembershipRecord):

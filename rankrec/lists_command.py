@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ._cli_common import list_urls, open_index, print_list, step_bars, stored_user
+from ._cli_common import list_urls, open_index, print_list, step_bars, stored_user, worker_count
 from ._output import print_mapping, print_rows
 from .errors import UsageError
 from .ranker.model import labels_text
@@ -69,7 +69,7 @@ def register(commands) -> None:
         "(auto, the default: LightGBM or a linear model, the simpler unless the other is clearly better) "
         "or by the PageRank and text mix (none)",
     )
-    build.add_argument("--workers", type=int, default=1, metavar="N", help="processes (default 1)")
+    build.add_argument("--workers", type=worker_count, default=1, metavar="N", help="processes (default 1)")
     build.set_defaults(run=_cmd_build)
 
     def list_options(command, k: int) -> None:

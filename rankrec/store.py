@@ -16,7 +16,7 @@ import hashlib
 import json
 import sqlite3
 import zlib
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -223,6 +223,36 @@ class Store(StoreReads):
         self._put_text(page_id, getattr(record, "text", ""), getattr(record, "headings", ""))
         return page_id
 
+    @contextmanager
+    def links_loading(self) -> Iterator[bool]:
+        """Inside :meth:`transaction`, around writing many links: when the store holds none yet, the
+        index of links by target is dropped and built again at the end, one sort instead of a random
+        insert per link (a rollback brings it back as it was). Gives whether the store held no links,
+        in which case no page has old out-links (or places of them) to forget."""
+        empty = not any(
+            self.connection.execute(f"SELECT 1 FROM {table} LIMIT 1").fetchone()
+            for table in ("links", "link_occurrences")
+        )
+        if not empty:
+            yield False
+            return
+        self.connection.execute("DROP INDEX IF EXISTS links_by_target")
+        yield True
+        self.connection.execute("CREATE INDEX IF NOT EXISTS links_by_target ON links (target_id)")
+
+    def put_named_pages(self, pages: Sequence[str], origins: Sequence[str]) -> None:
+        """Mark ``pages`` present as a source that only names them does (an edge list's endpoints):
+        a page without a title or origin gets its id and ``origins``' entry; one with them keeps them.
+        The same as :meth:`put_page` with ``describe=False``, one statement a page."""
+        known, cursor = self._page_ids, self.connection.cursor()
+        for page, origin in zip(pages, origins, strict=True):
+            known[page] = cursor.execute(
+                "INSERT INTO pages (page, title, origin, present) VALUES (?, ?, ?, 1) "
+                "ON CONFLICT (page) DO UPDATE SET present = 1, title = coalesce(title, excluded.title), "
+                "origin = coalesce(origin, excluded.origin) RETURNING id",
+                (page, page, origin),
+            ).fetchone()[0]
+
     def _put_text(self, page_id: int, text: str, headings: str) -> None:
         self.connection.execute("DELETE FROM page_text WHERE page_id = ?", (page_id,))
         data = clip_utf8(text or "", TEXT_BYTES).encode("utf-8")
@@ -251,18 +281,22 @@ class Store(StoreReads):
         plain, placed = [], []
         for row in rows:
             (placed if len(row) > 3 else plain).append(row)
+        ids = self._page_ids
+        for page in {page for row in (*plain, *placed) for page in row[:2]} - ids.keys():
+            self.page_id(page)  # pages only referred to: a row each, once
         self.connection.executemany(
             "INSERT INTO links (source_id, target_id, weight) VALUES (?, ?, ?) "
             "ON CONFLICT (source_id, target_id) DO UPDATE SET weight = excluded.weight",
-            [(self.page_id(source), self.page_id(target), weight) for source, target, weight in plain],
+            [(ids[source], ids[target], weight) for source, target, weight in plain],
         )
         if placed:
+            files = {file: self._file_id(file) for file in {row[3] for row in placed}}
             self.connection.executemany(
                 "INSERT INTO links (source_id, target_id, weight, file_id, line) VALUES (?, ?, ?, ?, ?) "
                 "ON CONFLICT (source_id, target_id) DO UPDATE SET weight = excluded.weight, "
                 "file_id = excluded.file_id, line = excluded.line",
                 [
-                    (self.page_id(source), self.page_id(target), weight, self._file_id(file), line)
+                    (ids[source], ids[target], weight, files[file], line)
                     for source, target, weight, file, line in placed
                 ],
             )

@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from rankrec.blocks import END, START, render_block, strip_block, with_block
 from rankrec.cli import main
 from rankrec.index import load_index
-from rankrec.recommend import related
+from rankrec.recommend import Reader, related
 from rankrec.sources._links import page_id_for_path
 from rankrec.store import Store
 from rankrec.synth import synthesize
@@ -200,3 +200,36 @@ def test_with_block_keeps_everything_outside_the_markers(lines, newline, ends, o
     assert with_block(updated, block) == updated  # idempotent
     block_lines = updated[start:end].split(newline)
     assert all("\r" not in line and "\n" not in line for line in block_lines)  # the page's own line ending
+
+
+def test_pages_not_precomputed_get_their_first_request_lists_for_any_number_of_workers(tmp_path):
+    # The demo wiki built by push with only the most-viewed pages precomputed (and the ranker it learns):
+    # the export scores the other pages' candidates in blocks, here and in worker processes; each list
+    # must be the one `related` serves on a first request, which scores that page alone.
+    from rankrec.build import build_index
+    from rankrec.demo import import_demo
+    from rankrec.export import export_lists
+
+    wiki = import_demo(tmp_path / "demo")
+    with Store(wiki, create=False) as store:
+        groups = store.names_of("group")
+        folder = build_index(store, tmp_path / "index", method="push", view_share=0.3)
+    index = load_index(folder)
+    assert index.ranker is not None
+    assert 0 < index.manifest.counts["precomputed"] < index.size
+    viewer = frozenset(groups[:1])
+    files = []
+    for workers in (1, 2):
+        out = tmp_path / f"lists-{workers}.json"
+        export_lists(load_index(folder), out, groups=viewer, k=8, workers=workers)
+        files.append(out.read_bytes())
+    assert files[0] == files[1]
+    exported = json.loads(files[0])
+    first_requests = load_index(folder)
+    reader = Reader(user="x", groups=viewer, restart=np.zeros(index.size), recent=np.zeros(0, dtype=np.int64))
+    visible = first_requests.visible(viewer) & ~np.asarray(first_requests.archived)
+    assert set(exported) == {first_requests.pages[number] for number in np.flatnonzero(visible)}
+    for page, items in exported.items():
+        served = related(first_requests, page, reader=reader, k=8).items
+        assert [(item["page"], item["reason"]) for item in items] == [(i.page, i.reason) for i in served]
+        assert [item["score"] for item in items] == pytest.approx([i.score for i in served], rel=1e-6)

@@ -210,3 +210,27 @@ def test_an_edge_list_replaces_the_link_places_of_its_sources(tmp_path, store):
     assert _places(store) == {("a", "b", "div.footer", 1)}
     import_sources(store, [_write(tmp_path, "links.csv", "source,target\na,b\n")])
     assert _places(store) == set() and store.counts()["links"] == 1  # an edge list has no places
+
+
+def _indexes(store: Store) -> list[tuple]:
+    return store.connection.execute(
+        "SELECT name, tbl_name, sql FROM sqlite_master WHERE type = 'index' AND sql IS NOT NULL ORDER BY 1"
+    ).fetchall()
+
+
+def test_a_first_load_of_links_keeps_the_schema_and_a_failed_one_the_store(tmp_path, store):
+    # A store without links loads them with the index by target dropped and built again at the end: the
+    # schema afterwards is the one a new store has (sqlite_master), the index answers by target
+    # (EXPLAIN QUERY PLAN names it, SQLite's documented query-plan output), and a strict import that fails
+    # halfway leaves the store exactly as before, index and all.
+    fresh = _indexes(store)
+    before = _dump(store)
+    bad = _write(tmp_path, "bad.csv", EDGES + "ops/runbook,ops/runbook\n")
+    with pytest.raises(InputError, match="self-link"):
+        import_sources(store, [_write(tmp_path, "links.csv", EDGES), bad], strict=True)
+    assert _dump(store) == before and _indexes(store) == fresh
+    import_sources(store, [_write(tmp_path, "links.csv", EDGES)])
+    assert _indexes(store) == fresh
+    plan = store.connection.execute("EXPLAIN QUERY PLAN SELECT source_id FROM links WHERE target_id = 1")
+    assert any("links_by_target" in row[-1] for row in plan)
+    assert store.counts()["links"] == 3

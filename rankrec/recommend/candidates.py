@@ -9,12 +9,12 @@ without score, so per-reader filters still leave full lists.
 
 from __future__ import annotations
 
-from concurrent.futures import ProcessPoolExecutor
 from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
 
+from .._pool import in_order
 from ..configuration import Configuration
 from ..index import Index, index_signals, load_array, load_transition
 from ..pagerank import Transition, personalised_pagerank, push
@@ -26,6 +26,7 @@ from .select import lifted, top_k
 
 DEFAULT_K_RELATED = 50  # enough candidates that access and "already linked" filters still leave 10-20
 _BLOCK_CELLS = 1 << 22  # pages × seed columns of one block power iteration (32 MiB of float64)
+_FILL_BLOCK = 256  # pages whose candidates one fill_candidates block scores together (one model call)
 _WIDEST = 64  # seeds per block: wider blocks were measured slower (cache), narrower waste the lanes
 _FIELDS = {
     "pages": (np.int32, -1),
@@ -320,22 +321,51 @@ def write_related(
         batches = [chosen[first : first + batch] for first in range(0, chosen.size, batch)]
         offsets = np.cumsum([0] + [seeds.size for seeds in batches])[:-1]
         settings = (str(staging), method, configuration.to_dict(), k)
-        if workers == 1 or len(batches) <= 1:
-            for first, seeds in zip(offsets, batches, strict=True):
-                store_block(first, related_block(settings, seeds))
-        else:
-            import multiprocessing
-
-            context = multiprocessing.get_context("spawn")  # numba's thread pool is not fork-safe
-            with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
-                blocks = pool.map(related_block, [settings] * len(batches), batches)
-                for first, block in zip(offsets, blocks, strict=True):
-                    store_block(first, block)
+        tasks = [(settings, seeds) for seeds in batches]
+        blocks = in_order(related_block, tasks, workers if len(tasks) > 1 else 1, ahead=4)
+        for first, block in zip(offsets, blocks, strict=True):
+            store_block(first, block)
     row = np.full(size, -1, dtype=np.int32)
     row[chosen] = np.arange(chosen.size, dtype=np.int32)
     np.save(staging / "related_row.npy", row)
     for name, values in arrays.items():
         np.save(staging / f"related_{name}.npy", values)
+
+
+def _index_arrays(index: Index) -> tuple:
+    """The arrays :func:`_block` reads, from a loaded index."""
+    ranker = index.ranker
+    return (
+        index.transition,
+        index.global_vector,
+        index.archived,
+        index.space,
+        index.text,
+        ranker,
+        None if ranker is None else index.signals,
+    )
+
+
+def fill_candidates(index: Index, numbers) -> list[int]:
+    """Compute the candidates of those of ``numbers`` that are neither precomputed nor cached, a block
+    at a time by the build's method, into ``index.cache``; return the page numbers added (for the
+    caller to drop again). Exporting every page asks for them in blocks this way; a first request
+    asks for one page."""
+    numbers = np.asarray(numbers, dtype=np.int64)
+    missing = numbers[np.asarray(index.related["row"])[numbers] < 0].tolist()
+    missing = [number for number in dict.fromkeys(missing) if number not in index.cache]
+    method = index.manifest.precompute["method"]
+    # push: one seed at a time whatever the block, so a block's lists are each page's own; power: the
+    # block's iteration count is its slowest column's, so one seed per solve, as a first request solves it
+    width = 1 if method == "power" else _FILL_BLOCK
+    arrays = _index_arrays(index)
+    for first in range(0, len(missing), width):
+        seeds = np.array(missing[first : first + width], dtype=np.int64)
+        block = _block(arrays, seeds, method, index.configuration, index.manifest.k_related)
+        for row, number in enumerate(seeds.tolist()):
+            count = int(np.count_nonzero(block["pages"][row] >= 0))
+            index.cache[number] = {name: values[row, :count].copy() for name, values in block.items()}
+    return missing
 
 
 def page_candidates(index: Index, number: int) -> dict:
@@ -345,24 +375,6 @@ def page_candidates(index: Index, number: int) -> dict:
     if row >= 0:
         count = int(np.count_nonzero(related["pages"][row] >= 0))
         return {name: np.asarray(values[row, :count]) for name, values in related.items() if name != "row"}
-    found = index.cache.get(number)
-    if found is None:
-        ranker = index.ranker
-        block = _block(
-            (
-                index.transition,
-                index.global_vector,
-                index.archived,
-                index.space,
-                index.text,
-                ranker,
-                None if ranker is None else index.signals,
-            ),
-            np.array([number]),
-            index.manifest.precompute["method"],
-            index.configuration,
-            index.manifest.k_related,
-        )
-        count = int(np.count_nonzero(block["pages"][0] >= 0))
-        found = index.cache[number] = {name: values[0, :count] for name, values in block.items()}
-    return found
+    if number not in index.cache:
+        fill_candidates(index, [number])
+    return index.cache[number]

@@ -151,10 +151,10 @@ def read_source(path: str | Path, format: str, **options: Any) -> Iterator[Recor
 
         picked = _pick(given, "encoding", "base_url", "exclude", "tally", "workers", "progress")
         return read_html_folder(path, **picked)
-    if format == "edges":
-        from .edges import read_edge_list
+    if format == "edges":  # runs of rows (EdgeRows), not a record per row
+        from .edges import read_edge_rows
 
-        return read_edge_list(path, **_pick(given, "encoding"))
+        return read_edge_rows(path, **_pick(given, "encoding"))
     if format == "pages":
         from .pages import read_page_export
 

@@ -11,12 +11,14 @@ from pathlib import Path
 from ..errors import InputError
 from ._fields import FieldError, column_count_reason, iter_rows, parse_id, parse_weight
 from ._text import check_encoding
-from .records import LinkRecord, Origin, PageRecord
+from .records import EdgeRows, LinkRecord, PageRecord
 
 HEADER_PAIRS = frozenset({("source", "target"), ("from", "to"), ("src", "dst")})
 """Known names of the two endpoint columns (compared case-insensitively); a third is ``weight``."""
 
 _PACK = 1 << 32  # ids are numbered densely, so (source, target) packs into one int key
+RUN_ROWS = 50_000
+"""Most links of one :class:`~rankrec.sources.records.EdgeRows` run."""
 
 
 def read_edge_list(
@@ -43,6 +45,21 @@ def read_edge_list(
     >>> os.unlink(f.name)
     """
     check_encoding(encoding)
+    return _records(_read(path, encoding))
+
+
+def _records(items: Iterator[EdgeRows | InputError]) -> Iterator[PageRecord | LinkRecord | InputError]:
+    for item in items:
+        if isinstance(item, InputError):
+            yield item
+        else:
+            yield from item.records()
+
+
+def read_edge_rows(path: str | Path, *, encoding: str = "utf-8") -> Iterator[EdgeRows | InputError]:
+    """What :func:`read_edge_list` reads, its good rows in runs of at most :data:`RUN_ROWS` links
+    (:class:`~rankrec.sources.records.EdgeRows`), each bad row an InputError between two runs."""
+    check_encoding(encoding)
     return _read(path, encoding)
 
 
@@ -54,15 +71,39 @@ def is_known_header(fields: list[str]) -> bool:
     return len(names) in (2, 3) and (names[0], names[1]) in HEADER_PAIRS
 
 
-def _read(path: str | Path, encoding: str) -> Iterator[PageRecord | LinkRecord | InputError]:
+class _Run:
+    """The good rows read since the last run was handed out (see :class:`EdgeRows`)."""
+
+    def __init__(self, name: str, checked: dict[str, str] | None = None) -> None:
+        self.name = name
+        self.checked = {} if checked is None else checked  # kept from run to run
+        self.pages: list[str] = []
+        self.page_lines: list[int] = []
+        self.sources: list[str] = []
+        self.targets: list[str] = []
+        self.weights: list[float] = []
+        self.lines: list[int] = []
+
+    def taken(self) -> Iterator[EdgeRows]:
+        """The run so far (if it holds anything), then an empty one."""
+        if self.pages or self.sources:
+            yield EdgeRows(
+                self.name, self.pages, self.page_lines, self.sources, self.targets, self.weights, self.lines
+            )
+            self.__init__(self.name, self.checked)
+
+
+def _read(path: str | Path, encoding: str) -> Iterator[EdgeRows | InputError]:
     name = str(path)
     ids: dict[str, int] = {}
     edges: dict[int, int] = {}
     held: tuple[int, list[str]] | None = None  # the first row while it may still be a header
     watch: tuple[str, str] = ("", "")
     rows = 0
+    run = _Run(name)
     for item in iter_rows(path, encoding, comments=True):
         if isinstance(item, InputError):
+            yield from run.taken()
             yield item
             continue
         number, fields = item
@@ -77,37 +118,52 @@ def _read(path: str | Path, encoding: str) -> Iterator[PageRecord | LinkRecord |
         elif held is not None and len(fields) >= 2:
             source, target = fields[0].strip(), fields[1].strip()
             if source in watch or target in watch:  # the first row's fields occur again: it is data
-                yield from _edge(name, *held, ids, edges)
+                yield from _edge(run, *held, ids, edges)
                 held = None
-        yield from _edge(name, number, fields, ids, edges)
+        yield from _edge(run, number, fields, ids, edges)
+        if len(run.sources) >= RUN_ROWS:
+            yield from run.taken()
     if held is not None and rows == 1:
-        yield from _edge(name, *held, ids, edges)
+        yield from _edge(run, *held, ids, edges)
+    yield from run.taken()
 
 
 def _edge(
-    name: str, number: int, fields: list[str], ids: dict[str, int], edges: dict[int, int]
-) -> Iterator[PageRecord | LinkRecord | InputError]:
+    run: _Run, number: int, fields: list[str], ids: dict[str, int], edges: dict[int, int]
+) -> Iterator[EdgeRows | InputError]:
+    """Add one row to ``run``; a bad row hands out the run so far, then its InputError."""
+    name = run.name
     if len(fields) not in (2, 3):
+        yield from run.taken()
         yield InputError(name, number, column_count_reason(len(fields), "2 or 3 (source,target[,weight])"))
         return
+    raw_source, raw_target = fields[0], fields[1]
+    checked = run.checked  # fields as given -> their ids: each distinct field is checked once
     try:
-        source = parse_id(fields[0], "source id")
-        target = parse_id(fields[1], "target id")
+        source = checked.get(raw_source) or parse_id(raw_source, "source id")
+        target = checked.get(raw_target) or parse_id(raw_target, "target id")
         weight = parse_weight(fields[2]) if len(fields) == 3 else 1.0
     except FieldError as error:
+        yield from run.taken()
         yield InputError(name, number, str(error))
         return
-    origin = Origin(name, number)
+    checked[raw_source], checked[raw_target] = source, target
     for page in (source, target):
         if page not in ids:
             ids[page] = len(ids)
-            yield PageRecord(page, page, origin)
+            run.pages.append(page)
+            run.page_lines.append(number)
     if source == target:
+        yield from run.taken()
         yield InputError(name, number, f"self-link: source and target are both {source!r}")
         return
     key = ids[source] * _PACK + ids[target]
     first = edges.setdefault(key, number)
     if first != number:
+        yield from run.taken()
         yield InputError(name, number, f"duplicate link {source!r} -> {target!r} (first on line {first})")
         return
-    yield LinkRecord(source, target, origin, weight)
+    run.sources.append(source)
+    run.targets.append(target)
+    run.weights.append(weight)
+    run.lines.append(number)

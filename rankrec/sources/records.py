@@ -125,4 +125,36 @@ def clip_utf8(text: str, limit: int) -> str:
     return data[:limit].decode("utf-8", errors="ignore")  # drops only a character cut in two
 
 
+@dataclass(frozen=True, slots=True)
+class EdgeRows:
+    """A run of an edge list's good rows, column by column: what a PageRecord per endpoint first seen
+    and a LinkRecord per row would say, without an object per row (a list of ten million links is read
+    in seconds). ``pages`` are the endpoints first seen in the run, ``page_lines`` the line of each;
+    ``sources``, ``targets``, ``weights`` and ``lines`` hold one entry per link. Every id is checked.
+    """
+
+    file: str
+    pages: list[str]
+    page_lines: list[int]
+    sources: list[str]
+    targets: list[str]
+    weights: list[float]
+    lines: list[int]
+
+    def records(self):
+        """The same as PageRecords and LinkRecords, in line order (an endpoint before its first link)."""
+        pages = iter(zip(self.pages, self.page_lines, strict=True))
+        waiting = next(pages, None)
+        for source, target, weight, line in zip(
+            self.sources, self.targets, self.weights, self.lines, strict=True
+        ):
+            while waiting is not None and waiting[1] <= line:
+                yield PageRecord(waiting[0], waiting[0], Origin(self.file, waiting[1]))
+                waiting = next(pages, None)
+            yield LinkRecord(source, target, Origin(self.file, line), weight)
+        while waiting is not None:
+            yield PageRecord(waiting[0], waiting[0], Origin(self.file, waiting[1]))
+            waiting = next(pages, None)
+
+
 Record = PageRecord | LinkRecord | ViewRecord | MembershipRecord

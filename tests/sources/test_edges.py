@@ -175,3 +175,58 @@ def test_arbitrary_bytes_never_raise(data):
         path.write_bytes(data)
         records = list(read_edge_list(path))
     assert all(isinstance(r, PageRecord | LinkRecord | InputError) for r in records)
+
+
+def _same(item):
+    """A record as it is; an InputError (no equality of its own) by its message."""
+    return str(item) if isinstance(item, InputError) else item
+
+
+padded_rows = st.lists(
+    st.tuples(
+        st.sampled_from(["a", " a", "b ", "c", "c"]),
+        st.sampled_from(["a", "b", " b", "c", "x\x01"]),
+        st.sampled_from(["", "2", "-1"]),
+    ),
+    max_size=25,
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(rows=padded_rows, run=st.integers(1, 4))
+def test_runs_of_any_length_read_as_one_record_per_row_in_line_order(rows, run):
+    # The reader hands out its good rows in runs (EdgeRows); how long a run is changes nothing: the
+    # records (and InputErrors) are those of one long run, in line order, each endpoint before its
+    # first link. Ids padded with blanks are checked once and stripped (as parse_id strips them).
+    import rankrec.sources.edges as edges
+
+    lines = ["source,target,weight"] + [f"{s},{t},{w}" for s, t, w in rows]
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "links.csv"
+        path.write_text("\n".join(lines) + "\n")
+        whole = list(read_edge_list(path))
+        kept = edges.RUN_ROWS
+        edges.RUN_ROWS = run
+        try:
+            pieces = list(read_edge_list(path))
+            runs = [item for item in edges.read_edge_rows(path) if not isinstance(item, InputError)]
+        finally:
+            edges.RUN_ROWS = kept
+    assert [_same(item) for item in pieces] == [_same(item) for item in whole]
+    assert all(len(item.sources) <= run for item in runs)
+    where = [r.line if isinstance(r, InputError) else r.origin.line for r in whole]
+    assert where == sorted(where)
+    named = set()
+    for record in whole:
+        if isinstance(record, PageRecord):
+            named.add(record.page)
+        elif isinstance(record, LinkRecord):
+            assert {record.source, record.target} <= named
+            assert record.source == record.source.strip() and record.target == record.target.strip()
+    expected, seen = [], set()
+    for number, (s, t, w) in enumerate(rows, 2):
+        s, t = s.strip(), t.strip()
+        if "\x01" not in t and w != "-1" and s != t and (s, t) not in seen:
+            seen.add((s, t))
+            expected.append((s, t, float(w or 1), number))
+    assert _links(whole) == expected

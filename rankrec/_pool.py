@@ -1,0 +1,42 @@
+"""A module-level function over many argument tuples in worker processes, the results in order.
+
+Spawned, not forked: numba's thread pool is not fork-safe, and a parent holding an open SQLite
+connection must not carry it across a fork (SQLite's own advice). At most ``ahead`` tasks per worker
+wait ahead of the one being read, which bounds what the results hold in memory.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import Future, ProcessPoolExecutor
+from typing import Any
+
+
+def in_order(
+    function: Callable[..., Any], arguments: Iterable[tuple], workers: int, *, ahead: int = 2
+) -> Iterator[Any]:
+    """``function(*a)`` for each ``a`` of ``arguments``, in their order: here when ``workers`` is 1,
+    else in that many spawned processes (``function`` must be importable by name).
+
+    >>> list(in_order(divmod, [(7, 2), (9, 4)], 1))
+    [(3, 1), (2, 1)]
+    """
+    if workers == 1:
+        for argument in arguments:
+            yield function(*argument)
+        return
+    context = multiprocessing.get_context("spawn")
+    with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
+        pending: deque[Future] = deque()
+        try:
+            for argument in arguments:
+                pending.append(pool.submit(function, *argument))
+                if len(pending) >= ahead * workers:
+                    yield pending.popleft().result()
+            while pending:
+                yield pending.popleft().result()
+        finally:  # a failure or an early stop: nothing more starts
+            for waiting in pending:
+                waiting.cancel()
