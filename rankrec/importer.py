@@ -34,6 +34,7 @@ from .sources.records import EdgeRows, LinkRecord, MembershipRecord, PageRecord,
 from .store import Store
 
 _BATCH = 50_000
+_PAGES = 1_000  # described pages written together (their text, at most 64 KiB each, waits in memory)
 #: formats whose page records only say "this page exists" (their title is the id)
 _IMPLICIT_PAGES = {"edges"}
 #: formats whose page records come with the page's whole set of out-links
@@ -62,6 +63,7 @@ class ImportReport:
 class _Batch:
     """Rows waiting to be written; a page's old out-links are forgotten before its first new one."""
 
+    pages: list = field(default_factory=list)  # (PageRecord, whether its links are a snapshot)
     links: list = field(default_factory=list)
     places: list = field(default_factory=list)  # (source, target, place, occurrences)
     views: list = field(default_factory=list)
@@ -69,7 +71,17 @@ class _Batch:
     cleared: set | None = field(default_factory=set)  # None: the store held no links, none to forget
 
     def flush(self, store: Store, force: bool = False) -> None:
-        if self.links and (force or len(self.links) >= _BATCH):
+        links_due = bool(self.links) and (force or len(self.links) >= _BATCH)
+        if self.pages and (force or links_due or len(self.pages) >= _PAGES):
+            # before any links: a snapshot page forgets its old out-links before its new ones go in
+            store.put_pages([record for record, _ in self.pages])
+            if self.cleared is not None:
+                snapshots = (record.page for record, snapshot in self.pages if snapshot)
+                fresh = [page for page in dict.fromkeys(snapshots) if page not in self.cleared]
+                store.clear_links_from(fresh)
+                self.cleared.update(fresh)
+            self.pages.clear()
+        if links_due:
             if self.cleared is not None:
                 fresh = {row[0] for row in self.links} - self.cleared
                 store.clear_links_from(fresh)
@@ -296,11 +308,9 @@ def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):
         error = ledger.check(item)
         if error is not None:
             return error
-        store.put_page(item)
-        cleared = batch.cleared
-        if format in _SNAPSHOT_PAGES and cleared is not None and item.page not in cleared:
-            store.clear_links_from([item.page])
-            batch.cleared.add(item.page)
+        batch.pages.append((item, format in _SNAPSHOT_PAGES))
+        if len(batch.pages) >= _PAGES:
+            batch.flush(store)
     elif isinstance(item, MembershipRecord):
         batch.memberships.append((item.kind, item.name, ledger.user(item.user)))
     else:  # pragma: no cover - a reader bug, not bad input

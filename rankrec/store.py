@@ -36,6 +36,13 @@ def read_store_id(path: str | Path) -> str | None:
         return store.store_id()
 
 
+def _kept_text(record) -> tuple[bytes, str]:
+    """The UTF-8 of a record's text as the store keeps it (at most TEXT_BYTES, cut at a character) and
+    its SHA-256; empty bytes for a record without text."""
+    data = clip_utf8(getattr(record, "text", "") or "", TEXT_BYTES).encode("utf-8")
+    return data, hashlib.sha256(data).hexdigest() if data else ""
+
+
 class Store(StoreReads):
     """An open wiki store. Use as a context manager, or call :meth:`close`.
 
@@ -66,6 +73,7 @@ class Store(StoreReads):
         except sqlite3.DatabaseError as error:
             raise InputError(self.path, None, f"not a usable wiki store: {error}") from None
         self._page_ids: dict[str, int] = {}
+        self._every_page_id = False  # _page_ids holds every page of the store (within one transaction)
         self._user_ids: dict[str, int] = {}
         self._place_ids: dict[str, int] = {}
         self._text_tables = False  # known to exist (set by the first write or read that looks)
@@ -87,6 +95,7 @@ class Store(StoreReads):
     def transaction(self) -> Iterator[Store]:
         """Everything inside goes in together or not at all (also on KeyboardInterrupt)."""
         with self._transaction("BEGIN IMMEDIATE"):
+            self._every_page_id = False  # another connection may have added pages since
             if not self._migrated:  # a store made before version 1's additions gains them now
                 migrate(self.connection)
                 self._text_tables = self._columns_added = self._migrated = True
@@ -132,6 +141,7 @@ class Store(StoreReads):
             if self.connection.in_transaction:  # SQLite may have rolled back already (e.g. disk full)
                 self.connection.execute("ROLLBACK")
             self._page_ids.clear()
+            self._every_page_id = False
             self._user_ids.clear()
             self._place_ids.clear()
             self._text_tables = False  # tables this transaction added are gone again
@@ -192,36 +202,51 @@ class Store(StoreReads):
                 (record.title, str(record.origin), page_id),
             )
             return page_id
-        self.connection.execute(
+        self.put_pages([record])
+        return page_id
+
+    def put_pages(self, records: Sequence) -> None:
+        """:meth:`put_page` (described) of each record, one statement per table for all of them; a page
+        described twice in ``records`` keeps its last description, as one put_page after another would."""
+        last = {record.page: record for record in records}  # first place of each page, last record
+        chosen = list(last.values())
+        ids = [self.page_id(record.page) for record in chosen]
+        pairs = list(zip(chosen, ids, strict=True))
+        connection = self.connection
+        connection.executemany(
             "UPDATE pages SET present = 1, title = ?, space = ?, url = ?, archived = ?, external_links = ?, "
             "origin = ? WHERE id = ?",
-            (
-                record.title,
-                record.space,
-                record.url,
-                int(record.archived),
-                record.external_links,
-                str(record.origin),
-                page_id,
-            ),
+            [
+                (r.title, r.space, r.url, int(r.archived), r.external_links, str(r.origin), page_id)
+                for r, page_id in pairs
+            ],
         )
         if self._columns_added:  # known inside a transaction, where pages are put
-            self.connection.execute(
+            connection.executemany(
                 "UPDATE pages SET same_page_links = ? WHERE id = ?",
-                (int(getattr(record, "same_page_links", 0)), page_id),
+                [(int(getattr(r, "same_page_links", 0)), page_id) for r, page_id in pairs],
             )
-        self.connection.execute("DELETE FROM page_tags WHERE page_id = ?", (page_id,))
-        self.connection.execute("DELETE FROM page_groups WHERE page_id = ?", (page_id,))
-        self.connection.executemany(
+        each = [(page_id,) for page_id in ids]
+        for table in ("page_tags", "page_groups", "page_text"):  # constant names
+            connection.executemany(f"DELETE FROM {table} WHERE page_id = ?", each)
+        connection.executemany(
             "INSERT OR IGNORE INTO page_tags (page_id, tag) VALUES (?, ?)",
-            [(page_id, tag) for tag in record.tags],
+            [(page_id, tag) for r, page_id in pairs for tag in r.tags],
         )
-        self.connection.executemany(
+        connection.executemany(
             "INSERT OR IGNORE INTO page_groups (page_id, name) VALUES (?, ?)",
-            [(page_id, name) for name in record.groups],
+            [(page_id, name) for r, page_id in pairs for name in r.groups],
         )
-        self._put_text(page_id, getattr(record, "text", ""), getattr(record, "headings", ""))
-        return page_id
+        texts = []
+        for r, page_id in pairs:
+            data, digest = _kept_text(r)
+            if data:
+                headings = clip_utf8(getattr(r, "headings", "") or "", HEADINGS_BYTES)
+                texts.append((page_id, zlib.compress(data), headings, digest, len(data)))
+        connection.executemany(
+            "INSERT INTO page_text (page_id, text, headings, sha256, text_bytes) VALUES (?, ?, ?, ?, ?)",
+            texts,
+        )
 
     @contextmanager
     def links_loading(self) -> Iterator[bool]:
@@ -243,31 +268,25 @@ class Store(StoreReads):
     def put_named_pages(self, pages: Sequence[str], origins: Sequence[str]) -> None:
         """Mark ``pages`` present as a source that only names them does (an edge list's endpoints):
         a page without a title or origin gets its id and ``origins``' entry; one with them keeps them.
-        The same as :meth:`put_page` with ``describe=False``, one statement a page."""
-        known, cursor = self._page_ids, self.connection.cursor()
-        for page, origin in zip(pages, origins, strict=True):
-            known[page] = cursor.execute(
-                "INSERT INTO pages (page, title, origin, present) VALUES (?, ?, ?, 1) "
-                "ON CONFLICT (page) DO UPDATE SET present = 1, title = coalesce(title, excluded.title), "
-                "origin = coalesce(origin, excluded.origin) RETURNING id",
-                (page, page, origin),
-            ).fetchone()[0]
-
-    def _put_text(self, page_id: int, text: str, headings: str) -> None:
-        self.connection.execute("DELETE FROM page_text WHERE page_id = ?", (page_id,))
-        data = clip_utf8(text or "", TEXT_BYTES).encode("utf-8")
-        if not data:
-            return
-        self.connection.execute(
-            "INSERT INTO page_text (page_id, text, headings, sha256, text_bytes) VALUES (?, ?, ?, ?, ?)",
-            (
-                page_id,
-                zlib.compress(data),
-                clip_utf8(headings or "", HEADINGS_BYTES),
-                hashlib.sha256(data).hexdigest(),
-                len(data),
-            ),
+        The same as :meth:`put_page` with ``describe=False``, in two statements for all of them (the
+        first call of a transaction reads every page id once)."""
+        known = self._page_ids
+        if not self._every_page_id:
+            known.update(self.connection.execute("SELECT page, id FROM pages"))
+            self._every_page_id = True
+        old = [(origin, known[page]) for page, origin in zip(pages, origins, strict=True) if page in known]
+        new = [(page, origin) for page, origin in zip(pages, origins, strict=True) if page not in known]
+        self.connection.executemany(
+            "UPDATE pages SET present = 1, title = coalesce(title, page), origin = coalesce(origin, ?) "
+            "WHERE id = ?",
+            old,
         )
+        first = self.connection.execute("SELECT coalesce(max(id), 0) + 1 FROM pages").fetchone()[0]
+        numbered = [(first + offset, page, origin) for offset, (page, origin) in enumerate(new)]
+        self.connection.executemany(  # the ids SQLite itself would give, one after another
+            "INSERT INTO pages (id, page, title, origin, present) VALUES (?1, ?2, ?2, ?3, 1)", numbered
+        )
+        known.update((page, number) for number, page, _ in numbered)
 
     def clear_links_from(self, pages: Iterable[str]) -> None:
         """Forget the outgoing links of ``pages`` and where they sat (before their new snapshot's)."""

@@ -261,3 +261,39 @@ def test_no_sql_outside_the_store():
         if pattern.search(line)
     ]
     assert offenders == []
+
+
+def _page_rows(store: Store) -> list[tuple]:
+    return store.connection.execute(
+        "SELECT id, page, title, present, origin FROM pages ORDER BY id"
+    ).fetchall()
+
+
+def _seeded(path: Path) -> Store:
+    """A store holding a described page, a page only linked to (no title, not present) and one more."""
+    store = Store(path)
+    with store.transaction():
+        store.put_page(PageRecord("ops/db", "Database", Origin("pages.csv", 2)))
+        store.put_links([("ops/db", "ops/backup", 1.0)])
+        store.put_page(PageRecord("ops/dns", "DNS", Origin("pages.csv", 3)))
+    return store
+
+
+def test_named_pages_in_bulk_are_what_put_page_without_description_makes(tmp_path):
+    # put_named_pages (two statements for a run of an edge list's endpoints) against put_page(describe=
+    # False) one page at a time, the path it replaces: same ids (SQLite's own max + 1), titles and
+    # origins kept where set, pages only linked to made present.
+    names = ["ops/backup", "ops/new", "ops/db", "ops/other"]
+    origins = [f"links.csv:{line}" for line in range(2, 6)]
+    with _seeded(tmp_path / "bulk.db") as bulk, _seeded(tmp_path / "one.db") as one:
+        with bulk.transaction():
+            bulk.put_named_pages(names, origins)
+            bulk.put_links([("ops/new", "ops/other", 1.0)])
+        with one.transaction():
+            for page, origin in zip(names, origins, strict=True):
+                file, line = origin.split(":")
+                one.put_page(PageRecord(page, page, Origin(file, int(line))), describe=False)
+            one.put_links([("ops/new", "ops/other", 1.0)])
+        assert _page_rows(bulk) == _page_rows(one)
+        assert _page_rows(bulk)[1] == (2, "ops/backup", "ops/backup", 1, "links.csv:2")
+        assert bulk.connection.execute("SELECT count(*) FROM links").fetchone()[0] == 2

@@ -74,9 +74,8 @@ def is_known_header(fields: list[str]) -> bool:
 class _Run:
     """The good rows read since the last run was handed out (see :class:`EdgeRows`)."""
 
-    def __init__(self, name: str, checked: dict[str, str] | None = None) -> None:
+    def __init__(self, name: str) -> None:
         self.name = name
-        self.checked = {} if checked is None else checked  # kept from run to run
         self.pages: list[str] = []
         self.page_lines: list[int] = []
         self.sources: list[str] = []
@@ -90,13 +89,14 @@ class _Run:
             yield EdgeRows(
                 self.name, self.pages, self.page_lines, self.sources, self.targets, self.weights, self.lines
             )
-            self.__init__(self.name, self.checked)
+            self.__init__(self.name)
 
 
 def _read(path: str | Path, encoding: str) -> Iterator[EdgeRows | InputError]:
     name = str(path)
-    ids: dict[str, int] = {}
-    edges: dict[int, int] = {}
+    numbers: dict[str, int] = {}  # page id, and each field as given (blanks and all) -> page number
+    names: list[str] = []  # page number -> page id
+    edges: dict[int, int] = {}  # source and target numbers, packed -> first line
     held: tuple[int, list[str]] | None = None  # the first row while it may still be a header
     watch: tuple[str, str] = ("", "")
     rows = 0
@@ -118,52 +118,64 @@ def _read(path: str | Path, encoding: str) -> Iterator[EdgeRows | InputError]:
         elif held is not None and len(fields) >= 2:
             source, target = fields[0].strip(), fields[1].strip()
             if source in watch or target in watch:  # the first row's fields occur again: it is data
-                yield from _edge(run, *held, ids, edges)
+                yield from _checked(run, _edge(run, *held, numbers, names, edges))
                 held = None
-        yield from _edge(run, number, fields, ids, edges)
-        if len(run.sources) >= RUN_ROWS:
+        error = _edge(run, number, fields, numbers, names, edges)
+        if error is not None:
+            yield from run.taken()
+            yield error
+        elif len(run.sources) >= RUN_ROWS:
             yield from run.taken()
     if held is not None and rows == 1:
-        yield from _edge(run, *held, ids, edges)
+        yield from _checked(run, _edge(run, *held, numbers, names, edges))
     yield from run.taken()
 
 
-def _edge(
-    run: _Run, number: int, fields: list[str], ids: dict[str, int], edges: dict[int, int]
-) -> Iterator[EdgeRows | InputError]:
-    """Add one row to ``run``; a bad row hands out the run so far, then its InputError."""
-    name = run.name
-    if len(fields) not in (2, 3):
+def _checked(run: _Run, error: InputError | None) -> Iterator[EdgeRows | InputError]:
+    """After a bad row: the run so far, then the row's InputError; after a good one nothing."""
+    if error is not None:
         yield from run.taken()
-        yield InputError(name, number, column_count_reason(len(fields), "2 or 3 (source,target[,weight])"))
-        return
-    raw_source, raw_target = fields[0], fields[1]
-    checked = run.checked  # fields as given -> their ids: each distinct field is checked once
+        yield error
+
+
+def _edge(
+    run: _Run, line: int, fields: list[str], numbers: dict[str, int], names: list[str], edges: dict[int, int]
+) -> InputError | None:
+    """Add one row to ``run`` (its endpoints first seen to ``run.pages``, even for a self-link), or
+    say why it is bad. One dictionary look-up per field once its id has been seen."""
+    if len(fields) not in (2, 3):
+        return InputError(run.name, line, column_count_reason(len(fields), "2 or 3 (source,target[,weight])"))
+    source_number, target_number = numbers.get(fields[0]), numbers.get(fields[1])
     try:
-        source = checked.get(raw_source) or parse_id(raw_source, "source id")
-        target = checked.get(raw_target) or parse_id(raw_target, "target id")
+        source = parse_id(fields[0], "source id") if source_number is None else names[source_number]
+        target = parse_id(fields[1], "target id") if target_number is None else names[target_number]
         weight = parse_weight(fields[2]) if len(fields) == 3 else 1.0
     except FieldError as error:
-        yield from run.taken()
-        yield InputError(name, number, str(error))
-        return
-    checked[raw_source], checked[raw_target] = source, target
-    for page in (source, target):
-        if page not in ids:
-            ids[page] = len(ids)
-            run.pages.append(page)
-            run.page_lines.append(number)
-    if source == target:
-        yield from run.taken()
-        yield InputError(name, number, f"self-link: source and target are both {source!r}")
-        return
-    key = ids[source] * _PACK + ids[target]
-    first = edges.setdefault(key, number)
-    if first != number:
-        yield from run.taken()
-        yield InputError(name, number, f"duplicate link {source!r} -> {target!r} (first on line {first})")
-        return
+        return InputError(run.name, line, str(error))
+    if source_number is None:
+        source_number = _numbered(run, line, fields[0], source, numbers, names)
+    if target_number is None:
+        target_number = _numbered(run, line, fields[1], target, numbers, names)
+    if source_number == target_number:
+        return InputError(run.name, line, f"self-link: source and target are both {source!r}")
+    first = edges.setdefault(source_number * _PACK + target_number, line)
+    if first != line:
+        return InputError(run.name, line, f"duplicate link {source!r} -> {target!r} (first on line {first})")
     run.sources.append(source)
     run.targets.append(target)
     run.weights.append(weight)
-    run.lines.append(number)
+    run.lines.append(line)
+    return None
+
+
+def _numbered(run: _Run, line: int, field: str, page: str, numbers: dict[str, int], names: list[str]) -> int:
+    """The number of ``page`` (the checked id of ``field``), a new one (and a page of ``run``) when first
+    seen; ``field`` as given maps to it too."""
+    found = numbers.get(page)
+    if found is None:
+        found = numbers[page] = len(names)
+        names.append(page)
+        run.pages.append(page)
+        run.page_lines.append(line)
+    numbers[field] = found
+    return found
