@@ -4,7 +4,8 @@ Each command lives in a module beside the code it runs, with ``register(commands
 builds the parser from them and maps errors to exit statuses, in one place.
 
 Exit status: 0 success, 2 bad input or usage (a one-line message, no traceback), 130 when
-interrupted (nothing half-written: imports roll back). Set RANKREC_DEBUG=1 to see tracebacks
+interrupted (Ctrl-C) and 143 when terminated (SIGTERM): either way nothing is half-written (imports roll
+back, staging files are removed, worker processes are stopped). Set RANKREC_DEBUG=1 to see tracebacks
 of unexpected errors.
 """
 
@@ -12,7 +13,9 @@ from __future__ import annotations
 
 import argparse
 import os
+import signal
 import sys
+import threading
 from collections.abc import Sequence
 from importlib import import_module
 
@@ -47,16 +50,26 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _Terminated(KeyboardInterrupt):
+    """SIGTERM, raised wherever the command is, so that it unwinds as after Ctrl-C."""
+
+
+def _terminated(signum, frame) -> None:
+    raise _Terminated
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
+    in_main = threading.current_thread() is threading.main_thread()
+    previous = signal.signal(signal.SIGTERM, _terminated) if in_main else None
     try:
         return args.run(args)
     except RankrecError as error:
         print(f"rankrec {args.command}: {error}", file=sys.stderr)
         return EXIT_INPUT
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as stop:
         print(f"rankrec {args.command}: interrupted; nothing was written", file=sys.stderr)
-        return 130
+        return 143 if isinstance(stop, _Terminated) else 130
     except BrokenPipeError:
         return 0
     except Exception as error:  # the last guard: a message, not a traceback
@@ -68,6 +81,9 @@ def main(argv: Sequence[str] | None = None) -> int:
             file=sys.stderr,
         )
         return 1
+    finally:
+        if previous is not None:  # None: not set from Python, or not in the main thread
+            signal.signal(signal.SIGTERM, previous)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -233,3 +233,50 @@ def test_pages_not_precomputed_get_their_first_request_lists_for_any_number_of_w
         served = related(first_requests, page, reader=reader, k=8).items
         assert [(item["page"], item["reason"]) for item in items] == [(i.page, i.reason) for i in served]
         assert [item["score"] for item in items] == pytest.approx([i.score for i in served], rel=1e-6)
+
+
+def _processes_marked(mark: str) -> list[int]:
+    """Live processes whose environment holds ``mark`` (Linux /proc; the spawned workers inherit it)."""
+    found = []
+    for entry in Path("/proc").iterdir():
+        if entry.name.isdigit():
+            try:
+                environ = (entry / "environ").read_bytes()
+            except OSError:
+                continue
+            if mark.encode() in environ:
+                found.append(int(entry.name))
+    return found
+
+
+@pytest.mark.skipif(not Path("/proc/self/environ").exists(), reason="needs Linux /proc to find the workers")
+def test_a_terminated_export_leaves_no_file_no_staging_file_and_no_worker(wiki, tmp_path):
+    # SIGTERM (what a job scheduler or `kill` sends) unwinds as Ctrl-C does: exit status 143 (128 + 15,
+    # POSIX shell convention), the staging file removed, no output file, and the worker processes gone.
+    import signal
+    import subprocess
+    import sys
+    import time
+    import uuid
+
+    folder, _ = wiki
+    mark = f"RANKREC_TEST_MARK={uuid.uuid4().hex}"
+    environment = {**os.environ, mark.split("=")[0]: mark.split("=")[1]}
+    out = tmp_path / "out" / "lists.json"
+    command = [sys.executable, "-m", "rankrec.cli", "export", "--index", str(folder / "index")]
+    child = subprocess.Popen(
+        [*command, "--out", str(out), "--workers", "2"], env=environment, stderr=subprocess.PIPE
+    )
+    deadline = time.monotonic() + 60
+    while not list(out.parent.glob(".lists.json.*")) and time.monotonic() < deadline:
+        assert child.poll() is None, "the export ended before it could be stopped"
+        time.sleep(0.01)
+    child.send_signal(signal.SIGTERM)
+    _, stderr = child.communicate(timeout=60)
+    assert child.returncode == 143, stderr
+    assert b"interrupted" in stderr
+    assert list(out.parent.iterdir()) == []
+    deadline = time.monotonic() + 10
+    while _processes_marked(mark) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert _processes_marked(mark) == []
