@@ -5,8 +5,9 @@ builds the parser from them and maps errors to exit statuses, in one place.
 
 Exit status: 0 success, 2 bad input or usage (a one-line message, no traceback), 130 when
 interrupted (Ctrl-C) and 143 when terminated (SIGTERM): either way nothing is half-written (imports roll
-back, staging files are removed, worker processes are stopped). Set RANKREC_DEBUG=1 to see tracebacks
-of unexpected errors.
+back, staging files are removed, worker processes are stopped). `rankrec serve` leaves SIGTERM to uvicorn,
+which shuts down gracefully and then ends by the signal, as service managers expect. Set RANKREC_DEBUG=1
+to see tracebacks of unexpected errors.
 """
 
 from __future__ import annotations
@@ -60,8 +61,8 @@ def _terminated(signum, frame) -> None:
 
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
-    in_main = threading.current_thread() is threading.main_thread()
-    previous = signal.signal(signal.SIGTERM, _terminated) if in_main else None
+    catch = threading.current_thread() is threading.main_thread() and not getattr(args, "own_signals", False)
+    previous = signal.signal(signal.SIGTERM, _terminated) if catch else None
     try:
         return args.run(args)
     except RankrecError as error:

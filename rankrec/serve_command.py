@@ -71,7 +71,9 @@ def register(commands) -> None:
         metavar="N",
         help="list and search requests of one token running at once (8; 32 in all)",
     )
-    serve.set_defaults(run=_cmd_serve)
+    # uvicorn shuts down gracefully on SIGTERM and then lets the signal end the process, which service
+    # managers count as a clean stop: the command keeps Python's own SIGTERM handling (see rankrec.cli)
+    serve.set_defaults(run=_cmd_serve, own_signals=True)
 
     token = commands.add_parser("token", help="manage the service's bearer tokens")
     actions = token.add_subparsers(dest="action", required=True, metavar="ACTION")
