@@ -117,7 +117,7 @@ def show_blocks(store, workdir: Path, out: TextIO) -> None:
     """Write every page's related block into a copy of the demo wiki's pages (``workdir/pages``) and
     print one page as it now ends."""
     from .blocks import START
-    from .export import stored_page_hashes, write_into_wiki
+    from .export_wiki import stored_page_hashes, write_into_wiki
     from .index import load_index
 
     copy = workdir / "pages"

@@ -1,5 +1,5 @@
-"""Every page's related list at once: into a file (:func:`export_lists`) or into the pages of a Markdown
-wiki (:func:`write_into_wiki`); every team's landing ordering into a file (:func:`export_landing`).
+"""Every page's related list at once into a file (:func:`export_lists`; into the pages of a Markdown wiki:
+:mod:`rankrec.export_wiki`); every team's landing ordering into a file (:func:`export_landing`).
 
 Related lists come from :func:`rankrec.recommend.related` for each page, as the service would answer a
 viewer in the given access groups (none: a public viewer, who gets lists of public pages only), in
@@ -9,17 +9,14 @@ landing` and of the service, for every team of the store in name order; the page
 may see *and* the viewer may see, as the service filters them; a team with too few distinct active
 readers gets no list and is only counted (:attr:`LandingSummary.too_few_readers`), never named by member.
 A file is written beside its target and renamed over it at the end, so a failed export leaves the
-previous file (or none); a page is written the same way, one at a time, keeping its encoding,
-byte-order mark, line endings and permissions.
+previous file (or none).
 """
 
 from __future__ import annotations
 
 import csv
 import dataclasses
-import difflib
 import errno
-import hashlib
 import io
 import json
 import os
@@ -27,7 +24,7 @@ import tempfile
 import time
 from collections.abc import Callable, Iterator
 from contextlib import closing
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from urllib.parse import quote
 
@@ -35,8 +32,7 @@ import numpy as np
 
 from ._pool import in_order
 from ._validation import check_choice, check_count
-from .blocks import line_ending, link_target, render_block, with_block
-from .errors import GroupTooSmall, InputError, NoSpace, StaleIndex, UsageError
+from .errors import GroupTooSmall, NoSpace, StaleIndex, UsageError
 from .index import Index, IndexManifest, load_index
 from .progress import Progress, report
 from .recommend import Item, Reader, landing, related, team_from_store
@@ -47,7 +43,6 @@ CSV_COLUMNS = ("page", "rank", "related_page", "title", "url", "score", "reason"
 LANDING_CSV_COLUMNS = ("team", "rank", "page", "title", "url", "score", "reason")
 _CHUNK_PAGES = 512  # pages a task lists: their candidates are scored together, and progress moves by it
 _REPORT_TEAMS_EVERY = 20  # teams between progress reports
-_UTF8_BOM = b"\xef\xbb\xbf"
 
 
 @dataclass(frozen=True)
@@ -71,28 +66,6 @@ class LandingSummary:
     seconds: float
     too_few_readers: int
     minimum: int
-
-
-@dataclass(frozen=True)
-class WikiSummary:
-    """What :func:`write_into_wiki` did to the Markdown files of a wiki folder.
-
-    ``changed_since_import`` lists the files whose text differs from what the store imported (left as
-    they are: import and build again first); ``not_in_index`` counts files of pages the index does not
-    hold; ``unreadable`` the files that could not be read (with why); ``diffs`` the unified diffs of the
-    files that would change (``dry_run``) or did.
-    """
-
-    files: int
-    written: int
-    unchanged: int
-    without_list: int
-    not_in_index: int
-    changed_since_import: tuple[str, ...]
-    unreadable: tuple[str, ...]
-    diffs: tuple[str, ...] = field(repr=False)
-    dry_run: bool
-    seconds: float
 
 
 def _viewer(groups: frozenset[str] | None, size: int) -> Reader | None:
@@ -343,153 +316,11 @@ def export_landing(
 
 
 # -- into a Markdown wiki ----------------------------------------------------------------------------
-def _page_text_hash(relative: str, file: str, text: str, others: set[str]) -> str | None:
-    """SHA-256 of the main text the Markdown reader takes from ``text`` (its block left out), as the
-    store keeps it (None: no text); InputError when the page does not parse."""
-    from .sources.markdown import parse_page
-    from .sources.records import TEXT_BYTES, clip_utf8
-
-    record = parse_page(relative, file, text, others)
-    if isinstance(record, InputError):
-        raise record
-    data = clip_utf8(record.text or "", TEXT_BYTES).encode("utf-8")
-    return hashlib.sha256(data).hexdigest() if data else None
-
-
-def stored_page_hashes(store) -> dict[str, str]:
-    """Page id -> SHA-256 of the text ``store`` imported for it (pages with text only)."""
-    rows, hashes = store.page_text_hashes()
-    ids, pages = store.present_pages()
-    page_of = dict(zip(ids.tolist(), pages, strict=True))
-    return {page_of[row]: digest for row, digest in zip(rows.tolist(), hashes, strict=True)}
-
-
-def _decoded(data: bytes, encoding: str) -> tuple[bytes, str]:
-    """(byte-order mark, text): a UTF-8 mark is kept apart and written back; line endings stay."""
-    if data.startswith(_UTF8_BOM):
-        return _UTF8_BOM, data[len(_UTF8_BOM) :].decode("utf-8")
-    return b"", data.decode(encoding)
-
-
-def write_into_wiki(
-    index: Index,
-    folder: str | Path,
-    *,
-    stored_hashes: dict[str, str],
-    groups: frozenset[str] | None = None,
-    k: int = 10,
-    encoding: str = "utf-8",
-    dry_run: bool = False,
-    progress: Progress | None = None,
-) -> WikiSummary:
-    """Write each Markdown page's related block (:mod:`rankrec.blocks`) into the pages of ``folder``.
-
-    ``stored_hashes`` maps page ids to the SHA-256 of the text the store imported for them: a page
-    whose file now reads otherwise is left alone and named in ``changed_since_import``. Links go to
-    other pages of the folder only (relative to the page), so every link of a block resolves.
-    """
-    from .sources._links import folder_pages, page_id_for_path
-    from .sources._text import read_page_bytes
-    from .sources.markdown import MARKDOWN_SUFFIXES
-
-    check_count("k", k)
-    started = time.perf_counter()
-    files, entries = folder_pages(folder, MARKDOWN_SUFFIXES, "Markdown")
-    entries = list(entries)
-    pages = [entry for entry in entries if not isinstance(entry, InputError)]
-    refused = [str(entry) for entry in entries if isinstance(entry, InputError)]
-    others = files.others if files is not None else set()
-    file_of = {page_id_for_path(relative): relative for relative, _ in pages}
-    reader = _viewer(groups, index.size)
-    visible = index.visible(None if reader is None else reader.groups) & ~np.asarray(index.archived)
-    written = unchanged = without_list = not_in_index = 0
-    changed, unreadable, diffs = [], refused, []
-    report(progress, "pages", 0, len(pages))
-    for first in range(0, len(pages), _CHUNK_PAGES):
-        chunk = pages[first : first + _CHUNK_PAGES]
-        numbers = [index.find(page_id_for_path(relative)) for relative, _ in chunk]
-        listed = [number for number in numbers if number is not None and visible[number]]
-        added = fill_candidates(index, listed)  # the chunk's candidates scored as one block
-        for (relative, file), number in zip(chunk, numbers, strict=True):
-            if number is None or not visible[number]:
-                not_in_index += 1
-                continue
-            if Path(file).is_symlink():  # replacing it would put a file where the wiki keeps a link
-                unreadable.append(f"{relative}: a symbolic link; not written")
-                continue
-            try:
-                mark, text = _decoded(read_page_bytes(file), encoding)
-                normalised = text.replace("\r\n", "\n").replace("\r", "\n")
-                if _page_text_hash(relative, file, normalised, others) != stored_hashes.get(
-                    page_id_for_path(relative)
-                ):
-                    changed.append(relative)
-                    continue
-            except (InputError, UnicodeDecodeError, OSError) as error:
-                unreadable.append(f"{relative}: {error}")
-                continue
-            found = related(index, number, reader=reader, k=k).items
-            items = [
-                (item.title, link_target(relative, file_of[item.page]))
-                for item in found
-                if item.page in file_of
-            ]
-            if not items:
-                without_list += 1
-                continue
-            updated = with_block(text, render_block(items, line_ending(text)))
-            if updated == text:
-                unchanged += 1
-                continue
-            diffs.append(
-                "".join(
-                    difflib.unified_diff(text.splitlines(True), updated.splitlines(True), relative, relative)
-                )
-            )
-            if not dry_run:
-                _replace_page(Path(file), mark + updated.encode("utf-8" if mark else encoding))
-            written += 1
-        for number in added:
-            index.cache.pop(number, None)
-        report(progress, "pages", first + len(chunk), len(pages))
-    return WikiSummary(
-        files=len(pages),
-        written=written,
-        unchanged=unchanged,
-        without_list=without_list,
-        not_in_index=not_in_index,
-        changed_since_import=tuple(changed),
-        unreadable=tuple(unreadable),
-        diffs=tuple(diffs),
-        dry_run=dry_run,
-        seconds=time.perf_counter() - started,
-    )
-
-
-def _replace_page(path: Path, data: bytes) -> None:
-    """Write ``data`` over ``path`` atomically, keeping its permission bits."""
-    mode = path.stat().st_mode & 0o7777
-    descriptor, staging = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        with os.fdopen(descriptor, "wb") as handle:
-            handle.write(data)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.chmod(staging, mode)
-        os.replace(staging, path)
-    except BaseException:
-        Path(staging).unlink(missing_ok=True)
-        raise
-
-
 __all__ = [
     "FORMATS",
     "ExportSummary",
     "LandingSummary",
-    "WikiSummary",
     "export_landing",
     "export_lists",
-    "stored_page_hashes",
     "url_of",
-    "write_into_wiki",
 ]

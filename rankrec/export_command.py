@@ -85,7 +85,8 @@ def _format(args: argparse.Namespace) -> str:
 
 def _cmd_export(args: argparse.Namespace) -> int:
     from .errors import UsageError
-    from .export import export_lists, stored_page_hashes, write_into_wiki
+    from .export import export_lists
+    from .export_wiki import stored_page_hashes, write_into_wiki
 
     if args.into is None and args.dry_run:
         raise UsageError("--dry-run goes with --into (an export to a file writes nothing else)")
