@@ -10,6 +10,7 @@ import json
 import zlib
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
+from operator import itemgetter
 
 from .sources.records import HEADINGS_BYTES, TEXT_BYTES, clip_utf8
 
@@ -19,6 +20,10 @@ def _kept_text(record) -> tuple[bytes, str]:
     its SHA-256; empty bytes for a record without text."""
     data = clip_utf8(getattr(record, "text", "") or "", TEXT_BYTES).encode("utf-8")
     return data, hashlib.sha256(data).hexdigest() if data else ""
+
+
+_IN_LIST = 500
+"""Most values in one ``IN (...)`` list (SQLite allows 32,766 parameters; smaller lists plan the same)."""
 
 
 class StoreWrites:
@@ -171,11 +176,38 @@ class StoreWrites:
             ],
         )
 
-    def put_views(self, rows: Iterable[tuple[str, str, float, float | None]]) -> None:
+    def put_views(self, rows: Sequence[tuple[str, str, float, float | None]]) -> None:
+        """``(user, page, timestamp, dwell)`` rows; a view already held (same user, page and time) keeps
+        its first dwell. Users and pages new to the store get their rows (a page only viewed is not
+        present), with the ids one :meth:`user_id` / :meth:`page_id` call after another would give."""
+        users = self._ids_of(self._user_ids, "users", "user", [row[0] for row in rows])
+        pages = self._ids_of(self._page_ids, "pages", "page", [row[1] for row in rows])
+        numbered = [(users[user], pages[page], ts, dwell) for user, page, ts, dwell in rows]
+        numbered.sort(key=itemgetter(0, 1, 2))  # stable: in key order the table's tree is only appended to
         self.connection.executemany(
-            "INSERT OR IGNORE INTO views (user_id, page_id, timestamp, dwell) VALUES (?, ?, ?, ?)",
-            [(self.user_id(user), self.page_id(page), ts, dwell) for user, page, ts, dwell in rows],
+            "INSERT OR IGNORE INTO views (user_id, page_id, timestamp, dwell) VALUES (?, ?, ?, ?)", numbered
         )
+
+    def _ids_of(
+        self, known: dict[str, int], table: str, column: str, values: Sequence[str]
+    ) -> dict[str, int]:
+        """``known`` (an id cache of the store) holding every value of ``values``: the ids of the rows of
+        ``table`` (a constant name) whose unique ``column`` holds them, new rows for new values in order of
+        first appearance, a few statements for all of them."""
+        fresh = [value for value in dict.fromkeys(values) if value not in known]
+        for start in range(0, len(fresh), _IN_LIST):
+            part = fresh[start : start + _IN_LIST]
+            marks = ",".join("?" * len(part))
+            known.update(
+                self.connection.execute(f"SELECT {column}, id FROM {table} WHERE {column} IN ({marks})", part)
+            )
+        new = [value for value in fresh if value not in known]
+        if new:
+            first = self.connection.execute(f"SELECT coalesce(max(id), 0) + 1 FROM {table}").fetchone()[0]
+            numbered = [(first + offset, value) for offset, value in enumerate(new)]
+            self.connection.executemany(f"INSERT INTO {table} (id, {column}) VALUES (?, ?)", numbered)
+            known.update((value, number) for number, value in numbered)
+        return known
 
     def put_memberships(self, rows: Iterable[tuple[str, str, str]]) -> None:
         self.connection.executemany(

@@ -77,6 +77,11 @@ def quoted(value: str) -> str:
     return f"{value[:QUOTED_CHARS]!r}... ({len(value)} characters)"
 
 
+def refused_character(text: str) -> bool:
+    """True if ``text`` holds a character no id may hold (see :func:`id_problem`)."""
+    return _REFUSED.search(text) is not None
+
+
 def id_problem(value: str) -> str | None:
     """Why ``value`` (a string) cannot be an id, or None when it can: empty or blank, longer than
     ``ID_MAX_CHARS``, or holding a control character, a surrogate or a line or paragraph separator.

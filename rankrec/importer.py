@@ -21,7 +21,6 @@ import time
 from collections import Counter
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from functools import partial
 from pathlib import Path
 from typing import Any
 
@@ -30,10 +29,11 @@ from .errors import InputError
 from .privacy import stored_id
 from .progress import Progress, report
 from .sources import SPACE_MODES, SiteShape, detect_format, read_source, shape_site
-from .sources.records import EdgeRows, LinkRecord, MembershipRecord, PageRecord, ViewRecord
+from .sources.records import EdgeRows, LinkRecord, MembershipRecord, PageRecord, ViewRecord, ViewRows
 from .store import Store
 
 _BATCH = 50_000
+_USERS_REMEMBERED = 1_000_000
 _PAGES = 1_000  # described pages written together (their text, at most 64 KiB each, waits in memory)
 #: formats whose page records only say "this page exists" (their title is the id)
 _IMPLICIT_PAGES = {"edges"}
@@ -103,8 +103,17 @@ class _PageLedger:
     with another title) and how user ids are stored (as given, or as keyed pseudonyms)."""
 
     def __init__(self, pseudonym_key: bytes | None = None) -> None:
-        self.user = partial(stored_id, pseudonym_key)
+        self.key = pseudonym_key
         self.seen: dict[str, tuple[str, str]] = {}
+        self.stored: dict[str, str] = {}  # user id -> how it is stored (a pseudonym is a keyed hash each)
+
+    def user(self, user: str) -> str:
+        found = self.stored.get(user)
+        if found is None:
+            found = stored_id(self.key, user)
+            if len(self.stored) < _USERS_REMEMBERED:
+                self.stored[user] = found
+        return found
 
     def check(self, record: PageRecord) -> InputError | None:
         first = self.seen.get(record.page)
@@ -216,6 +225,12 @@ def _import_one(
     for item in items:
         if isinstance(item, InputError):
             error = item
+        elif isinstance(item, ViewRows):
+            users = [ledger.user(user) for user in item.users]
+            batch.views.extend(zip(users, item.pages, item.seconds, item.dwells, strict=True))
+            records["views"] += len(item.lines)
+            pending += len(item.lines)
+            error = None
         elif isinstance(item, EdgeRows):
             _put_edges(store, item, batch)
             records["pages"] += len(item.pages)

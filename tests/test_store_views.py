@@ -167,3 +167,39 @@ def test_erase_user_keeps_a_user_row_that_a_membership_names(store):
 def test_erase_user_refuses_a_non_string(store):
     with pytest.raises(TypeError, match="user must be a string"):
         store.erase_user(42)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    rows=st.lists(
+        st.tuples(
+            st.sampled_from(["member", "ines", "tor", "ines"]),
+            st.sampled_from(["ops/db", "ops/new", "sales/pricing", "hr/leave"]),
+            st.sampled_from([100.0, 101.0]),
+            st.sampled_from([None, 3.0, 7.5]),
+        ),
+        max_size=20,
+    )
+)
+def test_put_views_equals_a_row_at_a_time(tmp_path_factory, rows):
+    # put_views resolves its users and pages a few statements for all of them and inserts its rows in
+    # key order. Model: the row-at-a-time insert it replaced (user_id and page_id per row, then
+    # INSERT OR IGNORE in file order). Both stores must dump to the same SQL text (SQLite's own dump):
+    # the same new ids for new users and pages, and the first dwell of a repeated view kept.
+    dumps = []
+    for bulk in (True, False):
+        with Store(tmp_path_factory.mktemp("views") / "wiki.db") as store:
+            with store.transaction():
+                for page in ("ops/db", "sales/pricing"):
+                    store.put_page(PageRecord(page=page, title=page, origin=ORIGIN))
+                store.put_memberships([("team", "ops", "member")])
+                if bulk:
+                    store.put_views(rows)
+                else:
+                    for user, page, timestamp, dwell in rows:
+                        store.connection.execute(
+                            "INSERT OR IGNORE INTO views (user_id, page_id, timestamp, dwell) VALUES (?, ?, ?, ?)",
+                            (store.user_id(user), store.page_id(page), timestamp, dwell),
+                        )
+            dumps.append([line for line in store.connection.iterdump() if "store_id" not in line])
+    assert dumps[0] == dumps[1]

@@ -159,10 +159,10 @@ def read_source(path: str | Path, format: str, **options: Any) -> Iterator[Recor
         from .pages import read_page_export
 
         return read_page_export(path, **_pick(given, "encoding"))
-    if format == "views":
-        from .views import read_view_events
+    if format == "views":  # runs of rows (ViewRows), as for edges
+        from .views import read_view_rows
 
-        return read_view_events(path, **_pick(given, "encoding", "now"))
+        return read_view_rows(path, **_pick(given, "encoding", "now"))
     if format == "access-log":
         from .access_log import read_access_log
 

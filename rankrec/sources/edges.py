@@ -11,7 +11,7 @@ from pathlib import Path
 from ..errors import InputError
 from ._fields import FieldError, column_count_reason, iter_rows, parse_id, parse_weight
 from ._text import check_encoding
-from .records import EdgeRows, LinkRecord, PageRecord
+from .records import EdgeRows, LinkRecord, PageRecord, expanded
 
 HEADER_PAIRS = frozenset({("source", "target"), ("from", "to"), ("src", "dst")})
 """Known names of the two endpoint columns (compared case-insensitively); a third is ``weight``."""
@@ -45,15 +45,7 @@ def read_edge_list(
     >>> os.unlink(f.name)
     """
     check_encoding(encoding)
-    return _records(_read(path, encoding))
-
-
-def _records(items: Iterator[EdgeRows | InputError]) -> Iterator[PageRecord | LinkRecord | InputError]:
-    for item in items:
-        if isinstance(item, InputError):
-            yield item
-        else:
-            yield from item.records()
+    return expanded(_read(path, encoding))
 
 
 def read_edge_rows(path: str | Path, *, encoding: str = "utf-8") -> Iterator[EdgeRows | InputError]:

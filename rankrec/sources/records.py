@@ -157,4 +157,34 @@ class EdgeRows:
             waiting = next(pages, None)
 
 
+@dataclass(frozen=True, slots=True)
+class ViewRows:
+    """A run of view events' good rows, column by column: what a ViewRecord per row would say, without
+    an object per row. ``seconds`` holds Unix seconds (float64), ``dwells`` seconds or None; every id,
+    time and dwell is checked."""
+
+    file: str
+    users: list[str]
+    pages: list[str]
+    seconds: list[float]
+    dwells: list[float | None]
+    lines: list[int]
+
+    def records(self):
+        """The same as ViewRecords, in line order."""
+        for user, page, seconds, dwell, line in zip(
+            self.users, self.pages, self.seconds, self.dwells, self.lines, strict=True
+        ):
+            yield ViewRecord(user, page, seconds, Origin(self.file, line), dwell)
+
+
 Record = PageRecord | LinkRecord | ViewRecord | MembershipRecord
+
+
+def expanded(items):
+    """A reader's runs (:class:`EdgeRows`, :class:`ViewRows`) as their records; other items as they are."""
+    for item in items:
+        if isinstance(item, (EdgeRows, ViewRows)):
+            yield from item.records()
+        else:
+            yield item

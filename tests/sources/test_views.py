@@ -163,3 +163,101 @@ def test_arbitrary_fields_never_raise(rows):
         path.write_text("\n".join(lines) + "\n", encoding="utf-8", errors="surrogatepass")
         records = list(read_view_events(path, now=NOW))
     assert all(isinstance(r, ViewRecord | InputError) for r in records)
+
+
+_STAMPS = [
+    "2026-05-03T09:15:00Z",
+    "2026-05-03T09:15:00",
+    "2024-02-29T23:59:59Z",  # a leap day
+    "2026-02-29T00:00:00Z",  # no such day
+    "2026-05-03T24:00:00Z",  # no such hour
+    "2026-05-03T09:60:00",  # no such minute
+    "0000-01-01T00:00:00Z",  # year 0: before 1970 for numpy, no year at all for the stdlib
+    "1969-12-31T23:59:59Z",  # before 1970
+    "2027-01-15T08:05:00Z",  # 300 s after NOW: the clock skew, still accepted
+    "2027-01-15T08:05:01Z",  # one second past it
+    "2026-05-03T09:15:00+02:00",
+    " 2026-05-03T09:15:00Z",
+    "2026-05-03 09:15:00",
+    "2026-05-03T09:15:00z",
+    "2026-05-03T09:15:00ZZ",
+    "2026-05-03",
+    "1777799700",
+    "١٧٧٧٧٩٩٧٠٠",  # Arabic-Indic digits
+    "soon",
+    "",
+]
+
+
+def _rows_against_check_view(rows, run):
+    """What the reader gives for ``rows`` (user, page, stamp, dwell, short) read in runs of ``run``, and
+    what check_view gives for each row alone (a short row: its column-count error), as comparable tuples."""
+    import rankrec.sources.views as views
+
+    lines = ["user,page,timestamp,dwell"]
+    expected: list = []
+    for number, (user, page, stamp, dwell, short) in enumerate(rows, 2):
+        if short:
+            lines.append(f"{user},{page},{stamp}")
+            expected.append((number, "wrong column count: 3 field(s), expected 4"))
+            continue
+        lines.append(f"{user},{page},{stamp},{dwell}")
+        try:
+            view = check_view(user, page, stamp, dwell, origin=Origin("f", number), now=NOW)
+            expected.append((view.user, view.page, view.timestamp, view.dwell, number))
+        except InputError as error:
+            expected.append((number, error.reason))
+    kept = views.RUN_ROWS
+    views.RUN_ROWS = run
+    try:
+        with tempfile.TemporaryDirectory() as folder:
+            path = Path(folder) / "views.csv"
+            path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+            records = list(read_view_events(path, now=NOW))
+            runs = [item for item in views.read_view_rows(path, now=NOW) if not isinstance(item, InputError)]
+    finally:
+        views.RUN_ROWS = kept
+    got = [
+        (r.line, r.reason)
+        if isinstance(r, InputError)
+        else (r.user, r.page, r.timestamp, r.dwell, r.origin.line)
+        for r in records
+    ]
+    assert all(0 < len(item.lines) <= run for item in runs)
+    return got, expected
+
+
+@pytest.mark.parametrize("run", [1, 3, 50])
+def test_every_time_shape_reads_as_check_view_reads_it(run):
+    # Each time shape of _STAMPS on a good row, then on rows whose id or dwell is bad: the reader reads
+    # the usual ISO shape through numpy, a run at a time. Reference: check_view on each row alone
+    # (datetime.fromisoformat of the standard library behind it).
+    rows = [("ines", "ops/db", stamp, "3", False) for stamp in _STAMPS]
+    rows += [("", "ops/db", stamp, "3", False) for stamp in _STAMPS[:10]]
+    rows += [("ines", "ops/db", stamp, "-1", False) for stamp in _STAMPS[:10]]
+    got, expected = _rows_against_check_view(rows, run)
+    assert got == expected
+    assert sum(len(item) == 5 for item in got) == 9  # the good shapes, the skew's last second included
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    rows=st.lists(
+        st.tuples(
+            st.sampled_from(["ines", " ines", "tor ", "", "u\x01", "x" * 257, "ö"]),
+            st.sampled_from(["ops/db", "hr/leave ", "  ", "p\u2028q", "ops/db"]),
+            st.sampled_from(_STAMPS),
+            st.sampled_from(["", "3", "2.5", "-1", "many", " 4 "]),
+            st.booleans(),  # a row with a column missing
+        ),
+        max_size=30,
+    ),
+    run=st.integers(1, 5),
+)
+def test_runs_give_what_check_view_gives_row_by_row(rows, run):
+    # The CSV reader checks a run's rows column by column (distinct ids once, times of the usual
+    # shape together through numpy). Whatever the run length, each row must give exactly what
+    # check_view gives for its fields (the value, or the same reason), in line order. Reference:
+    # check_view on each row alone, and datetime.fromisoformat (stdlib) behind it.
+    got, expected = _rows_against_check_view(rows, run)
+    assert got == expected
