@@ -24,6 +24,7 @@ from ._atomic import publish_folder
 from .errors import InputError, StaleBasis
 from .graph import WikiGraph
 from .pagerank import Transition, personalised_pagerank, push
+from .pagerank._kernels import weighted_rows
 from .pagerank.power import FLOAT32_TOL_FLOOR
 from .progress import Progress, report
 
@@ -112,72 +113,96 @@ class Basis:
                 f"weights must be {len(self.names)} non-negative numbers, not all zero; got {weights!r}"
             )
         used = np.flatnonzero(mix)
-        combined = self.vectors[:, used].astype(np.float64) @ mix[used]
+        combined = self._weighted(used, mix[used])
         return combined / combined.sum()
+
+    def _weighted(self, columns: np.ndarray, weights: np.ndarray) -> np.ndarray:
+        """``Σ_j weights[j] · vectors[:, columns[j]]`` in float64 (each column read once when the
+        vectors are stored column by column, as :func:`save_basis` writes them)."""
+        out = np.empty(self.vectors.shape[0])
+        rows = np.asarray(self.vectors).T  # a view: one row per column of the basis
+        weighted_rows(rows, np.asarray(columns, dtype=np.int64), np.asarray(weights, dtype=np.float64), out)
+        return out
+
+    def hub_columns(self, pages: np.ndarray) -> np.ndarray:
+        """The basis column that restarts from each of ``pages`` (-1 for a page that is not a hub)."""
+        hubs = np.flatnonzero(self.hubs >= 0)
+        order = hubs[np.argsort(self.hubs[hubs], kind="stable")]
+        sorted_pages = self.hubs[order]
+        at = np.minimum(np.searchsorted(sorted_pages, pages), max(sorted_pages.size - 1, 0))
+        found = sorted_pages[at] == pages if sorted_pages.size else np.zeros(len(pages), bool)
+        return np.where(found, order[at] if order.size else -1, -1)
 
     def personalised(
         self, transition: Transition, restart: np.ndarray, *, epsilon: float = 1e-7
     ) -> PersonalVector:
-        """Personalised PageRank of any restart distribution: hub part from the basis, rest pushed."""
+        """Personalised PageRank of any restart distribution: hub part from the basis, rest pushed.
+
+        Only the restart's non-zero pages are looked at; the vector is built in a few passes over
+        the pages (the weighted basis columns, the pushed part added where it lies, one scaling).
+        """
         started = time.perf_counter()
         restart = np.asarray(restart, dtype=np.float64)
-        if restart.shape != (transition.n,) or np.any(restart < 0) or restart.sum() <= 0:
+        if restart.shape != (transition.n,):
             raise ValueError(f"restart must be a non-negative vector of length {transition.n}, not all zero")
-        restart = restart / restart.sum()
-        hub_columns = np.flatnonzero(self.hubs >= 0)
-        hub_pages = self.hubs[hub_columns]
-        hub_weights = restart[hub_pages]
-        rest = restart.copy()
-        rest[hub_pages] = 0.0
-        rest_mass = float(rest.sum())
+        pages = np.flatnonzero(restart)
+        weights = restart[pages]
+        if np.any(weights < 0) or not np.isfinite(weights).all() or weights.sum() <= 0:
+            raise ValueError(f"restart must be a non-negative vector of length {transition.n}, not all zero")
+        weights = weights / weights.sum()
+        columns = self.hub_columns(pages)
+        on_hub = columns >= 0
+        hub_weights = weights[on_hub]
         damping = self.manifest.damping
         # a leaky vector of tolerance tol is within tol·α/(1−α) (L1) of the exact one (geometric series)
         tolerance = self.manifest.tol * damping / (1.0 - damping)
-        leaky = np.zeros(transition.n)
         error = 0.0
-        used = np.flatnonzero(hub_weights)
-        if used.size:
-            leaky += self.vectors[:, hub_columns[used]].astype(np.float64) @ hub_weights[used]
-            error += float(hub_weights[used].sum()) * (tolerance + 1e-6)  # 1e-6: float32 storage
+        if hub_weights.size:
+            leaky = self._weighted(columns[on_hub], hub_weights)
+            error += float(hub_weights.sum()) * (tolerance + 1e-6)  # 1e-6: float32 storage
+        else:
+            leaky = np.zeros(transition.n)
         pushes = 0
+        rest_mass = float(weights[~on_hub].sum())
         if rest_mass > 1e-15:
-            estimate, bound, pushes = _leaky_push(transition, rest / rest_mass, damping, epsilon)
-            leaky += rest_mass * estimate
+            touched, values, bound, pushes = _leaky_push(
+                transition, pages[~on_hub], weights[~on_hub] / rest_mass, damping, epsilon
+            )
+            leaky[touched] += rest_mass * values  # touched pages are distinct
             error += rest_mass * bound
         total = float(leaky.sum())
+        leaky /= total
         # ‖a/‖a‖ − b/‖b‖‖₁ ≤ 2‖a − b‖₁ / ‖a‖₁ for the exact leaky vector a and this estimate b
-        bound = min(2.0, 2.0 * error / total)
         return PersonalVector(
-            vector=leaky / total,
-            error_bound=bound,
+            vector=leaky,
+            error_bound=min(2.0, 2.0 * error / total),
             from_basis=float(hub_weights.sum()),
             pushes=pushes,
             seconds=time.perf_counter() - started,
         )
 
 
-def _leaky_push(transition: Transition, seeds: np.ndarray, damping: float, epsilon: float):
-    """Leaky vector of a seed distribution from a forward push, with an L1 error bound.
+def _leaky_push(
+    transition: Transition, pages: np.ndarray, weights: np.ndarray, damping: float, epsilon: float
+):
+    """Leaky vector of a seed distribution (``weights`` on ``pages``) from a forward push, with an L1
+    error bound: ``(touched pages, values there, bound, pushes)``.
 
     The push approximates the strongly-preferential vector ``x`` of the seeds (``p ≤ x``,
     ``‖x − p‖₁ = ρ``, the residual mass). The leaky vector is ``c·x`` with
     ``c = (1 − α) / (1 − α + α·dᵀx)`` (sum the two fixed-point equations), and ``dᵀx`` lies in
     ``[dᵀp, dᵀp + ρ]``, so ``ĉ·p`` with ``ĉ`` at ``dᵀp`` is within ``(ĉ − c_low) + ĉ·ρ``.
     """
-    pages = np.flatnonzero(seeds)
     result = push(
-        transition,
-        dict(zip(pages.tolist(), seeds[pages].tolist(), strict=True)),
-        damping=damping,
-        epsilon=epsilon,
+        transition, dict(zip(pages.tolist(), weights.tolist(), strict=True)), damping=damping, epsilon=epsilon
     )
-    estimate = np.zeros(transition.n)
-    estimate[np.asarray(result.vector.coords[0])] = result.vector.data
+    touched = np.asarray(result.vector.coords[0])
+    estimate = result.vector.data
     residual = result.residual_mass
-    on_dangling = float(estimate[transition.dangling].sum())
+    on_dangling = float(estimate[transition.dangling[touched]].sum())
     scale_high = (1.0 - damping) / (1.0 - damping + damping * on_dangling)
     scale_low = (1.0 - damping) / (1.0 - damping + damping * min(1.0, on_dangling + residual))
-    return scale_high * estimate, (scale_high - scale_low) + scale_high * residual, result.pushes
+    return touched, scale_high * estimate, (scale_high - scale_low) + scale_high * residual, result.pushes
 
 
 def build_basis(
@@ -208,7 +233,7 @@ def build_basis(
         raise ValueError("a basis needs at least one topic or hub; got none")
     hub_of = np.concatenate([np.full(len(topics), -1, dtype=np.int64), np.asarray(hubs, dtype=np.int64)])
     members = [*topics.values(), *([page] for page in hubs)]
-    vectors = np.empty((graph.size, total), dtype=np.float32)
+    vectors = np.empty((graph.size, total), dtype=np.float32, order="F")  # column by column
     started = time.perf_counter()
     iterations, converged, residual = 0, True, 0.0
     for first in range(0, total, block):
@@ -243,7 +268,8 @@ def save_basis(basis: Basis, folder: str | Path) -> Path:
     """Write the basis into ``folder`` (replaced as a whole, atomically)."""
 
     def write(staging: Path) -> None:
-        np.save(staging / "vectors.npy", np.ascontiguousarray(basis.vectors, dtype=np.float32))
+        # column by column (Fortran order): a combination reads each chosen vector once, in order
+        np.save(staging / "vectors.npy", np.asfortranarray(basis.vectors, dtype=np.float32))
         np.save(staging / "hubs.npy", basis.hubs)
         (staging / "manifest.json").write_text(json.dumps(asdict(basis.manifest), indent=2) + "\n")
 

@@ -200,6 +200,23 @@ class Index:
         """Every page by descending global PageRank, ties to the lower page (computed once, on first use)."""
         return np.lexsort((np.arange(self.size), -np.asarray(self.global_vector, dtype=np.float64)))
 
+    def lift_divisor(self, lift: float) -> np.ndarray:
+        """``global_vector ** lift`` (ones for lift 0): what a list's scores are divided by to rank them
+        (:func:`rankrec.recommend.select.lifted`), computed once per lift (the last few kept)."""
+        kept = self._divisors
+        found = kept.get(lift)
+        if found is None:
+            overall = np.asarray(self.global_vector, dtype=np.float64)
+            found = np.power(overall, lift) if lift else np.ones_like(overall)
+            if len(kept) >= 4:
+                kept.pop(next(iter(kept)))
+            kept[lift] = found
+        return found
+
+    @cached_property
+    def _divisors(self) -> dict[float, np.ndarray]:
+        return {}
+
     @cached_property
     def _group_codes(self) -> dict[str, int]:
         return {name: code for code, name in enumerate(self.group_names)}

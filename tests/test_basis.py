@@ -112,6 +112,53 @@ def test_saved_basis_loads_memory_mapped_and_refuses_another_graph(tmp_path, bui
     assert "g1" in str(caught.value) and "g2" in str(caught.value)
 
 
+def test_saved_basis_is_column_major_and_an_older_row_major_one_combines_the_same(tmp_path, built):
+    # A combination reads each chosen column once when the file holds the vectors column by column
+    # (np.save keeps Fortran order; reference: numpy's .npy format, fortran_order header). A basis saved
+    # row by row, as earlier versions wrote it, must still load and give the same vectors, checked
+    # against a plain numpy product in float64.
+    import dataclasses
+
+    graph, transition, basis = built
+    save_basis(basis, tmp_path / "columns")
+    loaded = load_basis(tmp_path / "columns", graph)
+    assert loaded.vectors.flags["F_CONTIGUOUS"] and not loaded.vectors.flags["C_CONTIGUOUS"]
+    older = dataclasses.replace(basis, vectors=np.ascontiguousarray(basis.vectors))
+    rng = np.random.default_rng(5)
+    weights = rng.random(len(basis.names)) * (rng.random(len(basis.names)) < 0.6)
+    weights[1] += 0.2
+    used = np.flatnonzero(weights)
+    plain = basis.vectors[:, used].astype(np.float64) @ weights[used]
+    for each in (loaded, older):
+        np.testing.assert_allclose(each.combine(weights), plain / plain.sum(), rtol=1e-12, atol=0)
+    restart = np.zeros(graph.size)
+    restart[[0, 9, 13]] = [0.5, 0.3, 0.2]  # a hub page and two pages outside the basis
+    first = loaded.personalised(transition, restart, epsilon=1e-7)
+    second = older.personalised(transition, restart, epsilon=1e-7)
+    np.testing.assert_allclose(first.vector, second.vector, rtol=1e-12, atol=0)
+    assert first.from_basis == pytest.approx(0.5)
+
+
+def test_hub_columns_name_the_column_of_each_hub_page(built):
+    _, _, basis = built
+    pages = np.array([7, 1, 0, 5, 59])
+    expected = [
+        basis.column("hub:space3/page-7"),
+        -1,
+        basis.column("hub:space0/page-0"),
+        basis.column("hub:space1/page-5"),
+        -1,
+    ]
+    assert basis.hub_columns(pages).tolist() == expected
+
+
+def test_personalised_refuses_a_bad_restart(built):
+    graph, transition, basis = built
+    for restart in (np.zeros(graph.size), -np.ones(graph.size), np.full(graph.size, np.nan), np.ones(3)):
+        with pytest.raises(ValueError, match="non-negative vector"):
+            basis.personalised(transition, restart)
+
+
 def test_a_failed_save_keeps_the_old_basis(tmp_path, built, monkeypatch):
     graph, _, basis = built
     save_basis(basis, tmp_path / "basis")

@@ -197,9 +197,7 @@ def test_put_views_equals_a_row_at_a_time(tmp_path_factory, rows):
                     store.put_views(rows)
                 else:
                     for user, page, timestamp, dwell in rows:
-                        store.connection.execute(
-                            "INSERT OR IGNORE INTO views (user_id, page_id, timestamp, dwell) VALUES (?, ?, ?, ?)",
-                            (store.user_id(user), store.page_id(page), timestamp, dwell),
-                        )
+                        row = (store.user_id(user), store.page_id(page), timestamp, dwell)
+                        store.connection.execute("INSERT OR IGNORE INTO views VALUES (?, ?, ?, ?)", row)
             dumps.append([line for line in store.connection.iterdump() if "store_id" not in line])
     assert dumps[0] == dumps[1]

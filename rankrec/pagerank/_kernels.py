@@ -90,6 +90,26 @@ def column_mass(x, rows):  # pragma: no cover
     return mass
 
 
+_SPAN = 4096
+"""Entries of the output that stay in cache while every chosen row passes over them."""
+
+
+@njit(cache=True, boundscheck=False)
+def weighted_rows(rows, chosen, weights, out):  # pragma: no cover
+    """``out = Σ_j weights[j] · rows[chosen[j]]`` with float64 sums, ``_SPAN`` entries at a time (read
+    column-major, a basis's chosen vectors are then each read once, in order)."""
+    n = out.size
+    for start in range(0, n, _SPAN):
+        stop = min(start + _SPAN, n)
+        for i in range(start, stop):
+            out[i] = 0.0
+        for j in range(chosen.size):
+            row = chosen[j]
+            w = weights[j]
+            for i in range(start, stop):
+                out[i] += w * rows[row, i]
+
+
 @njit(cache=True, boundscheck=False)
 def _queue_if_over(hot, queue, head, size, n, v):  # pragma: no cover
     """Append page ``v`` to the circular queue if its residual exceeds its (positive) threshold."""

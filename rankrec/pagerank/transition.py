@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import threading
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 import scipy.sparse as sp
@@ -52,9 +53,9 @@ class Transition:
         """Number of pages."""
         return int(self.forward.shape[0])
 
-    @property
+    @cached_property
     def dangling_pages(self) -> np.ndarray:
-        """Indices of the dangling pages."""
+        """Indices of the dangling pages (found once)."""
         return np.flatnonzero(self.dangling)
 
     def borrow_workspace(self) -> tuple:

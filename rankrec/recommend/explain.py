@@ -155,5 +155,6 @@ def contributions(
 
 
 def restart_scale(vector: np.ndarray, dangling: np.ndarray, damping: float) -> float:
-    """``c = (1 − α) + α·(mass on dangling pages)`` of a normalised strongly-preferential vector."""
+    """``c = (1 − α) + α·(mass on dangling pages)`` of a normalised strongly-preferential vector
+    (``dangling``: the dangling pages, as numbers or as a mask)."""
     return (1.0 - damping) + damping * float(np.asarray(vector)[dangling].sum())

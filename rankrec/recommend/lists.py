@@ -91,6 +91,7 @@ def _select(
         order=index.global_order,
         per_space=per_space,
         space=index.space,
+        divisor=index.lift_divisor(lift),
     )
 
 
@@ -199,7 +200,7 @@ def _explain_full(index: Index, vector: np.ndarray, chosen: np.ndarray, restart:
     damping = index.configuration.damping
     restart_part = None
     if restart is not None:
-        restart_part = restart_scale(vector, np.asarray(index.transition.dangling), damping) * restart[chosen]
+        restart_part = restart_scale(vector, index.transition.dangling_pages, damping) * restart[chosen]
     explained = contributions(
         index.transition.backward,
         lambda pages: vector[pages],

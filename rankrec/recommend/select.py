@@ -10,6 +10,7 @@
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
 
 from .._validation import check_count
 from ..configuration import check_lift
@@ -42,7 +43,9 @@ _SELECT_CELLS = 1 << 22  # pages x columns handled at once when filling short li
 _FILL_FIRST = 256  # pages of the global order looked at first when filling (x4 until enough)
 
 
-def select_pages(vectors, global_vector, eligible, k: int, *, lift: float, order=None) -> np.ndarray:
+def select_pages(
+    vectors, global_vector, eligible, k: int, *, lift: float, order=None, divisor=None
+) -> np.ndarray:
     """The best ``k`` eligible pages of each column of ``vectors``: the ranking every list uses.
 
     Pages with a positive score come first, ranked by ``score / global^lift`` (``lift`` 0: by
@@ -65,6 +68,9 @@ def select_pages(vectors, global_vector, eligible, k: int, *, lift: float, order
         Every page by descending ``global_vector``, ties to the lower page
         (``np.lexsort((np.arange(n), -global_vector))``, as :attr:`rankrec.index.Index.global_order`
         keeps it); computed when not given.
+    divisor : float array of shape (n,), optional
+        ``global_vector ** lift`` (ones for lift 0), as :meth:`rankrec.index.Index.lift_divisor` keeps
+        it: one vector's list is then chosen in one pass over the pages.
 
     Returns
     -------
@@ -93,13 +99,19 @@ def select_pages(vectors, global_vector, eligible, k: int, *, lift: float, order
         )
     if order is not None and np.shape(order) != (n,):
         raise ValueError(f"order must have shape ({n},); got {np.shape(order)!r}")
-    positive = allowed & (scores > 0)
-    lists = _scored(scores, overall, positive, k, lift)
+    if single and divisor is not None and allowed.shape[1] == 1:
+        lists = _best_scored(scores[:, 0], np.asarray(divisor, dtype=np.float64), allowed[:, 0], k)[None, :]
+        positive = None
+    else:
+        positive = allowed & (scores > 0)
+        lists = _scored(scores, overall, positive, k, lift)
     found = (lists >= 0).sum(axis=1)
     short = np.flatnonzero(found < k)
     if short.size:
         order = np.lexsort((np.arange(n), -overall)) if order is None else np.asarray(order)
         step = max(1, _SELECT_CELLS // max(n, 1))
+        if positive is None:
+            positive = allowed & (scores > 0)
         for start in range(0, short.size, step):
             _fill(lists, short[start : start + step], found, allowed, positive, order, k)
     return lists[0] if single else lists
@@ -113,6 +125,58 @@ def _scored(scores, overall, positive, k: int, lift: float) -> np.ndarray:
     rows = np.flatnonzero(positive[:, 0])
     best = _top_of_columns(lifted(scores[rows, 0], overall[rows], lift)[:, None], k)
     return np.where(best >= 0, rows[np.maximum(best, 0)] if rows.size else -1, -1)
+
+
+def _best_scored(scores: np.ndarray, divisor: np.ndarray, allowed: np.ndarray, k: int) -> np.ndarray:
+    """(k,): the best allowed pages with a positive score by ``score / divisor``, ties to the lower page,
+    -1 padded: what :func:`_scored` gives for one column, in one pass (a heap of the ``k`` best)."""
+    lists = np.full(k, -1, dtype=np.int64)
+    values, pages = _heap_best(scores, divisor, allowed, k)
+    lists[: pages.size] = pages[np.lexsort((pages, -values))]
+    return lists
+
+
+@njit(cache=True, boundscheck=False)
+def _heap_best(scores, divisor, allowed, k):  # pragma: no cover
+    """Pages of the ``k`` largest ``scores[i] / divisor[i]`` over allowed ``i`` with ``scores[i] > 0``,
+    and their values, in heap order. The heap's root is its worst entry; pages come in ascending
+    order, so a later page with an equal value never displaces an earlier one."""
+    values = np.empty(k)
+    pages = np.empty(k, dtype=np.int64)
+    size = 0
+    for i in range(scores.size):
+        score = scores[i]
+        if not (score > 0) or not allowed[i]:
+            continue
+        value = score / divisor[i]
+        if size < k:
+            at = size  # sift up: the worse (smaller value, or equal value and larger page) rises
+            size += 1
+            while at > 0:
+                parent = (at - 1) // 2
+                if values[parent] < value or (values[parent] == value and pages[parent] > i):
+                    break
+                values[at], pages[at] = values[parent], pages[parent]
+                at = parent
+            values[at], pages[at] = value, i
+        elif value > values[0]:
+            at = 0  # sift down from the root
+            while True:
+                child = 2 * at + 1
+                if child >= size:
+                    break
+                other = child + 1
+                if other < size and (
+                    values[other] < values[child]
+                    or (values[other] == values[child] and pages[other] > pages[child])
+                ):
+                    child = other
+                if value < values[child] or (value == values[child] and i > pages[child]):
+                    break
+                values[at], pages[at] = values[child], pages[child]
+                at = child
+            values[at], pages[at] = value, i
+    return values[:size], pages[:size]
 
 
 def _fill(lists, chunk, found, allowed, positive, order, k: int) -> None:
@@ -206,11 +270,12 @@ def choose_pages(
     order=None,
     per_space: int | None = None,
     space=None,
+    divisor=None,
 ) -> np.ndarray:
     """One list (page numbers, best first, no padding): :func:`select_pages`, or with ``per_space`` at
     most that many pages of one space (``space`` holds each page's code), in the same order otherwise."""
     if per_space is None:
-        chosen = select_pages(vector, global_vector, eligible, k, lift=lift, order=order)
+        chosen = select_pages(vector, global_vector, eligible, k, lift=lift, order=order, divisor=divisor)
         return chosen[chosen >= 0]
     check_count("per_space", per_space)
     vector, overall, codes = np.asarray(vector), np.asarray(global_vector), np.asarray(space)
