@@ -176,10 +176,11 @@ class StoreWrites:
             ],
         )
 
-    def put_views(self, rows: Sequence[tuple[str, str, float, float | None]]) -> None:
+    def put_views(self, rows: Iterable[tuple[str, str, float, float | None]]) -> None:
         """``(user, page, timestamp, dwell)`` rows; a view already held (same user, page and time) keeps
         its first dwell. Users and pages new to the store get their rows (a page only viewed is not
         present), with the ids one :meth:`user_id` / :meth:`page_id` call after another would give."""
+        rows = list(rows)
         users = self._ids_of(self._user_ids, "users", "user", [row[0] for row in rows])
         pages = self._ids_of(self._page_ids, "pages", "page", [row[1] for row in rows])
         numbered = [(users[user], pages[page], ts, dwell) for user, page, ts, dwell in rows]

@@ -194,7 +194,7 @@ def test_put_views_equals_a_row_at_a_time(tmp_path_factory, rows):
                     store.put_page(PageRecord(page=page, title=page, origin=ORIGIN))
                 store.put_memberships([("team", "ops", "member")])
                 if bulk:
-                    store.put_views(rows)
+                    store.put_views(iter(rows))  # any iterable, a generator too
                 else:
                     for user, page, timestamp, dwell in rows:
                         row = (store.user_id(user), store.page_id(page), timestamp, dwell)
