@@ -8,6 +8,8 @@ from __future__ import annotations
 from collections.abc import Iterator
 from pathlib import Path
 
+import numpy as np
+
 from ..errors import InputError
 from ._fields import FieldError, column_count_reason, iter_rows, parse_id, parse_weight
 from ._text import check_encoding
@@ -64,7 +66,8 @@ def is_known_header(fields: list[str]) -> bool:
 
 
 class _Run:
-    """The good rows read since the last run was handed out (see :class:`EdgeRows`)."""
+    """The rows read since the last run was handed out (see :class:`EdgeRows`); each link's endpoints
+    packed into one key, so that repeated links are found a run at a time (:meth:`taken`)."""
 
     def __init__(self, name: str) -> None:
         self.name = name
@@ -74,28 +77,98 @@ class _Run:
         self.targets: list[str] = []
         self.weights: list[float] = []
         self.lines: list[int] = []
+        self.keys: list[int] = []
 
-    def taken(self) -> Iterator[EdgeRows]:
-        """The run so far (if it holds anything), then an empty one."""
-        if self.pages or self.sources:
+    def taken(self, seen: _SeenLinks) -> Iterator[EdgeRows | InputError]:
+        """The run so far (if it holds anything), split where a row repeats a link read before (in
+        this run or an earlier one), that row's InputError between; then an empty run."""
+        if not (self.pages or self.sources):
+            return
+        keys = np.asarray(self.keys, dtype=np.int64)
+        lines = np.asarray(self.lines, dtype=np.int64)
+        first = seen.first_lines(keys)
+        order = np.argsort(keys, kind="stable")  # a key's rows in line order
+        ordered = keys[order]
+        again = np.flatnonzero(ordered[1:] == ordered[:-1]) + 1
+        if again.size:
+            starts = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])
+            group_start = starts[np.searchsorted(starts, again, side="right") - 1]
+            inside = first[order[again]] < 0  # repeated within the run only: first seen at the group's head
+            first[order[again[inside]]] = lines[order[group_start[inside]]]
+        repeated = first >= 0
+        seen.add(keys[~repeated], lines[~repeated])
+        start = 0
+        for position in np.flatnonzero(repeated).tolist():
+            yield from self._part(start, position)
+            source, target = self.sources[position], self.targets[position]
+            reason = f"duplicate link {source!r} -> {target!r} (first on line {int(first[position])})"
+            yield InputError(self.name, self.lines[position], reason)
+            start = position + 1
+        yield from self._part(start, len(self.sources), last=True)
+        self.__init__(self.name)
+
+    def _part(self, start: int, stop: int, last: bool = False) -> Iterator[EdgeRows]:
+        """Links ``start:stop`` with the pages first seen before the next part begins (every page
+        left when ``last``); a repeated link names no page first, so none is lost between parts."""
+        limit = self.lines[stop] if stop < len(self.lines) and not last else None
+        pages = [
+            (page, line)
+            for page, line in zip(self.pages, self.page_lines, strict=True)
+            if (start == 0 or line > self.lines[start - 1]) and (limit is None or line < limit)
+        ]
+        if start < stop or pages:
             yield EdgeRows(
-                self.name, self.pages, self.page_lines, self.sources, self.targets, self.weights, self.lines
+                self.name,
+                [page for page, _ in pages],
+                [line for _, line in pages],
+                self.sources[start:stop],
+                self.targets[start:stop],
+                self.weights[start:stop],
+                self.lines[start:stop],
             )
-            self.__init__(self.name)
+
+
+class _SeenLinks:
+    """Every link key handed out so far with its line, in sorted levels that merge as they grow (a
+    level holds at least twice the next): 16 bytes a link, and a run is looked up in a few searches."""
+
+    def __init__(self) -> None:
+        self.levels: list[tuple[np.ndarray, np.ndarray]] = []
+
+    def first_lines(self, keys: np.ndarray) -> np.ndarray:
+        """The line each key was first read on, or -1 for a key not seen before."""
+        found = np.full(keys.size, -1, dtype=np.int64)
+        for level_keys, level_lines in self.levels:
+            at = np.minimum(np.searchsorted(level_keys, keys), level_keys.size - 1)
+            hit = level_keys[at] == keys
+            found[hit] = level_lines[at[hit]]
+        return found
+
+    def add(self, keys: np.ndarray, lines: np.ndarray) -> None:
+        """Remember new keys (none seen before, each once) and their lines."""
+        if not keys.size:
+            return
+        order = np.argsort(keys)
+        self.levels.append((keys[order], lines[order]))
+        while len(self.levels) > 1 and self.levels[-2][0].size <= 2 * self.levels[-1][0].size:
+            (upper_keys, upper_lines), (lower_keys, lower_lines) = self.levels.pop(), self.levels.pop()
+            keys, lines = np.concatenate([lower_keys, upper_keys]), np.concatenate([lower_lines, upper_lines])
+            order = np.argsort(keys, kind="stable")
+            self.levels.append((keys[order], lines[order]))
 
 
 def _read(path: str | Path, encoding: str) -> Iterator[EdgeRows | InputError]:
     name = str(path)
     numbers: dict[str, int] = {}  # page id, and each field as given (blanks and all) -> page number
     names: list[str] = []  # page number -> page id
-    edges: dict[int, int] = {}  # source and target numbers, packed -> first line
+    seen = _SeenLinks()  # every link handed out, packed (source and target numbers) -> first line
     held: tuple[int, list[str]] | None = None  # the first row while it may still be a header
     watch: tuple[str, str] = ("", "")
     rows = 0
     run = _Run(name)
     for item in iter_rows(path, encoding, comments=True):
         if isinstance(item, InputError):
-            yield from run.taken()
+            yield from run.taken(seen)
             yield item
             continue
         number, fields = item
@@ -110,31 +183,32 @@ def _read(path: str | Path, encoding: str) -> Iterator[EdgeRows | InputError]:
         elif held is not None and len(fields) >= 2:
             source, target = fields[0].strip(), fields[1].strip()
             if source in watch or target in watch:  # the first row's fields occur again: it is data
-                yield from _checked(run, _edge(run, *held, numbers, names, edges))
+                yield from _checked(run, seen, _edge(run, *held, numbers, names))
                 held = None
-        error = _edge(run, number, fields, numbers, names, edges)
+        error = _edge(run, number, fields, numbers, names)
         if error is not None:
-            yield from run.taken()
+            yield from run.taken(seen)
             yield error
         elif len(run.sources) >= RUN_ROWS:
-            yield from run.taken()
+            yield from run.taken(seen)
     if held is not None and rows == 1:
-        yield from _checked(run, _edge(run, *held, numbers, names, edges))
-    yield from run.taken()
+        yield from _checked(run, seen, _edge(run, *held, numbers, names))
+    yield from run.taken(seen)
 
 
-def _checked(run: _Run, error: InputError | None) -> Iterator[EdgeRows | InputError]:
+def _checked(run: _Run, seen: _SeenLinks, error: InputError | None) -> Iterator[EdgeRows | InputError]:
     """After a bad row: the run so far, then the row's InputError; after a good one nothing."""
     if error is not None:
-        yield from run.taken()
+        yield from run.taken(seen)
         yield error
 
 
 def _edge(
-    run: _Run, line: int, fields: list[str], numbers: dict[str, int], names: list[str], edges: dict[int, int]
+    run: _Run, line: int, fields: list[str], numbers: dict[str, int], names: list[str]
 ) -> InputError | None:
     """Add one row to ``run`` (its endpoints first seen to ``run.pages``, even for a self-link), or
-    say why it is bad. One dictionary look-up per field once its id has been seen."""
+    say why it is bad; a repeated link is found when the run is handed out. One dictionary look-up per
+    field once its id has been seen."""
     if len(fields) not in (2, 3):
         return InputError(run.name, line, column_count_reason(len(fields), "2 or 3 (source,target[,weight])"))
     source_number, target_number = numbers.get(fields[0]), numbers.get(fields[1])
@@ -150,9 +224,7 @@ def _edge(
         target_number = _numbered(run, line, fields[1], target, numbers, names)
     if source_number == target_number:
         return InputError(run.name, line, f"self-link: source and target are both {source!r}")
-    first = edges.setdefault(source_number * _PACK + target_number, line)
-    if first != line:
-        return InputError(run.name, line, f"duplicate link {source!r} -> {target!r} (first on line {first})")
+    run.keys.append(source_number * _PACK + target_number)
     run.sources.append(source)
     run.targets.append(target)
     run.weights.append(weight)
