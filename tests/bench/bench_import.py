@@ -10,7 +10,9 @@ that its peak memory (VmHWM) is its own; the median of the runs is printed.
 The plain insert (the practical limit of SQLite from Python) reads the edge list with the csv module,
 numbers the pages in a dict and inserts the pages and the links with one ``executemany`` each into a
 store of the same schema and settings (made by ``Store``), in one transaction: no checks, no line
-numbers, no reports. The ratio printed is rankrec's median time over the plain insert's.
+numbers, no reports. The view events get the same treatment (users and pages numbered in dicts, times
+by ``datetime.fromisoformat``, foreign keys checked as the store checks them). The ratios printed are
+rankrec's median time over the plain insert's.
 """
 
 from __future__ import annotations
@@ -67,10 +69,40 @@ print(json.dumps({"seconds": seconds, "records": {"pages": len(numbers), "links"
 """
 
 
+_PLAIN_VIEWS = """
+import csv, json, sys, time
+from datetime import datetime
+from rankrec.store import Store
+path, wiki = sys.argv[1:3]
+with Store(wiki) as store:  # the schema and connection settings of a store (foreign keys on); plain sqlite3
+    started = time.perf_counter()
+    connection = store.connection
+    with open(path, newline="", encoding="utf-8") as handle:
+        rows = csv.DictReader(handle)
+        users, pages, views = {}, {}, []
+        for row in rows:
+            dwell = row.get("dwell")
+            views.append((users.setdefault(row["user"], len(users) + 1),
+                          pages.setdefault(row["page"], len(pages) + 1),
+                          datetime.fromisoformat(row["timestamp"]).timestamp(),
+                          float(dwell) if dwell else None))
+    connection.execute("BEGIN IMMEDIATE")
+    connection.executemany("INSERT INTO users (id, user) VALUES (?, ?)", ((n, u) for u, n in users.items()))
+    connection.executemany("INSERT INTO pages (id, page) VALUES (?, ?)", ((n, p) for p, n in pages.items()))
+    connection.executemany("INSERT OR IGNORE INTO views VALUES (?, ?, ?, ?)", views)
+    connection.execute("COMMIT")
+    seconds = time.perf_counter() - started
+status = open("/proc/self/status").read().split("VmHWM:")[1].split()[0]
+print(json.dumps({"seconds": seconds, "records": {"views": len(views)},
+                  "errors": 0, "dropped": {}, "peak_bytes": int(status) * 1024}))
+"""
+_PLAINS = {"plain-sqlite3": _PLAIN, "plain-sqlite3-views": _PLAIN_VIEWS}
+
+
 def _import_once(path: Path, format: str, workdir: Path, run: int) -> dict:
     wiki = workdir / f"bench-{format}-{run}.db"
-    plain = format == "plain-sqlite3"
-    child = [_PLAIN, str(path), str(wiki)] if plain else [_CHILD, str(path), format, str(wiki)]
+    plain = _PLAINS.get(format)
+    child = [plain, str(path), str(wiki)] if plain else [_CHILD, str(path), format, str(wiki)]
     done = subprocess.run(
         [sys.executable, "-c", *child],
         capture_output=True,
@@ -128,9 +160,11 @@ def main(argv: list[str]) -> None:
         started = time.perf_counter()
         pages = synthesize(workdir / "md-wiki", pages=args.markdown_pages, seed=1, layout="markdown")
         print(f"synth: {pages.pages:,} Markdown pages in {time.perf_counter() - started:.1f} s")
+        views = workdir / "log-wiki" / "views.csv"
         rows = [
             _measure(workdir / "log-wiki" / "access.log", "access-log", workdir, args.runs, "views"),
-            _measure(workdir / "log-wiki" / "views.csv", "views", workdir, args.runs, "views"),
+            _measure(views, "views", workdir, args.runs, "views"),
+            _measure(views, "plain-sqlite3-views", workdir, args.runs, "views"),
             _measure(workdir / "md-wiki" / "pages", "markdown", workdir, args.runs, "pages"),
         ]
         lines = {"access-log": log.access_log_lines, "views": log.views}
@@ -138,6 +172,8 @@ def main(argv: list[str]) -> None:
             if row["format"] in lines:
                 row["lines_per_second"] = round(lines[row["format"]] / row["median_seconds"])
             print(json.dumps(row))
+        ours, plain = rows[1]["median_seconds"], rows[2]["median_seconds"]
+        print(f"view events: rankrec {ours} s, plain sqlite3 {plain} s: {ours / plain:.2f}x")
         _tables(workdir, args.table_pages, args.runs)
 
 
