@@ -97,30 +97,26 @@ class _Run:
             first[order[again[inside]]] = lines[order[group_start[inside]]]
         repeated = first >= 0
         seen.add(keys[~repeated], lines[~repeated])
-        start = 0
+        page_lines = np.asarray(self.page_lines, dtype=np.int64)  # ascending: pages come in line order
+        start = given = 0
         for position in np.flatnonzero(repeated).tolist():
-            yield from self._part(start, position)
+            # a repeated link names no page first: the pages read before its line go with the part before
+            upto = int(np.searchsorted(page_lines, self.lines[position]))
+            yield from self._part(start, position, given, upto)
             source, target = self.sources[position], self.targets[position]
             reason = f"duplicate link {source!r} -> {target!r} (first on line {int(first[position])})"
             yield InputError(self.name, self.lines[position], reason)
-            start = position + 1
-        yield from self._part(start, len(self.sources), last=True)
+            start, given = position + 1, upto
+        yield from self._part(start, len(self.sources), given, len(self.pages))
         self.__init__(self.name)
 
-    def _part(self, start: int, stop: int, last: bool = False) -> Iterator[EdgeRows]:
-        """Links ``start:stop`` with the pages first seen before the next part begins (every page
-        left when ``last``); a repeated link names no page first, so none is lost between parts."""
-        limit = self.lines[stop] if stop < len(self.lines) and not last else None
-        pages = [
-            (page, line)
-            for page, line in zip(self.pages, self.page_lines, strict=True)
-            if (start == 0 or line > self.lines[start - 1]) and (limit is None or line < limit)
-        ]
-        if start < stop or pages:
+    def _part(self, start: int, stop: int, first_page: int, last_page: int) -> Iterator[EdgeRows]:
+        """Links ``start:stop`` and pages ``first_page:last_page`` as one run (if it holds anything)."""
+        if start < stop or first_page < last_page:
             yield EdgeRows(
                 self.name,
-                [page for page, _ in pages],
-                [line for _, line in pages],
+                self.pages[first_page:last_page],
+                self.page_lines[first_page:last_page],
                 self.sources[start:stop],
                 self.targets[start:stop],
                 self.weights[start:stop],
