@@ -218,6 +218,10 @@ class Index:
         return {}
 
     @cached_property
+    def _team_totals(self) -> dict[int, float]:
+        return {}
+
+    @cached_property
     def _group_codes(self) -> dict[str, int]:
         return {name: code for code, name in enumerate(self.group_names)}
 
@@ -376,8 +380,12 @@ class Index:
             row = self.team_names.index(team)
         except ValueError:
             return None
-        vector = np.asarray(self.team_vectors[row], dtype=np.float64)
-        return vector / vector.sum()
+        vector = np.array(self.team_vectors[row], dtype=np.float64)  # a copy, whatever the stored type
+        total = self._team_totals.get(row)
+        if total is None:
+            total = self._team_totals[row] = float(vector.sum())
+        vector /= total
+        return vector
 
     @property
     def team_error_bound(self) -> float:

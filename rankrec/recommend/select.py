@@ -136,6 +136,9 @@ def _best_scored(scores: np.ndarray, divisor: np.ndarray, allowed: np.ndarray, k
     return lists
 
 
+_BELOW = 1.0 - 1e-9  # a product within this factor of the heap's worst is divided out exactly
+
+
 @njit(cache=True, boundscheck=False)
 def _heap_best(scores, divisor, allowed, k):  # pragma: no cover
     """Pages of the ``k`` largest ``scores[i] / divisor[i]`` over allowed ``i`` with ``scores[i] > 0``,
@@ -148,6 +151,8 @@ def _heap_best(scores, divisor, allowed, k):  # pragma: no cover
         score = scores[i]
         if not (score > 0) or not allowed[i]:
             continue
+        if size == k and score <= values[0] * divisor[i] * _BELOW:
+            continue  # surely below the heap's worst: skip the division (the margin covers rounding)
         value = score / divisor[i]
         if size < k:
             at = size  # sift up: the worse (smaller value, or equal value and larger page) rises
