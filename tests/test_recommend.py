@@ -465,3 +465,29 @@ def test_index_pages_are_site_hubs_but_small_wikis_keep_their_hub_pages():
     small = np.zeros((12, 12))
     small[0, 1:] = 1.0  # a small wiki's home page linking to its 11 others: under INDEX_MIN_LINKS
     assert not site_hubs(sp.csr_matrix(small), np.zeros(12))[0]
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 10_000), support=st.integers(0, 30), asked=st.integers(0, 60))
+def test_sparse_lookup_through_a_workspace_equals_the_search_and_leaves_it_clean(seed, support, asked):
+    # A related list's explanation reads the seed's sparse vector at many in-link sources. Spreading the
+    # vector into a borrowed push workspace must give exactly what a binary search gives (reference:
+    # a dense numpy array holding the vector), and hand the workspace back all zeros for the next push.
+    import scipy.sparse as sp
+
+    from rankrec.pagerank import prepare
+    from rankrec.recommend.candidates import _lookup
+
+    rng = np.random.default_rng(seed)
+    n = 40
+    transition = prepare(sp.csr_array(sp.random(n, n, density=0.1, random_state=seed, format="csr")))
+    indices = np.sort(rng.choice(n, support, replace=False))
+    values = rng.random(support)
+    wanted = rng.integers(0, n, asked)
+    dense = np.zeros(n)
+    dense[indices] = values
+    assert _lookup(indices, values, n, transition)(wanted).tolist() == dense[wanted].tolist()
+    assert _lookup(indices, values, n)(wanted).tolist() == dense[wanted].tolist()
+    workspace = transition.borrow_workspace()
+    assert not any(np.any(array) for array in workspace)
+    transition.return_workspace(workspace)

@@ -140,10 +140,23 @@ def ranked_candidates(transition, signals, ranker, space, seed, indices, values,
     return ranked_block(transition, signals, ranker, space, [seed], vectors, damping=damping, k=k)[0]
 
 
-def _lookup(indices: np.ndarray, values: np.ndarray, size: int):
+def _lookup(indices: np.ndarray, values: np.ndarray, size: int, transition=None):
+    """``lookup(pages)``: the sparse vector (sorted ``indices``, ``values``) at ``pages``, 0 elsewhere. With
+    ``transition``, its values are spread into a borrowed push workspace (all zeros, cleared again after),
+    so that a long list of pages costs a gather, not a binary search each."""
+
     def lookup(wanted):
         if indices.size == values.size == size:
             return values[wanted]
+        if transition is not None and indices.size:
+            workspace = transition.borrow_workspace()
+            dense = workspace[1]
+            try:
+                dense[indices] = values
+                return dense[wanted]
+            finally:
+                dense[indices] = 0.0
+                transition.return_workspace(workspace)
         position = np.minimum(np.searchsorted(indices, wanted), max(indices.size - 1, 0))
         found = values[position] if indices.size else np.zeros(wanted.size)
         return np.where(indices[position] == wanted, found, 0.0) if indices.size else found
@@ -181,7 +194,7 @@ def ranked_block(transition, signals, ranker, space, seeds, vectors, *, damping,
         first = part.stop
         pages = pools[row][orders[row]]
         indices, values = np.asarray(indices), np.asarray(values)
-        lookup = _lookup(indices, values, signals.size)
+        lookup = _lookup(indices, values, signals.size, transition)
         sending = values > 0
         explained = contributions(
             transition.backward,
