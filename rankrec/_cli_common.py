@@ -44,6 +44,28 @@ def worker_count(text: str) -> int:
     return count
 
 
+def add_cluster_option(parser: argparse.ArgumentParser, work: str) -> None:
+    """``--cluster``: run ``work`` as tasks of a Dask cluster (:mod:`rankrec.cluster`)."""
+
+    def address(text: str):
+        from .cluster import cluster_address
+        from .errors import UsageError
+
+        try:
+            return cluster_address(text)
+        except UsageError as error:
+            raise argparse.ArgumentTypeError(str(error)) from error
+
+    parser.add_argument(
+        "--cluster",
+        type=address,
+        metavar="ADDRESS",
+        help=f"run {work} on a Dask cluster: tcp://HOST:PORT (a running scheduler; its workers must run "
+        "this rankrec and see the index folder at the same path) or local:N (N worker processes started "
+        "here); needs pip install 'rankrec[cluster]'",
+    )
+
+
 def pseudonym_key(args: argparse.Namespace) -> bytes | None:
     from .privacy import load_key
 

@@ -11,6 +11,8 @@ import multiprocessing
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import Future, ProcessPoolExecutor
+from contextlib import contextmanager
+from pathlib import Path
 from typing import Any
 
 
@@ -40,3 +42,20 @@ def in_order(
         finally:  # a failure or an early stop: nothing more starts
             for waiting in pending:
                 waiting.cancel()
+
+
+@contextmanager
+def block_runner(cluster, folder: str | Path) -> Iterator[Callable[..., Iterator[Any]]]:
+    """:func:`in_order`, or its Dask form on ``cluster`` (a :class:`rankrec.cluster.ClusterAddress`;
+    its workers read ``folder``, the client is open while the ``with`` block runs)."""
+    if cluster is None:
+        yield in_order
+        return
+    from .cluster import cluster_client, cluster_in_order
+
+    with cluster_client(cluster) as client:
+
+        def on_cluster(function, arguments, workers: int, *, ahead: int = 2) -> Iterator[Any]:
+            return cluster_in_order(client, function, arguments, folder, ahead=ahead)
+
+        yield on_cluster

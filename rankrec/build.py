@@ -263,6 +263,7 @@ def build_from_evidence(
     related_pages: np.ndarray | None = None,
     method: str = "auto",
     workers: int = 1,
+    cluster=None,
     settings_source: dict | None = None,
     progress: Progress | None = None,
 ) -> Path:
@@ -287,6 +288,10 @@ def build_from_evidence(
         page that was not precomputed use the same method.
     workers : int
         Threads of the power iterations, processes of the push.
+    cluster : :class:`rankrec.cluster.ClusterAddress`, optional
+        Run the push's blocks of pages (and the ranker's scoring of them) as tasks on this Dask cluster
+        instead of local processes; its workers read the staging folder beside ``target``, so that must
+        be on storage they all mount at the same path. The power iteration (small wikis) runs here.
     settings_source : dict, optional
         Where the configuration came from (recorded in the manifest).
     progress : callable, optional
@@ -384,7 +389,7 @@ def build_from_evidence(
                 if array is not None:
                     np.save(staging / f"{name}.npy", array)
         with _timed(seconds, "related"):
-            write_related(staging, chosen, method, configuration, k_related, workers, progress)
+            write_related(staging, chosen, method, configuration, k_related, workers, progress, cluster)
         manifest = IndexManifest(
             fingerprint=evidence.graph.fingerprint,
             configuration=configuration.to_dict(),
@@ -415,6 +420,7 @@ def build_from_evidence(
             precompute={
                 "method": method,
                 "view_share": view_share,
+                "cluster": None if cluster is None or method == "power" else str(cluster),
                 "pages": "chosen"
                 if related_pages is not None
                 else ("all" if view_share is None else "most viewed"),

@@ -161,6 +161,26 @@ class GroupTooSmall(RankrecError):
         return (type(self), (self.team, self.readers, self.minimum))
 
 
+class ClusterUnavailable(RankrecError):
+    """A Dask cluster that cannot run the work: not reachable, no workers, workers that cannot read the
+    folder or run another rankrec, a block that lost its worker too often; nothing was published.
+
+    >>> str(ClusterUnavailable("tcp://10.0.0.5:8786", "cannot connect (timed out)"))
+    'cluster tcp://10.0.0.5:8786 cannot be used: cannot connect (timed out); nothing was published'
+    """
+
+    def __init__(self, where: str, reason: str) -> None:
+        self.where = str(where)
+        self.reason = reason
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        return f"cluster {self.where} cannot be used: {self.reason}; nothing was published"
+
+    def __reduce__(self):
+        return (type(self), (self.where, self.reason))
+
+
 # -- storage ---------------------------------------------------------------------------------------
 class StoreUnavailable(RankrecError):
     """The store cannot be used just now (locked by another writer, an I/O error); nothing was

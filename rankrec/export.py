@@ -30,7 +30,7 @@ from urllib.parse import quote
 
 import numpy as np
 
-from ._pool import in_order
+from ._pool import block_runner
 from ._validation import check_choice, check_count
 from .errors import GroupTooSmall, NoSpace, StaleIndex, UsageError
 from .index import Index, IndexManifest, load_index
@@ -120,27 +120,28 @@ def _worker_lists(folder: str, manifest: IndexManifest, groups, k: int, numbers:
 
 
 def _listed(
-    index: Index, groups, k: int, progress: Progress | None, workers: int = 1
+    index: Index, groups, k: int, progress: Progress | None, workers: int = 1, cluster=None
 ) -> Iterator[tuple[str, tuple]]:
     """(page id, items) of every page the viewer may see, in page-id order, chunk by chunk (here, or in
-    ``workers`` processes that each load the index)."""
+    ``workers`` processes, or on the Dask ``cluster``, that each load the index)."""
     visible = index.visible(groups) & ~np.asarray(index.archived)
     order = np.asarray(index.page_order)
     order = order[visible[order]]
     chunks = [order[first : first + _CHUNK_PAGES] for first in range(0, order.size, _CHUNK_PAGES)]
-    if workers == 1 or len(chunks) <= 1:
-        found = (_chunk_lists(index, groups, k, chunk) for chunk in chunks)
-    else:
-        folder = str(index.folder)
-        found = in_order(
-            _worker_lists, [(folder, index.manifest, groups, k, chunk) for chunk in chunks], workers
-        )
+    folder = str(index.folder)
+    here = cluster is None and (workers == 1 or len(chunks) <= 1)
     done = 0
     report(progress, "related lists", 0, int(order.size))
-    for lists in found:
-        yield from lists
-        done += len(lists)
-        report(progress, "related lists", done, int(order.size))
+    with block_runner(None if here else cluster, folder) as run:
+        if here:
+            found = (_chunk_lists(index, groups, k, chunk) for chunk in chunks)
+        else:
+            tasks = [(folder, index.manifest, groups, k, chunk) for chunk in chunks]
+            found = run(_worker_lists, tasks, workers)
+        for lists in found:
+            yield from lists
+            done += len(lists)
+            report(progress, "related lists", done, int(order.size))
 
 
 def _write_atomically(path: Path, write: Callable[[io.TextIOBase], None], *, newline: str | None) -> None:
@@ -234,13 +235,16 @@ def export_lists(
     url: Callable[[str], str | None] = lambda page: None,
     progress: Progress | None = None,
     workers: int = 1,
+    cluster=None,
 ) -> ExportSummary:
     """Write every page's related list to ``path`` (see the module docstring) and say what was written.
 
     ``format``: ``json`` (one object, page id -> its items), ``jsonl`` (one object per line: ``page`` and
     ``items``) or ``csv`` (:data:`CSV_COLUMNS`, one row per item). Each item has the related page's id,
     title, URL (``url(page)``, None without one), score and reason. ``workers`` processes make the
-    lists (each loads the index); the file is the same whatever their number.
+    lists (each loads the index), or the tasks of the Dask ``cluster`` (a :class:`rankrec.cluster.
+    ClusterAddress`; its workers must read the index folder at the same path); the file is the same
+    whatever their number.
     """
     check_choice("format", format, FORMATS)
     check_count("k", k)
@@ -249,7 +253,7 @@ def export_lists(
     target = Path(path)
     lists, items = _write_lists(
         target,
-        _listed(index, groups, k, progress, workers),
+        _listed(index, groups, k, progress, workers, cluster),
         format=format,
         subject="page",
         columns=CSV_COLUMNS,

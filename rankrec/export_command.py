@@ -7,7 +7,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from ._cli_common import list_urls, open_index, step_bars, worker_count
+from ._cli_common import add_cluster_option, list_urls, open_index, step_bars, worker_count
 from .export import FORMATS
 
 _SHOWN_DIFFS = 3  # files whose whole diff a dry run prints (the others are counted)
@@ -73,6 +73,7 @@ def register(commands) -> None:
         metavar="N",
         help="with --out: processes making the lists (default 1); the file is the same for any N",
     )
+    add_cluster_option(export, "--out's lists, chunk by chunk,")
     export.set_defaults(run=_cmd_export)
 
 
@@ -114,6 +115,7 @@ def _cmd_export(args: argparse.Namespace) -> int:
                 url=url,
                 progress=progress,
                 workers=args.workers,
+                cluster=args.cluster,
             )
             print(
                 f"{done.lists:,} lists, {done.items:,} items written to {done.path} in {done.seconds:.1f} s"

@@ -5,7 +5,15 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ._cli_common import list_urls, open_index, print_list, step_bars, stored_user, worker_count
+from ._cli_common import (
+    add_cluster_option,
+    list_urls,
+    open_index,
+    print_list,
+    step_bars,
+    stored_user,
+    worker_count,
+)
 from ._output import print_mapping, print_rows
 from .errors import UsageError
 from .ranker.model import labels_text
@@ -70,6 +78,7 @@ def register(commands) -> None:
         "or by the PageRank and text mix (none)",
     )
     build.add_argument("--workers", type=worker_count, default=1, metavar="N", help="processes (default 1)")
+    add_cluster_option(build, "the related lists' blocks of pages (wikis above 5,000 pages)")
     build.set_defaults(run=_cmd_build)
 
     def list_options(command, k: int) -> None:
@@ -201,6 +210,7 @@ def _cmd_build(args: argparse.Namespace) -> int:
             k_related=args.k_related,
             view_share=args.view_share,
             workers=args.workers,
+            cluster=args.cluster,
             settings_source=source,
             progress=progress,
         )

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._pool import in_order
+from .._pool import block_runner
 from ..configuration import Configuration
 from ..index import Index, index_signals, load_array, load_transition
 from ..pagerank import Transition, personalised_pagerank, push
@@ -301,16 +301,29 @@ def related_block(settings: tuple, seeds: np.ndarray) -> dict:
 
 
 def write_related(
-    staging: Path, chosen, method: str, configuration: Configuration, k: int, workers: int, progress=None
+    staging: Path,
+    chosen,
+    method: str,
+    configuration: Configuration,
+    k: int,
+    workers: int,
+    progress=None,
+    cluster=None,
 ) -> None:
-    """Precompute the candidates of the ``chosen`` pages into ``staging`` (``related_*.npy``).
+    """Precompute the candidates of the ``chosen`` pages into ``staging`` (``related_*.npy``, written
+    into as blocks arrive, so the lists are never all in memory).
 
     The power iteration solves wide blocks of seeds in this process (``workers`` threads); the push runs
-    batches in ``workers`` processes.
+    batches in ``workers`` processes, or as tasks on ``cluster`` (a :class:`rankrec.cluster.ClusterAddress`).
     """
     arrays_here = _read_arrays(str(staging))
     size = arrays_here[0].n
-    arrays = _empty(chosen.size, k)
+    arrays = {
+        name: np.lib.format.open_memmap(staging / f"related_{name}.npy", "w+", dtype, (chosen.size, k))
+        for name, (dtype, _) in _FIELDS.items()
+    }
+    for name, (_, fill) in _FIELDS.items():
+        arrays[name][:] = fill
     done = 0
 
     def store_block(first: int, block: dict) -> None:
@@ -335,14 +348,17 @@ def write_related(
         offsets = np.cumsum([0] + [seeds.size for seeds in batches])[:-1]
         settings = (str(staging), method, configuration.to_dict(), k)
         tasks = [(settings, seeds) for seeds in batches]
-        blocks = in_order(related_block, tasks, workers if len(tasks) > 1 else 1, ahead=4)
-        for first, block in zip(offsets, blocks, strict=True):
-            store_block(first, block)
+        here = cluster is None and len(tasks) <= 1
+        with block_runner(cluster, staging) as run:
+            blocks = run(related_block, tasks, 1 if here else workers, ahead=4)
+            for first, block in zip(offsets, blocks, strict=True):
+                store_block(first, block)
+    for values in arrays.values():
+        values.flush()
+    arrays.clear()  # unmaps the files
     row = np.full(size, -1, dtype=np.int32)
     row[chosen] = np.arange(chosen.size, dtype=np.int32)
     np.save(staging / "related_row.npy", row)
-    for name, values in arrays.items():
-        np.save(staging / f"related_{name}.npy", values)
 
 
 def _index_arrays(index: Index) -> tuple:

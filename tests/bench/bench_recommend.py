@@ -35,6 +35,9 @@ from rankrec.build import build_index
 from rankrec.configuration import Configuration
 from rankrec.store import Store
 wiki, target, settings, changed = sys.argv[1], sys.argv[2], json.loads(sys.argv[3]), json.loads(sys.argv[4])
+if settings.get("cluster"):
+    from rankrec.cluster import cluster_address
+    settings["cluster"] = cluster_address(settings["cluster"])
 started = time.perf_counter()
 with Store(wiki, create=False) as store:
     build_index(store, target, Configuration().with_values(**changed), **settings)
