@@ -324,6 +324,10 @@ def build_from_evidence(
         chosen = precomputed_pages(views, view_share)
     if method == "auto":
         method = "power" if size <= EXACT_LIMIT else "push"
+    if cluster is not None and method == "push":
+        from .cluster import check_reachable
+
+        check_reachable(cluster)
 
     def write(staging: Path) -> None:
         # Each part is written into the staging folder as soon as it is computed and then let go, so

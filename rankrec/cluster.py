@@ -111,6 +111,14 @@ def check_workers(client, folder: str | Path) -> int:
     return max(1, threads)
 
 
+def check_reachable(address: ClusterAddress) -> None:
+    """Fail early, before hours of other work: Dask must be installed and a remote scheduler answer."""
+    _distributed()
+    if address.scheduler is not None:
+        with cluster_client(address):
+            pass
+
+
 @contextmanager
 def cluster_client(address: ClusterAddress) -> Iterator[Any]:
     """A Dask client for ``address`` (a local cluster is started here and stopped on leaving)."""

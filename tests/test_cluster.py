@@ -21,6 +21,7 @@ import cloudpickle  # noqa: E402  (installed with distributed)
 from rankrec.build import build_index  # noqa: E402
 from rankrec.cli import main  # noqa: E402
 from rankrec.cluster import ClusterAddress, check_workers, cluster_address  # noqa: E402
+from rankrec.configuration import Configuration  # noqa: E402
 from rankrec.demo import import_demo  # noqa: E402
 from rankrec.errors import ClusterUnavailable, UsageError  # noqa: E402
 from rankrec.export import export_lists  # noqa: E402
@@ -141,10 +142,10 @@ def test_a_block_that_keeps_killing_its_worker_ends_the_build_with_nothing_publi
         distributed.Client(cluster) as client,
     ):
         client.register_plugin(KillOnFirstBlock("related_block-", None), name="kill-always")
+        plain = Configuration().with_values(ranker="none", text_weight=0.0)  # straight to the related step
+        address = cluster_address(cluster.scheduler_address)
         with Store(wiki, create=False) as store, pytest.raises(ClusterUnavailable, match="lost its worker"):
-            build_index(
-                store, tmp_path / "index", method="push", cluster=cluster_address(cluster.scheduler_address)
-            )
+            build_index(store, tmp_path / "index", plain, method="push", cluster=address)
     assert list(tmp_path.iterdir()) == []  # no index, no staging folder left
 
 
@@ -180,6 +181,25 @@ def test_workers_that_cannot_read_the_folder_are_named(scheduler, tmp_path):
     assert "2 of 2 workers" in str(error.value)
 
 
+def test_a_build_stops_at_once_when_the_scheduler_cannot_be_reached(monkeypatch, demo, tmp_path):
+    import rankrec.cluster
+
+    monkeypatch.setattr(rankrec.cluster, "CONNECT_SECONDS", 1)
+    monkeypatch.setattr("rankrec.build.build_basis", _never)  # the check comes before any real work
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        port = probe.getsockname()[1]
+    wiki, _ = demo
+    address = cluster_address(f"tcp://127.0.0.1:{port}")
+    with Store(wiki, create=False) as store, pytest.raises(ClusterUnavailable, match="cannot connect"):
+        build_index(store, tmp_path / "index", method="push", cluster=address)
+    assert list(tmp_path.iterdir()) == []
+
+
+def _never(*args, **kwargs):
+    raise AssertionError("the build went on past a cluster it cannot use")
+
+
 def test_an_unreachable_scheduler_is_a_clear_error(monkeypatch, demo, tmp_path, capsys):
     import rankrec.cluster
 
@@ -200,6 +220,7 @@ def test_an_unreachable_scheduler_is_a_clear_error(monkeypatch, demo, tmp_path, 
 def test_without_dask_the_cluster_option_says_what_to_install(monkeypatch, demo, tmp_path):
     monkeypatch.setitem(sys.modules, "distributed", None)  # as if the extra were not installed
     wiki, _ = demo
+    monkeypatch.setattr("rankrec.build.build_basis", _never)  # said before any real work
     with Store(wiki, create=False) as store, pytest.raises(UsageError, match=r"rankrec\[cluster\]"):
         build_index(store, tmp_path / "index", method="push", cluster=ClusterAddress(local_workers=1))
     assert list(tmp_path.iterdir()) == []
