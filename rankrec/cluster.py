@@ -119,19 +119,24 @@ def check_reachable(address: ClusterAddress) -> None:
             pass
 
 
+def local_cluster(workers: int):
+    """A Dask cluster of ``workers`` single-threaded worker processes on this machine's loopback."""
+    return _distributed().LocalCluster(
+        n_workers=workers,
+        threads_per_worker=1,
+        processes=True,
+        host="127.0.0.1",  # scheduler and workers on loopback only
+        dashboard_address="127.0.0.1:0",  # its status pages on a free loopback port
+        silence_logs=logging.ERROR,
+    )
+
+
 @contextmanager
 def cluster_client(address: ClusterAddress) -> Iterator[Any]:
     """A Dask client for ``address`` (a local cluster is started here and stopped on leaving)."""
     distributed = _distributed()
     if address.local_workers is not None:
-        cluster = distributed.LocalCluster(
-            n_workers=address.local_workers,
-            threads_per_worker=1,
-            processes=True,
-            host="127.0.0.1",  # scheduler and workers on loopback only
-            dashboard_address="127.0.0.1:0",  # its status pages on a free loopback port
-            silence_logs=logging.ERROR,
-        )
+        cluster = local_cluster(address.local_workers)
         try:
             with distributed.Client(cluster) as client:
                 yield client

@@ -20,7 +20,7 @@ import cloudpickle  # noqa: E402  (installed with distributed)
 
 from rankrec.build import build_index  # noqa: E402
 from rankrec.cli import main  # noqa: E402
-from rankrec.cluster import ClusterAddress, check_workers, cluster_address  # noqa: E402
+from rankrec.cluster import ClusterAddress, check_workers, cluster_address, local_cluster  # noqa: E402
 from rankrec.configuration import Configuration  # noqa: E402
 from rankrec.demo import import_demo  # noqa: E402
 from rankrec.errors import ClusterUnavailable, UsageError  # noqa: E402
@@ -63,14 +63,7 @@ def demo(tmp_path_factory):
 @pytest.fixture(scope="module")
 def scheduler():
     """A running local cluster: two single-threaded worker processes, reached by its tcp address."""
-    with distributed.LocalCluster(
-        n_workers=2,
-        threads_per_worker=1,
-        processes=True,
-        host="127.0.0.1",
-        dashboard_address="127.0.0.1:0",
-        silence_logs=50,
-    ) as cluster:
+    with local_cluster(2) as cluster:
         yield cluster.scheduler_address
 
 
@@ -131,14 +124,7 @@ def test_a_block_that_keeps_killing_its_worker_ends_the_build_with_nothing_publi
     wiki, _ = demo
     with (
         dask.config.set({"distributed.scheduler.allowed-failures": 0}),
-        distributed.LocalCluster(
-            n_workers=1,
-            threads_per_worker=1,
-            processes=True,
-            host="127.0.0.1",
-            dashboard_address="127.0.0.1:0",
-            silence_logs=50,
-        ) as cluster,
+        local_cluster(1) as cluster,
         distributed.Client(cluster) as client,
     ):
         client.register_plugin(KillOnFirstBlock("related_block-", None), name="kill-always")
