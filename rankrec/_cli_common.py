@@ -44,8 +44,10 @@ def worker_count(text: str) -> int:
     return count
 
 
-def add_cluster_option(parser: argparse.ArgumentParser, work: str) -> None:
-    """``--cluster``: run ``work`` as tasks of a Dask cluster (:mod:`rankrec.cluster`)."""
+def add_cluster_option(parser: argparse.ArgumentParser, work: str, *, reads_folder: bool = True) -> None:
+    """``--cluster``: run ``work`` as tasks of a Dask cluster (:mod:`rankrec.cluster`); ``reads_folder``:
+    the tasks read the index folder (else what they need is sent to each worker)."""
+    needs = "see the index folder at the same path" if reads_folder else "have the memory for the evidence"
 
     def address(text: str):
         from .cluster import cluster_address
@@ -61,8 +63,8 @@ def add_cluster_option(parser: argparse.ArgumentParser, work: str) -> None:
         type=address,
         metavar="ADDRESS",
         help=f"run {work} on a Dask cluster: tcp://HOST:PORT (a running scheduler; its workers must run "
-        "this rankrec and see the index folder at the same path) or local:N (N worker processes started "
-        "here); needs pip install 'rankrec[cluster]'",
+        f"this rankrec and {needs}) or local:N (N worker processes started here); needs pip install "
+        "'rankrec[cluster]'",
     )
 
 

@@ -59,3 +59,25 @@ def block_runner(cluster, folder: str | Path) -> Iterator[Callable[..., Iterator
             return cluster_in_order(client, function, arguments, folder, ahead=ahead)
 
         yield on_cluster
+
+
+@contextmanager
+def task_runner(cluster, shared: tuple) -> Iterator[Callable[..., list]]:
+    """``run_all(function, items, on_each)``: ``function(*shared, item)`` for every item, the results in
+    the items' order, ``on_each(position, item, result)`` called as each is done. Here one after another,
+    or side by side as tasks of the Dask ``cluster`` (``shared`` sent to every worker once)."""
+    if cluster is None:
+
+        def one_by_one(function, items, on_each) -> list:
+            found = []
+            for position, item in enumerate(items):
+                found.append(function(*shared, item))
+                on_each(position, item, found[-1])
+            return found
+
+        yield one_by_one
+        return
+    from .cluster import cluster_client, cluster_map
+
+    with cluster_client(cluster) as client:
+        yield cluster_map(client, shared)

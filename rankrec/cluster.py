@@ -80,18 +80,19 @@ def _distributed():
     return distributed
 
 
-def _worker_facts(folder: str) -> tuple[str, bool]:
-    """Run on each worker: its rankrec version, and whether it can read ``folder``."""
+def _worker_facts(folder: str | None) -> tuple[str, bool]:
+    """Run on each worker: its rankrec version, and whether it can read ``folder`` (None: not asked)."""
     from . import __version__ as version
 
-    return version, os.access(folder, os.R_OK | os.X_OK) and Path(folder).is_dir()
+    return version, folder is None or (os.access(folder, os.R_OK | os.X_OK) and Path(folder).is_dir())
 
 
-def check_workers(client, folder: str | Path) -> int:
+def check_workers(client, folder: str | Path | None) -> int:
     """The cluster's worker threads, after checking that every worker runs this rankrec and reads
-    ``folder``; :class:`ClusterUnavailable` otherwise (no workers, other versions, folder not shared)."""
+    ``folder`` (None: no folder); :class:`ClusterUnavailable` otherwise (no workers, other versions,
+    folder not shared)."""
     where = _where(client)
-    facts = client.run(_worker_facts, str(folder))
+    facts = client.run(_worker_facts, None if folder is None else str(folder))
     if not facts:
         raise ClusterUnavailable(where, "the scheduler has no workers")
     versions = sorted({version for version, _ in facts.values()} - {__version__})
@@ -169,6 +170,31 @@ def cluster_in_order(
     finally:  # a failure or an early stop: nothing more runs
         for waiting in pending:
             waiting.cancel()
+
+
+def cluster_map(client, shared: tuple) -> Callable[..., list]:
+    """``run_all(function, items, on_each)`` on ``client``'s cluster: one task per item, ``shared`` sent
+    to every worker once (see :func:`rankrec._pool.task_runner`)."""
+    distributed = _distributed()
+    check_workers(client, None)
+    sent = client.scatter(list(shared), broadcast=True)
+
+    def run_all(function, items, on_each) -> list:
+        items = list(items)
+        tasks = [client.submit(function, *sent, item, pure=False) for item in items]
+        places = {task.key: position for position, task in enumerate(tasks)}
+        found: list = [None] * len(tasks)
+        try:
+            for task in distributed.as_completed(tasks):
+                position = places[task.key]
+                found[position] = _result(task, distributed)
+                on_each(position, items[position], found[position])
+        finally:
+            for task in tasks:
+                task.cancel()
+        return found
+
+    return run_all
 
 
 def _where(client) -> str:

@@ -109,7 +109,7 @@ def test_a_build_on_a_cluster_equals_the_local_build_when_a_worker_dies_mid_task
                 )
         finally:
             client.unregister_worker_plugin("kill-once")
-        assert len(client.scheduler_info()["workers"]) == 2  # the nanny started the killed worker again
+        client.wait_for_workers(2, timeout=60)  # the nanny starts the killed worker again
     assert marker.exists()  # a worker really died while running a block
     ours, reference = _related(built), _related(local)
     for name in RELATED_ARRAYS:  # no block missing, repeated or out of place
@@ -210,3 +210,29 @@ def test_without_dask_the_cluster_option_says_what_to_install(monkeypatch, demo,
     with Store(wiki, create=False) as store, pytest.raises(UsageError, match=r"rankrec\[cluster\]"):
         build_index(store, tmp_path / "index", method="push", cluster=ClusterAddress(local_workers=1))
     assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("kind", ["temporal", "sessions"])
+def test_sweeps_on_a_cluster_choose_what_they_choose_here(kind, scheduler):
+    from rankrec.build import Evidence
+    from rankrec.evaluate.sweeps import choose_configuration
+    from tests.evaluate.test_baselines import _random_graph, _random_views
+    from tests.evaluate.test_sweeps import SMALL, _splits
+
+    views = _random_views(4, views=900, span=20_000.0)
+    split = _splits(kind, views)
+    evidence = Evidence.from_links(_random_graph(views[3], 4))
+    here = choose_configuration(split, evidence, grid=SMALL)
+    seen = []
+    there = choose_configuration(
+        split,
+        evidence,
+        grid=SMALL,
+        cluster=cluster_address(scheduler),
+        progress=lambda *done: seen.append(done),
+    )
+    assert there.configuration == here.configuration and there.score == here.score
+    assert len(there.sweeps) == len(here.sweeps)
+    for one, other in zip(there.sweeps, here.sweeps, strict=True):
+        np.testing.assert_array_equal(one.scores, other.scores)
+    assert [done[1] for done in seen] == list(range(1, len(seen) + 1))  # every build reported, in count

@@ -6,6 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from .._cli_common import add_cluster_option
 from ..configuration import Configuration
 from ..errors import UsageError
 from ..sources import FieldError, parse_timestamp
@@ -112,6 +113,7 @@ def evaluate(args: argparse.Namespace, out=None) -> int:
             seed=args.seed,
             workers=args.workers,
             progress=progress,
+            cluster=args.cluster,
         )
     finally:
         bar.close()
@@ -228,6 +230,7 @@ def register(commands) -> None:
     command.add_argument(
         "--workers", type=int, default=1, metavar="N", help="threads of the power iteration (1)"
     )
+    add_cluster_option(command, "the sweeps' builds side by side", reads_folder=False)
     settings = command.add_argument_group("rankrec's settings (the sweeps start from these)")
     defaults = Configuration()
     settings.add_argument(

@@ -229,11 +229,13 @@ def run_evaluation(
     seed: int = 0,
     workers: int = 1,
     progress: Progress | None = None,
+    cluster=None,
 ) -> Evaluation:
     """Evaluate every baseline and rankrec on ``split`` (see the module docstring).
 
     ``grid`` None skips the sweeps (rankrec runs with ``start``) and, when the training part yields no
-    validation split, the best baseline is then named on the test split (the report says so).
+    validation split, the best baseline is then named on the test split (the report says so). On a Dask
+    ``cluster`` the sweeps' builds run side by side (:func:`choose_configuration`); nothing else changes.
     """
     ks = tuple(sorted({check_count("ks", k) for k in ks}))
     if not ks:
@@ -286,6 +288,7 @@ def run_evaluation(
             workers=workers,
             validation=validation,
             progress=advance,
+            cluster=cluster,
         )
         configuration = choice.configuration
         validation_scores["rankrec"] = choice.score

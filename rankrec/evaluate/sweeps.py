@@ -34,6 +34,7 @@ from types import MappingProxyType
 
 import numpy as np
 
+from .._pool import task_runner
 from .._validation import check_count
 from ..configuration import Configuration
 from ..errors import NothingToEvaluate
@@ -183,38 +184,68 @@ def choose_configuration(
     workers: int = 1,
     validation: Split | None = None,
     progress: Progress | None = None,
+    cluster=None,
 ) -> Choice:
     """Sweep ``grid`` on the validation split of ``split`` and return the best configuration.
 
     ``evidence`` is the store's (:class:`rankrec.build.Evidence`; its views are replaced by each training
     part). ``validation`` may pass the split from :func:`validation_split` (made once for baselines and
     sweeps alike); ``progress(description, builds done, builds at most)`` is called after every build. Only
-    ``split.train`` is read.
+    ``split.train`` is read. The cells of each sweep are independent builds: on a Dask ``cluster`` (a
+    :class:`rankrec.cluster.ClusterAddress`) they run as tasks side by side, the validation split and
+    the evidence sent to each worker once; the choice is the same.
     """
     k = check_count("k", k)
     grid = Grid() if grid is None else grid
     start = Configuration() if start is None else start
     validation = validation_split(split) if validation is None else validation
+    with task_runner(cluster, (validation, evidence, k, hubs, 1 if cluster else workers)) as run_all:
+        return _choose(split, evidence, grid, start, k, validation, progress, run_all)
+
+
+def validation_score(
+    validation: Split, evidence, k: int, hubs: int, workers: int, configuration: Configuration
+) -> float:
+    """The mean nDCG@k on ``validation`` of the lists an index built with ``configuration`` serves."""
+    lists = rankrec_lists(validation, evidence, k, configuration, hubs=hubs, workers=workers)
+    return mean_metric(lists, validation, k)
+
+
+def _fill(scores: np.ndarray, cells: dict, score_all) -> None:
+    """Score the configurations ``cells`` maps (row, column) to, together, into ``scores``."""
+    for place, found in zip(cells, score_all(list(cells.values())), strict=True):
+        scores[place] = found
+
+
+def _choose(
+    split, evidence, grid: Grid, start: Configuration, k: int, validation, progress, run_all
+) -> Choice:
     metric = f"ndcg@{k}"
     tried: list[tuple[float, Configuration]] = []
 
-    def score(configuration: Configuration) -> float:
-        lists = rankrec_lists(validation, evidence, k, configuration, hubs=hubs, workers=workers)
-        found = mean_metric(lists, validation, k)
-        tried.append((found, configuration))
+    built = [0]
+
+    def scored(position: int, configuration: Configuration, found: float) -> None:
+        built[0] += 1
         shown = ", ".join(f"{name} {getattr(configuration, name):g}" for name in GRID_NAMES)
-        report(progress, f"sweep {shown}", len(tried), grid.solves)
+        report(progress, f"sweep {shown}", built[0], grid.solves)
+
+    def score_all(configurations: list[Configuration]) -> list[float]:
+        """Each configuration's validation score, in their order (together: on a cluster, in parallel)."""
+        found = run_all(validation_score, configurations, scored)
+        tried.extend(zip(found, configurations, strict=True))
         return found
+
+    def score(configuration: Configuration) -> float:
+        return score_all([configuration])[0]
 
     lifts = grid.lift
     notes = []
     if start.ranker != "none" and split.task == "sessions":
         lifts = (start.lift,)
         notes.append("lift is not swept: the learnt ranker weighs global PageRank itself")
-    first = np.full((len(grid.damping), len(lifts)), np.nan)
-    for row, damping in enumerate(grid.damping):
-        for column, lift in enumerate(lifts):
-            first[row, column] = score(start.with_values(damping=damping, lift=lift))
+    cells = [start.with_values(damping=damping, lift=lift) for damping in grid.damping for lift in lifts]
+    first = np.reshape(score_all(cells), (len(grid.damping), len(lifts)))
     fixed = {"half_life_days": start.half_life_days, "navigation_weight": start.navigation_weight}
     damping_sweep = Sweep("damping", "lift", grid.damping, lifts, first, MappingProxyType(fixed))
     damping, lift, _ = damping_sweep.best()
@@ -227,15 +258,16 @@ def choose_configuration(
         navigation_weights = (start.navigation_weight,)
         notes.append("navigation weight is not swept: the task has no reading history")
     second = np.full((len(half_lives), len(navigation_weights)), np.nan)
+    cells = {}
     for row, half_life in enumerate(half_lives):
         for column, weight in enumerate(navigation_weights):
             if half_life == start.half_life_days and weight == start.navigation_weight:
                 second[row, column] = first[grid.damping.index(damping), lifts.index(lift)]
                 continue  # built in the first sweep already
-            configuration = start.with_values(
+            cells[row, column] = start.with_values(
                 damping=damping, lift=lift, half_life_days=half_life, navigation_weight=weight
             )
-            second[row, column] = score(configuration)
+    _fill(second, cells, score_all)
     history_sweep = Sweep(
         "half_life_days",
         "navigation_weight",
@@ -248,19 +280,16 @@ def choose_configuration(
     half_life, weight, _ = history_sweep.best()
     if (half_life, weight) != (start.half_life_days, start.navigation_weight):
         again = np.full((len(grid.damping), len(lifts)), np.nan)
+        cells = {}
         for row, damping_value in enumerate(grid.damping):
             for column, lift_value in enumerate(lifts):
                 if (damping_value, lift_value) == (damping, lift):
                     again[row, column] = second[half_lives.index(half_life), navigation_weights.index(weight)]
                     continue  # built in the second sweep already
-                again[row, column] = score(
-                    start.with_values(
-                        damping=damping_value,
-                        lift=lift_value,
-                        half_life_days=half_life,
-                        navigation_weight=weight,
-                    )
+                cells[row, column] = start.with_values(
+                    damping=damping_value, lift=lift_value, half_life_days=half_life, navigation_weight=weight
                 )
+        _fill(again, cells, score_all)
         fixed = {"half_life_days": half_life, "navigation_weight": weight}
         sweeps += (Sweep("damping", "lift", grid.damping, lifts, again, MappingProxyType(fixed)),)
     finite = [(value, position) for position, (value, _) in enumerate(tried) if np.isfinite(value)]
@@ -276,13 +305,14 @@ def choose_configuration(
         # the mix's lift was not swept while the ranker was on: it is here
         mix_lifts = grid.lift if lifts != grid.lift else (best.lift,)
         third = np.full((len(text_weights), len(mix_lifts)), np.nan)
+        cells = {}
         for row, weight in enumerate(text_weights):
             for column, lift in enumerate(mix_lifts):
                 if best.ranker == "none" and (weight, lift) == (best.text_weight, best.lift):
                     third[row, column] = value
                     continue
-                configuration = best.with_values(text_weight=weight, lift=lift, ranker="none")
-                third[row, column] = score(configuration)
+                cells[row, column] = best.with_values(text_weight=weight, lift=lift, ranker="none")
+        _fill(third, cells, score_all)
         fixed = {name: getattr(best, name) for name in ("damping", "navigation_weight", "title_weight")}
         sweeps += (
             Sweep(
