@@ -7,11 +7,14 @@ This package imports no other rankrec module.
 - :func:`combine` mixes leaky vectors into the exact PageRank of a restart mix.
 - :func:`push` approximates one seed's (or a few seeds') vector locally.
 - :func:`solve_exact` is the direct sparse solve used as a reference on small graphs.
+- :func:`mass_on` bounds, for every seed at once, the personalised PageRank mass on a set of pages
+  (reverse push), and :func:`change_bound` how far each seed's vector can move when rows change.
 """
 
 from .exact import solve_exact
 from .power import combine, personalised_pagerank
 from .push import push
+from .reach import ReachResult, change_bound, changed_rows, mass_on
 from .results import ConvergenceWarning, PageRankResult, PushResult
 from .transition import Transition, prepare
 
@@ -19,8 +22,12 @@ __all__ = [
     "ConvergenceWarning",
     "PageRankResult",
     "PushResult",
+    "ReachResult",
     "Transition",
+    "change_bound",
+    "changed_rows",
     "combine",
+    "mass_on",
     "personalised_pagerank",
     "prepare",
     "push",

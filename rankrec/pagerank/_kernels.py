@@ -193,3 +193,42 @@ def inflow(indptr, indices, data, hot, pages):  # pragma: no cover
             total += hot[2 * np.int64(indices[p])] * data[p]
         sums[position] = total
     return sums
+
+
+@njit(cache=True, boundscheck=False)
+def reverse_push(indptr, indices, data, residual, estimate, damping, epsilon, max_pushes):  # pragma: no cover
+    """Reverse push (``indptr`` = Pᵀ rows: each page's in-links): while some page holds residual above
+    ``epsilon``, move ``(1 − α)`` of it into its estimate and ``α P[u, v]`` of it to each page ``u``
+    linking to it. ``residual`` and ``estimate`` are updated in place. Returns (pushes, converged)."""
+    n = indptr.size - 1
+    queue = np.empty(max(n, 1), dtype=np.int64)
+    queued = np.zeros(n, dtype=np.bool_)
+    head = 0
+    size = 0
+    for v in range(n):
+        if residual[v] > epsilon:
+            queue[size] = v
+            queued[v] = True
+            size += 1
+    pushes = 0
+    while size > 0 and pushes < max_pushes:
+        v = queue[head]
+        head = head + 1 if head + 1 < n else 0
+        size -= 1
+        queued[v] = False
+        mass = residual[v]
+        residual[v] = 0.0
+        estimate[v] += (1.0 - damping) * mass
+        pushes += 1
+        spread = damping * mass
+        for p in range(indptr[v], indptr[v + 1]):
+            u = np.int64(indices[p])
+            residual[u] += spread * data[p]
+            if not queued[u] and residual[u] > epsilon:
+                at = head + size
+                if at >= n:
+                    at -= n
+                queue[at] = u
+                queued[u] = True
+                size += 1
+    return pushes, size == 0
