@@ -4,8 +4,8 @@ A build's related-list step and an export hand :func:`rankrec._pool.in_order` bl
 cluster, each block becomes one Dask task instead of one task of a local process pool. Nothing large
 travels with a task: it names the folder it reads (the build's staging folder, or the published index),
 and each worker process memory-maps that folder once. So the folder must be on storage that every worker
-mounts at the same path; :func:`cluster_client` checks that before the first task, and that the workers
-run this version of rankrec.
+mounts at the same path; :func:`check_workers` checks that before the first task, and that the workers
+run this version of rankrec. An evaluation's sweeps send what they read instead (:func:`cluster_map`).
 
 A worker lost in the middle of a task (killed, out of memory, its machine gone) is Dask's to handle: the
 scheduler runs the task again elsewhere, up to its ``allowed-failures`` limit (3 unless configured). A
@@ -207,6 +207,6 @@ def _result(future, distributed) -> Any:
     except distributed.KilledWorker as killed:
         raise ClusterUnavailable(
             str(getattr(killed.last_worker, "address", "the cluster")),
-            f"a block of pages lost its worker {killed.allowed_failures + 1} times; see the workers' logs "
-            "(a memory limit?)",
+            f"a block of pages lost its worker on each of {killed.allowed_failures + 1} attempts; see the "
+            "workers' logs (a memory limit?)",
         ) from killed
