@@ -323,7 +323,8 @@ def write_related(
         for name, (dtype, _) in _FIELDS.items()
     }
     for name, (_, fill) in _FIELDS.items():
-        arrays[name][:] = fill
+        if fill:  # a new file reads as zeros already
+            arrays[name][:] = fill
     done = 0
 
     def store_block(first: int, block: dict) -> None:
