@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 from pathlib import Path
 
 import pytest
@@ -22,6 +23,18 @@ def require_shared(*parts: str) -> Path:
 def shared_data():
     """The ``require_shared`` function, as a fixture."""
     return require_shared
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory) -> tuple[Path, str]:
+    """One run of `rankrec demo` (its work folder and what it printed), shared by the tests that read it:
+    a run imports, evaluates, builds and exports the demo wiki, about a minute."""
+    from rankrec.demo import run_demo
+
+    folder = tmp_path_factory.mktemp("demo")
+    out = io.StringIO()
+    run_demo(folder, out=out)
+    return folder, out.getvalue()
 
 
 def write_files(folder: Path, files: dict[str, str | bytes]) -> Path:

@@ -153,15 +153,12 @@ def test_a_stale_index_is_refused(tmp_path, capsys):
     assert code == 2 and "index is stale" in err
 
 
-def test_demo_prints_the_three_lists_and_where_the_index_is(tmp_path):
-    from rankrec.demo import run_demo
+def test_demo_prints_the_three_lists_and_where_the_index_is(demo_run):
     from rankrec.index import load_index
 
-    out = io.StringIO()
-    run_demo(tmp_path, out=out)
-    text = out.getvalue()
+    folder, text = demo_run
     assert text.count("Related to ") == 2
     assert "Personal list for reader" in text and "Landing ordering for team" in text
-    assert f"The index is in {tmp_path / 'index'}" in text
-    index = load_index(tmp_path / "index")
+    assert f"The index is in {folder / 'index'}" in text
+    index = load_index(folder / "index")
     assert index.manifest.counts["precomputed"] == index.size
