@@ -149,6 +149,7 @@ class IndexResponse(BaseModel):
                     "store": "wiki.db",
                     "precompute": {"method": "power", "view_share": None, "pages": "all"},
                     "configuration": {"damping": 0.85, "lift": 0.5, "navigation_weight": 0.3},
+                    "serving": {"vector_epsilon": 1e-4, "configured": 1e-6, "readers": 64},
                     "versions": {"rankrec": "0.1.0"},
                 }
             ]
@@ -167,6 +168,11 @@ class IndexResponse(BaseModel):
     store: str
     precompute: dict
     configuration: dict
+    serving: dict = Field(
+        default_factory=dict,
+        description="settings the build measured for serving: the push threshold of personal lists "
+        "(vector_epsilon), the configured one, and the sampled readers it was checked on",
+    )
     versions: dict
 
 

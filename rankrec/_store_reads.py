@@ -168,13 +168,14 @@ class StoreReads:
     ) -> Iterator[tuple[np.ndarray, list[str]]]:
         """Row ids (ascending) and ``field`` of the present pages that have text, ``batch`` pages at a time.
 
-        ``field`` is ``"text"`` (the main text, decompressed) or ``"headings"``. Archived pages are
+        ``field`` is ``"text"`` (the main text, decompressed), ``"headings"`` or ``"sha256"`` (the hex
+        digest of the main text's UTF-8, read without decompressing it). Archived pages are
         included, as in :meth:`page_texts_by_row`. A generator that holds one batch: a large wiki's
         text is read without holding all of it. Iterate it inside one
         :meth:`~rankrec.store.Store.reading` block, with the store open, for one snapshot.
         """
-        if field not in ("text", "headings"):
-            raise ValueError(f"field must be 'text' or 'headings'; got {field!r}")
+        if field not in ("text", "headings", "sha256"):
+            raise ValueError(f"field must be 'text', 'headings' or 'sha256'; got {field!r}")
         if isinstance(batch, bool) or not isinstance(batch, int) or batch < 1:
             raise ValueError(f"batch must be a positive integer; got {batch!r}")
         if not self._has_text_tables():

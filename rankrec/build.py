@@ -11,7 +11,9 @@ same :func:`build_from_evidence`, so what is evaluated is what is served. The st
    consecutive views of one reader at most ``session_gap_seconds`` apart);
 2. global PageRank; 3. the basis (topic and hub vectors); 4. team vectors (teams with at least
    ``team_min_readers`` distinct active readers); 5. every chosen page's related candidates
-   (:mod:`rankrec.recommend.candidates`); 6. the files (:mod:`rankrec.index`), published atomically.
+   (:mod:`rankrec.recommend.candidates`); 6. the files (:mod:`rankrec.index`); 7. the push threshold
+   personal lists are served with, measured on the staged index (:mod:`rankrec.recommend.calibrate`);
+   the folder is then published atomically.
 """
 
 from __future__ import annotations
@@ -34,22 +36,23 @@ from .configuration import Configuration
 from .errors import GroupTooSmall
 from .evidence import Evidence, read_evidence
 from .graph import blend_navigation, chrome_pairs, content_matrix, dense_numbers, navigation_counts
-from .index import PAGES_READ, READING, IndexManifest, write_tables
+from .index import PAGES_READ, READING, IndexManifest, load_index, write_tables
 from .pagerank import personalised_pagerank, prepare
 from .profiles import SECONDS_PER_DAY, reader_profiles, team_restart
 from .progress import Progress, report
 from .ranker.covisits import covisited_pages, page_reading, session_successors
 from .ranker.features import Signals
+from .recommend.calibrate import calibrate_vector_epsilon, sample_readers
 from .recommend.candidates import DEFAULT_K_RELATED, seed_vectors, write_related
+from .reuse import text_step
 from .store import Store, read_store_id
-from .text import save_text_neighbours
 
 EXACT_LIMIT = 5_000  # method "auto": block power iteration up to this many pages, push above
 # site hubs (common practice: round thresholds): linked from a fifth of all pages, or from a twentieth
 # with mostly chrome links
 HUB_SHARE, CHROME_HUB_SHARE = 0.2, 0.05
 INDEX_MIN_LINKS = 20  # fewest targets of an index page (common practice: a small wiki's hub pages differ)
-STAGES = ("graph", "global", "basis", "teams", "text", "ranker", "related")  # the manifest's seconds
+STAGES = ("graph", "global", "basis", "teams", "text", "ranker", "related", "calibrate")  # manifest seconds
 
 
 def chrome_only(evidence: Evidence) -> sp.csr_matrix | None:
@@ -265,6 +268,7 @@ def build_from_evidence(
     workers: int = 1,
     cluster=None,
     settings_source: dict | None = None,
+    reuse: bool = True,
     progress: Progress | None = None,
 ) -> Path:
     """Compute every part of an index from ``evidence`` with ``configuration`` (None: the defaults);
@@ -294,6 +298,10 @@ def build_from_evidence(
         be on storage they all mount at the same path. The power iteration (small wikis) runs here.
     settings_source : dict, optional
         Where the configuration came from (recorded in the manifest).
+    reuse : bool
+        Take over the parts of the index at ``target`` (the one this build replaces) whose inputs have
+        not changed, instead of computing them again: today the text neighbours, when the text digest
+        (:meth:`Evidence.text_digest`) is the one its manifest records. False: compute everything.
     progress : callable, optional
         ``progress(step, done, total)``.
 
@@ -333,13 +341,12 @@ def build_from_evidence(
         # Each part is written into the staging folder as soon as it is computed and then let go, so
         # the peak is the evidence and one stage's work, not every part at once; text comes first,
         # its vectoriser being the largest stage (the neighbour lists it keeps are small).
-        text = None
+        text, text_summary = None, {}
         if evidence.has_text and (configuration.text_weight > 0 or configuration.ranker != "none"):
             with _timed(seconds, "text"):
-                text = evidence.text_neighbours(
-                    configuration.title_weight, progress=progress, workers=workers
+                text, text_summary = text_step(
+                    evidence, configuration, staging, Path(target) if reuse else None, progress, workers
                 )
-            save_text_neighbours(text, staging / "text")
         with _timed(seconds, "graph"):
             adjacency, navigation = navigation_matrix(evidence, configuration)
             transition = prepare(adjacency)
@@ -431,8 +438,16 @@ def build_from_evidence(
             },
             seconds={key: round(value, 3) for key, value in seconds.items()},
             ranker=ranker_summary,
+            text=text_summary,
         )
         manifest.write(staging)
+        with _timed(seconds, "calibrate"):  # through the serving code, so on the staged index itself
+            calibration = calibrate_vector_epsilon(
+                load_index(staging), sample_readers(evidence, configuration)
+            )
+        report(progress, "push threshold", 1, 1)
+        seconds_taken = {key: round(value, 3) for key, value in seconds.items()}
+        replace(manifest, serving=calibration.to_dict(), seconds=seconds_taken).write(staging)
 
     return publish_folder(Path(target), write)
 

@@ -14,6 +14,7 @@ have changed: read the evidence again).
 
 from __future__ import annotations
 
+import hashlib
 import itertools
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -178,6 +179,25 @@ class Evidence:
         if isinstance(self.bodies, StoredText):
             return self.bodies.pages_with_text
         return sum(map(bool, self.bodies))
+
+    def text_digest(self, title_weight: float) -> str | None:
+        """SHA-256 (hex) of everything :meth:`text_neighbours` reads: the pages in order, each page's
+        headings and the SHA-256 of its text (the store keeps it: the text is not read), the title
+        weight and the text method's version; None without text. Equal digests, equal neighbours."""
+        if self.bodies is None:
+            return None
+        from . import __version__
+        from .text import FORMAT_VERSION, METHOD_VERSION
+
+        head = f"rankrec {__version__} text {FORMAT_VERSION}.{METHOD_VERSION} title weight {title_weight!r}"
+        digest = hashlib.sha256(f"{head} pages {self.size}\0".encode())
+        if isinstance(self.bodies, StoredText):
+            shas = replace(self.bodies, field="sha256")
+        else:
+            shas = (hashlib.sha256(body.encode("utf-8")).hexdigest() if body else "" for body in self.bodies)
+        for page, headings, sha in zip(self.graph.pages.tolist(), self.headings, shas, strict=True):
+            digest.update(f"{page}\0{headings}\0{sha}\0".encode("utf-8", "surrogatepass"))
+        return digest.hexdigest()
 
     def text_neighbours(self, title_weight: float, progress=None, workers: int = 1):
         """The pages' text neighbours (:func:`rankrec.text.text_neighbours`), once per title weight

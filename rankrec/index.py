@@ -72,6 +72,8 @@ class IndexManifest:
     seconds: dict
     ranker: dict = field(default_factory=dict)  # the learnt ranker's training summary ({}: none)
     store_id: str | None = None  # the id of the store built from (rankrec.store; None: older index or store)
+    serving: dict = field(default_factory=dict)  # measured serving settings (rankrec.recommend.calibrate)
+    text: dict = field(default_factory=dict)  # the text's digest, and the index its neighbours came from
     created: str = field(default_factory=lambda: datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"))
     versions: dict = field(default_factory=lambda: {**_versions(), "scikit-learn": _sklearn_version()})
     format_version: int = INDEX_FORMAT
@@ -258,6 +260,12 @@ class Index(PageIds):
     def configuration(self) -> Configuration:
         """The configuration the index was built with (every list is served with it)."""
         return Configuration.from_dict(self.manifest.configuration)
+
+    @property
+    def vector_epsilon(self) -> float:
+        """The push threshold of personal and team vectors: the one the build measured
+        (:mod:`rankrec.recommend.calibrate`), else the configuration's ``vector_epsilon``."""
+        return float(self.manifest.serving.get("vector_epsilon", self.configuration.vector_epsilon))
 
     def seed_vector(self, number: int) -> np.ndarray:
         """The full personalised PageRank vector of one page by forward push (dense, sums to one;

@@ -77,6 +77,13 @@ def register(commands) -> None:
         "(auto, the default: LightGBM or a linear model, the simpler unless the other is clearly better) "
         "or by the PageRank and text mix (none)",
     )
+    build.add_argument(
+        "--full",
+        action="store_true",
+        help="compute every part afresh; by default a part whose inputs have not changed since the index "
+        "being replaced was built is taken over from it (today: the text neighbours, when no page's text "
+        "changed)",
+    )
     build.add_argument("--workers", type=worker_count, default=1, metavar="N", help="processes (default 1)")
     add_cluster_option(build, "the related lists' blocks of pages (wikis above 5,000 pages)")
     build.set_defaults(run=_cmd_build)
@@ -212,6 +219,7 @@ def _cmd_build(args: argparse.Namespace) -> int:
             workers=args.workers,
             cluster=args.cluster,
             settings_source=source,
+            reuse=not args.full,
             progress=progress,
         )
     index = load_index(args.index)
@@ -222,8 +230,27 @@ def _cmd_build(args: argparse.Namespace) -> int:
     )
     print_mapping({**manifest.counts, "seconds": manifest.seconds}, "table")
     print(_ranker_line(manifest.ranker))
+    print(_threshold_line(manifest.serving))
+    if manifest.text.get("reused_from"):
+        print("text neighbours: taken over from the replaced index (no text changed; --full recounts)")
     print(f"index written to {args.index}, serving with {shown}")
     return 0
+
+
+def _threshold_line(serving: dict) -> str:
+    """The push threshold personal lists are served with, and the measurement that chose it."""
+    if not serving.get("readers"):
+        return "personal lists: push threshold as configured (no readers to measure a coarser one on)"
+    chosen, configured = serving["vector_epsilon"], serving["configured"]
+    if chosen == configured:
+        return (
+            f"personal lists: push threshold {configured:g} as configured (no coarser one gave "
+            f"{serving['readers']} sampled readers the same lists)"
+        )
+    return (
+        f"personal lists: push threshold {chosen:g} (configured {configured:g}; the same lists for "
+        f"{serving['readers']} sampled readers)"
+    )
 
 
 def _ranker_line(ranker: dict) -> str:

@@ -42,6 +42,9 @@ __all__ += ["similarity_of", "text_neighbours"]
 
 _FILES = "text_neighbours"
 FORMAT_VERSION = 1
+# Raise when the same text would give other neighbours (tokens, weights, settings): a build then recounts
+# instead of reusing the neighbours of the index it replaces (rankrec.evidence.Evidence.text_digest).
+METHOD_VERSION = 1
 
 
 @dataclass(frozen=True)

@@ -102,8 +102,11 @@ def test_text_batches_come_in_row_order_and_match_the_reads_by_row(store):
         assert [text for _, found in parts for text in found] == texts
     assert [text for _, found in store.page_text_batches("headings") for text in found] == headings
     assert len(texts) == 4  # c has no text, and the ghost is not present
-    with pytest.raises(ValueError, match="field must be 'text' or 'headings'"):
-        next(store.page_text_batches("sha256"))
+    # the stored digests are hashlib's SHA-256 of each text's UTF-8
+    digests = [digest for _, found in store.page_text_batches("sha256", batch=2) for digest in found]
+    assert digests == [hashlib.sha256(text.encode("utf-8")).hexdigest() for text in texts]
+    with pytest.raises(ValueError, match="field must be 'text', 'headings' or 'sha256'"):
+        next(store.page_text_batches("title"))
     with pytest.raises(ValueError, match="batch must be a positive integer"):
         next(store.page_text_batches(batch=0))
 

@@ -331,16 +331,16 @@ class _Personal:
 
 def _personal_vector(index: Index, restart: np.ndarray, epsilon: float | None = None) -> _Personal:
     """Personalised PageRank of a restart distribution: the index's basis plus push for the rest
-    (residual threshold ``epsilon``, by default the configuration's ``vector_epsilon``)."""
+    (residual threshold ``epsilon``, by default the index's measured one: ``Index.vector_epsilon``)."""
     if epsilon is None:
-        epsilon = index.configuration.vector_epsilon
+        epsilon = index.vector_epsilon
     check_real("epsilon", epsilon)
     if not 0 < epsilon < 1:
         raise ValueError(f"epsilon must lie in (0, 1); got {epsilon!r}")
     if index.basis is not None:
         found = index.basis.personalised(index.transition, restart, epsilon=epsilon)
         return _Personal(found.vector, found.error_bound)
-    pages = np.flatnonzero(restart)
+    pages = np.flatnonzero(restart != 0)
     result = push(
         index.transition,
         dict(zip(pages.tolist(), restart[pages].tolist(), strict=True)),

@@ -315,6 +315,7 @@ def test_index_manifest_names_no_path(client, reader, demo):
     body = client.get("/v1/index", headers=reader).json()
     manifest = json.loads((demo["index"] / "manifest.json").read_text())
     assert body["fingerprint"] == manifest["fingerprint"] and body["counts"] == manifest["counts"]
+    assert body["serving"] == manifest["serving"] and body["serving"]["vector_epsilon"] > 0
     assert body["store"] == "wiki.db" and str(demo["folder"]) not in json.dumps(body)
     assert body["index"] == demo["index"].resolve().name
 
