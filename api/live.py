@@ -4,7 +4,8 @@
 (:mod:`rankrec._atomic`). :class:`LiveIndex` remembers the real folder it loaded; a watcher
 thread (every ``watch_seconds``) or ``POST /v1/index/reload`` notices when the link points
 elsewhere (or the manifest changed), loads the new index beside the old one, checks it (readable,
-this rankrec's format, built from the store being served) and switches with one reference
+this rankrec's format, built from the store being served), warms it up (one list of each kind:
+:func:`rankrec.recommend.warm.warm_up`) and switches with one reference
 assignment. A request holds the :class:`Loaded` it started with, so in-flight requests finish on
 the old index. A refused index is logged and the old one keeps serving.
 """
@@ -17,8 +18,9 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from rankrec.errors import RankrecError
+from rankrec.errors import InputError, RankrecError
 from rankrec.index import Index, load_index
+from rankrec.recommend.warm import warm_up
 from rankrec.store import Store
 
 log = logging.getLogger("rankrec.api")
@@ -79,6 +81,13 @@ class LiveIndex:
         wiki = self.wiki or Path(index.manifest.store)
         with Store(wiki, create=False) as store:
             index.check_current(store)
+        try:  # before the swap: no request pays for the first lists' loading
+            seconds = warm_up(index)
+        except RankrecError:
+            raise
+        except Exception as error:  # damaged arrays fail in many ways: the index cannot answer
+            raise InputError(str(folder), None, f"the index cannot answer a list: {error!r}") from None
+        log.info("index at %s warmed up in %.2f s", folder.name, seconds)
         return Loaded(index=index, folder=folder, stamp=stamp, loaded_at=time.time(), wiki=wiki)
 
     def reload(self, *, force: bool = False, retry: bool = False) -> ReloadOutcome:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 import json
 import tempfile
@@ -494,3 +495,17 @@ def test_sparse_lookup_through_a_workspace_equals_the_search_and_leaves_it_clean
     workspace = transition.borrow_workspace()
     assert not any(np.any(array) for array in workspace)
     transition.return_workspace(workspace)
+
+
+def test_warm_up_asks_for_one_list_of_each_kind(wiki, monkeypatch):
+    from rankrec.recommend import warm
+
+    _, _, index = wiki
+    asked = []
+    for name in ("related", "recommend", "landing"):
+        original = getattr(warm, name)
+        monkeypatch.setattr(warm, name, lambda *a, _o=original, _n=name, **k: asked.append(_n) or _o(*a, **k))
+    assert warm.warm_up(index) > 0 and asked == ["related", "recommend", "landing"] and index.team_names
+    asked.clear()
+    warm.warm_up(dataclasses.replace(index, team_names=()))  # no stored team vector: no landing
+    assert asked == ["related", "recommend"]

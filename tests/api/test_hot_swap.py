@@ -15,6 +15,7 @@ from pathlib import Path
 from urllib.parse import quote
 
 import httpx
+import numpy as np
 
 from api.app import create_app
 from rankrec._atomic import publish_folder
@@ -109,6 +110,8 @@ def test_corrupt_stale_and_incomplete_indexes_are_refused_and_the_old_one_keeps_
         "other graph": lambda staging, manifest: manifest.update(
             {"fingerprint": "0" * 16, "store_import": -1}
         ),
+        # loads (arrays are read when used), but no list can be made from it: the warm-up finds out
+        "cannot answer": lambda staging, manifest: np.save(staging / "related_row.npy", np.full(2, 7)),
     }
     reasons = {}
     for name, edit in defects.items():
@@ -124,6 +127,7 @@ def test_corrupt_stale_and_incomplete_indexes_are_refused_and_the_old_one_keeps_
         assert answer.json()["index"] == first != refused
     assert "format 99" in reasons["future format"] and "stale" in reasons["other graph"]
     assert "readable" in reasons["not json"] and "readable" in reasons["missing array"]
+    assert "cannot answer a list" in reasons["cannot answer"]
     good = _publish(private_copy, source)
     assert client.post("/v1/index/reload", headers=admin).json() == {
         "outcome": "swapped",

@@ -10,7 +10,8 @@ page text) and imports it into a fresh store (both timed); ``--wiki`` reuses a s
   seconds of each step (graph, global, basis, teams, text, ranker, related); with
   ``--links-only-too`` also a build of the same store without text (``text_weight`` 0 and no ranker,
   so no text neighbours), and the text step's seconds against that build's wall time;
-- the index's size on disk, and the time to load it (memory-mapped) in this process;
+- the index's size on disk, the time to load it (memory-mapped) in this process and to warm it up
+  (:func:`rankrec.recommend.warm.warm_up`, as the service does before serving an index);
 - median and p99 time of ``related()`` (precomputed pages, pages computed on first request,
   and with a viewer), ``recommend()`` (at the push threshold the build measured: the manifest's
   ``serving``, printed) and ``landing()`` (each team's first call, then a second round), called
@@ -140,6 +141,7 @@ def main(argv: list[str]) -> None:
     from rankrec.errors import GroupTooSmall
     from rankrec.index import load_index
     from rankrec.recommend import landing, reader_from_store, recommend, related, team_from_store
+    from rankrec.recommend.warm import warm_up
     from rankrec.store import Store
 
     with tempfile.TemporaryDirectory(prefix="rankrec-bench-") as scratch:
@@ -162,6 +164,7 @@ def main(argv: list[str]) -> None:
         started = time.perf_counter()
         index = load_index(target)
         load_seconds = time.perf_counter() - started
+        warm_seconds = warm_up(index)  # as the service does before it serves an index
         manifest = index.manifest
         print(
             json.dumps(
@@ -174,6 +177,7 @@ def main(argv: list[str]) -> None:
                     "index_mib": round(size / 2**20, 1),
                     "serving": manifest.serving,
                     "load_seconds": round(load_seconds, 3),
+                    "warm_up_seconds": round(warm_seconds, 3),
                 }
             ),
             flush=True,
