@@ -198,6 +198,11 @@ class Index(PageIds):
         return np.diff(self.page_groups.indptr) == 0
 
     @cached_property
+    def listable(self) -> np.ndarray:
+        """Pages that are not archived (the mask every list starts from; computed once)."""
+        return ~np.asarray(self.archived)
+
+    @cached_property
     def global_order(self) -> np.ndarray:
         """Every page by descending global PageRank, ties to the lower page (computed once, on first use)."""
         return np.lexsort((np.arange(self.size), -np.asarray(self.global_vector, dtype=np.float64)))

@@ -103,7 +103,7 @@ def _eligible(
     linked: bool = False,
     read: np.ndarray | None = None,
 ) -> np.ndarray:
-    mask = visible & ~np.asarray(index.archived)
+    mask = visible & index.listable
     if seed is not None:
         mask[seed] = False
         if linked:
@@ -117,7 +117,7 @@ def _eligible(
 @dataclass(frozen=True)
 class _Audience:
     visible: np.ndarray
-    read: np.ndarray | None = None  # pages the reader has in their profile
+    read: np.ndarray | None = None  # the reader's profile: a page they read weighs more than 0
     read_by: np.ndarray | None = None  # team members who read each page
     readers: int = 0  # the team's distinct active readers
     minimum: int = 5  # the configuration's team_min_readers
@@ -158,7 +158,7 @@ def _reason(index: Index, page: int, kind: int, via: int, space: int, audience: 
     if kind == VIA_PAGE and via >= 0 and audience.visible[via]:
         if via == audience.seed:
             return f"linked from {index.titles[via]}"
-        if audience.read is not None and audience.read[via]:
+        if audience.read is not None and audience.read[via] > 0:
             return f"you read {index.titles[via]}, which links here"
         return f"via {index.titles[via]}"
     if space >= 0:
@@ -246,7 +246,7 @@ def related(
     visible = index.visible(None if reader is None else reader.groups)
     read = reader.recent if (exclude_read and reader is not None) else None
     eligible = _eligible(index, visible, seed=seed, linked=exclude_linked, read=read)
-    audience = _Audience(visible=visible, read=None if reader is None else reader.restart > 0, seed=seed)
+    audience = _Audience(visible=visible, read=None if reader is None else reader.restart, seed=seed)
     if personal_share == 0 and lift == index.configuration.lift:
         found = page_candidates(index, seed)
         ordered = np.flatnonzero(eligible[found["pages"]])
@@ -386,7 +386,7 @@ def recommend(
         restart = None
     chosen = _select(index, personal.vector, eligible, k, lift, per_space)
     explained = _explain_full(index, personal.vector, chosen, restart)
-    audience = _Audience(visible=visible, read=reader.restart > 0, personal=True)
+    audience = _Audience(visible=visible, read=reader.restart, personal=True)
     items = _items(index, chosen, personal.vector[chosen], lift, explained, audience)
     return Recommendations(
         "personal",
