@@ -244,12 +244,12 @@ def _threshold_line(serving: dict) -> str:
     chosen, configured = serving["vector_epsilon"], serving["configured"]
     if chosen == configured:
         return (
-            f"personal lists: push threshold {configured:g} as configured (no coarser one gave "
-            f"{serving['readers']} sampled readers the same lists)"
+            f"personal lists: push threshold {configured:g} as configured (no coarser one listed the "
+            f"same pages for {serving['readers']} sampled readers)"
         )
     return (
-        f"personal lists: push threshold {chosen:g} (configured {configured:g}; the same lists for "
-        f"{serving['readers']} sampled readers)"
+        f"personal lists: push threshold {chosen:g} (configured {configured:g}; it lists the same pages "
+        f"for {serving['readers']} sampled readers)"
     )
 
 

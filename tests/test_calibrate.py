@@ -38,7 +38,7 @@ def _lists(index, readers, epsilon):
     return [[item.page for item in recommend(index, reader, epsilon=epsilon).items] for reader in readers]
 
 
-def test_the_served_threshold_is_the_coarsest_that_leaves_every_sampled_list_unchanged(built):
+def test_the_served_threshold_is_the_coarsest_that_keeps_the_pages_of_every_sampled_list(built):
     # Reference: the definition, recomputed here list by list for every threshold of the ladder.
     _, evidence, configuration, index = built
     readers = sample_readers(evidence, configuration)

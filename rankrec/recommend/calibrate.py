@@ -2,16 +2,19 @@
 
 A reader's vector is the basis combination plus a forward push of the rest of their profile
 (:func:`rankrec.recommend.lists.recommend`), and the push's work grows as ``1/ε``. The configuration's
-``vector_epsilon`` is the accuracy asked for. A coarser threshold often gives the same lists: on the
-1,000,000-page synthetic wiki, 60 readers' top-10 lists at ε 1e-4 and 1e-5 were their lists at 1e-7, item
-for item, at a sixth and a quarter of the time of 1e-6; on Wikispeedia (4,600 pages) 1e-5 already changed
-one item in a hundred. So no one threshold suits every wiki, and the build measures it
+``vector_epsilon`` is the accuracy asked for. A coarser threshold often lists the same pages: on the
+1,000,000-page synthetic wiki, 60 readers' top-10 lists at ε 1e-4 and 1e-5 held the pages of their lists
+at 1e-7, at a sixth and a quarter of the time of 1e-6; on Wikispeedia (4,600 pages) 1e-5 already changed
+one page in a hundred. So no one threshold suits every wiki, and the build measures it
 (:func:`calibrate_vector_epsilon`): the served threshold is the coarsest of ``vector_epsilon × LADDER``
-that gives a seeded sample of the evidence's own readers the same lists as ``vector_epsilon`` does,
-through the serving function itself (``AGREEMENT``: every item of every list). A sample cannot prove
-that for every reader; the manifest records the choice, the sample's size and every agreement measured
-(``serving``), ``Index.vector_epsilon`` serves it, and an evaluation's builds calibrate the same way, so
-the evaluated lists are the served ones. Each result's ``error_bound`` is that of the served threshold.
+that gives a seeded sample of the evidence's own readers lists of the same pages as ``vector_epsilon``
+does, through the serving function itself (``AGREEMENT``: every page of every list). The order within a
+list may differ where two pages' scores are closer than either threshold can tell apart: at 1M pages,
+even 3e-6 against 1e-6 swapped neighbours in 2 of 64 lists, so asking for the same order would never
+coarsen. A sample cannot prove the same pages for every reader; the manifest records the choice, the
+sample's size and every agreement measured (``serving``), ``Index.vector_epsilon`` serves it, and an
+evaluation's builds calibrate the same way, so the evaluated lists are the served ones. Each result's
+``error_bound`` is that of the served threshold.
 """
 
 from __future__ import annotations
@@ -30,9 +33,10 @@ from .lists import recommend
 
 LADDER = (100.0, 30.0, 10.0, 3.0)  # coarsest first; the configured threshold is the fallback
 COARSEST = 1e-3  # a push threshold above this leaves most of a vector unpushed (common practice: 1e-4..1e-7)
-AGREEMENT = 1.0  # share of the reference lists' items a coarser threshold must keep: all of them
+AGREEMENT = 1.0  # share of the reference lists' pages a coarser threshold's lists must hold: all
 SAMPLE = 64  # readers measured (seeded); a wiki with fewer calibrates on all of them
-LIST_LENGTH = 10  # the personal list's default length (rankrec.recommend.recommend)
+LIST_LENGTH = 10  # the personal list's default length (rankrec.recommend.recommend); longer lists
+# are not measured, and may differ further down
 
 
 @dataclass(frozen=True)
