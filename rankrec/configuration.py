@@ -87,7 +87,7 @@ class Configuration:
         when set, the ranker learns from those blocks first (:mod:`rankrec.ranker.training`).
     hub_free_top : int >= 0
         The first places of a related list that no site hub or chrome page takes while another
-        candidate can (:func:`rankrec.build.site_hubs`: pages linked from a fifth of all pages, or
+        candidate can (:func:`rankrec.derive.site_hubs`: pages linked from a fifth of all pages, or
         mostly from page chrome, and index pages linking to a fifth of them); hubs move down, not
         out (0: no rule).
     """

@@ -126,7 +126,7 @@ def dense_numbers(row_ids: np.ndarray, wanted: np.ndarray) -> np.ndarray:
 def load_graph(store: Store) -> WikiGraph:
     """The link graph of the pages the store holds (links between present pages only).
 
-    Observed navigation is blended in by the build (:func:`rankrec.build.navigation_matrix`, with
+    Observed navigation is blended in by the build (:func:`rankrec.derive.navigation_matrix`, with
     :func:`navigation_counts` and :func:`blend_navigation`), from the configuration's settings.
     """
     row_ids, pages = store.present_pages()

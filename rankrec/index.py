@@ -176,7 +176,7 @@ class Index(PageIds):
     related: dict
     team_names: tuple[str, ...]
     team_vectors: np.ndarray
-    hubs: np.ndarray | None = None  # site hubs and chrome pages (rankrec.build.site_hubs)
+    hubs: np.ndarray | None = None  # site hubs and chrome pages (rankrec.derive.site_hubs)
     text: TextNeighbours | None = None  # each page's text neighbours (rankrec.text), when pages had text
     ranker: Ranker | None = None  # the learnt related-list ranker (rankrec.ranker), when one was trained
     cache: dict = field(default_factory=dict, repr=False)  # candidates made on first request

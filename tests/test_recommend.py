@@ -414,7 +414,7 @@ def test_landing_reasons_never_give_exact_or_whole_team_counts(wiki):
 
 
 def test_site_hubs_move_below_the_first_places_of_a_related_list(tmp_path):
-    # a page linked from every other page is a site hub (rankrec.build.site_hubs); with lift 0 and no text,
+    # a page linked from every other page is a site hub (rankrec.derive.site_hubs); with lift 0 and no text,
     # a related list is the exact personalised PageRank order (checked against solve_exact above), so
     # with hub_free_top 3 it must be that order with the hub moved to the fourth place
     path = make_wiki(tmp_path / "wiki.db", pages=40, seed=3, density=0.08, groups=0, archived=0.0)
@@ -450,7 +450,7 @@ def test_index_pages_are_site_hubs_but_small_wikis_keep_their_hub_pages():
     import networkx as nx
     import scipy.sparse as sp
 
-    from rankrec.build import INDEX_MIN_LINKS, site_hubs
+    from rankrec.derive import INDEX_MIN_LINKS, site_hubs
 
     rng = np.random.default_rng(4)
     size = 200

@@ -1,7 +1,7 @@
 """Share of served related lists with a hub or chrome page in their top 3, over every page of an index.
 
 A hub is what ``rankrec evaluate`` counts in its "lists with a hub in their top 3" figure and what
-serving keeps out of a list's first places (:func:`rankrec.build.site_hubs`, stored in the index): a page
+serving keeps out of a list's first places (:func:`rankrec.derive.site_hubs`, stored in the index): a page
 linked from a fifth of all pages, or from a twentieth with mostly page-chrome links, or a general index
 or contents page linking to a fifth of them. The lists are those
 the index serves a public viewer (:func:`rankrec.recommend.related`)::

@@ -11,8 +11,9 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
-from ..build import Evidence, chrome_in_share, read_evidence, site_hubs
+from ..derive import chrome_in_share, site_hubs
 from ..errors import InputError
+from ..evidence import Evidence, read_evidence
 from ..store import Store
 
 
@@ -44,7 +45,7 @@ class EvaluationData:
 
     @cached_property
     def hubs(self) -> np.ndarray:
-        """Site hubs and chrome pages (:func:`rankrec.build.site_hubs`, what serving keeps out of the
+        """Site hubs and chrome pages (:func:`rankrec.derive.site_hubs`, what serving keeps out of the
         first ``hub_free_top`` places of a related list), for the ``hub_in_top_3`` figure."""
         chrome = chrome_in_share(self.evidence) if self.evidence is not None else np.zeros(self.size)
         return site_hubs(self.adjacency, chrome)

@@ -23,8 +23,8 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from .._validation import check_choice, check_count, check_fraction, check_positive
-from ..build import chrome_only
 from ..configuration import Configuration
+from ..derive import chrome_only
 from ..errors import CutoffOutsideSpan, InputError, NothingToEvaluate
 from ..progress import Progress
 from .baselines import (

@@ -227,7 +227,7 @@ def _session_windows(evidence, queries: int, seed: int, gap: float) -> list:
 
 def _link_labels(evidence, queries: int, seed: int):
     """(split, evidence without the hidden links, summary): held-out links as labels."""
-    from ..build import chrome_only  # the build's own chrome judgement
+    from ..derive import chrome_only  # the build's own chrome judgement
 
     split = held_out_links_split(
         evidence.graph.adjacency,

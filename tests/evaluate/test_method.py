@@ -11,11 +11,12 @@ import scipy.sparse as sp
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rankrec.build import Evidence, navigation_matrix
 from rankrec.configuration import Configuration
+from rankrec.derive import navigation_matrix
 from rankrec.evaluate.baselines import check_recommendations
 from rankrec.evaluate.method import PersonalisedPageRank, query_readers, rankrec_lists, training_evidence
 from rankrec.evaluate.splits import excluded_pages, session_split, temporal_split
+from rankrec.evidence import Evidence
 from rankrec.graph import blend_navigation
 from rankrec.profiles import SECONDS_PER_DAY, profile_matrix
 from rankrec.recommend.select import select_pages
