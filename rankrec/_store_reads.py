@@ -121,6 +121,12 @@ class StoreReads:
             "SELECT page_id, name FROM page_groups JOIN pages ON pages.id = page_id WHERE present = 1"
         ).fetchall()
 
+    def page_tag_pairs(self) -> list[tuple[int, str]]:
+        """``(page row id, tag)`` for every tag of every present page (any order)."""
+        return self.connection.execute(
+            "SELECT page_id, tag FROM page_tags JOIN pages ON pages.id = page_id WHERE present = 1"
+        ).fetchall()
+
     def topic_pairs(self, kind: str) -> list[tuple[str, int]]:
         """``(space or tag, page row id)`` of present pages that are not archived (any order).
 

@@ -74,6 +74,7 @@ def _signals(evidence: Evidence, configuration: Configuration, text, chrome_shar
         text,
         reading_neighbours(evidence, configuration),
         pages_read(evidence, configuration),
+        tags=evidence.tag_incidence,
     )
     return signals, transition
 

@@ -109,6 +109,8 @@ class Evidence:
     headings: Sequence[str] | None = None  # a list, or StoredText for a store on disk
     bodies: Sequence[str] | None = None
     notes: tuple[str, ...] = field(default=())
+    tag_incidence: sp.csr_array | None = None  # pages × tags (int8), None when no page has a tag
+    tag_names: list[str] = field(default_factory=list)
     # text neighbours by title weight: the text does not change with the views or links a split keeps,
     # so the copies made by with_views/with_links share them (an evaluation builds many indexes)
     _text: dict = field(default_factory=dict, repr=False, compare=False)
@@ -250,6 +252,9 @@ def read_evidence(store: Store, *, topics: str = "spaces") -> Evidence:
         pairs = store.page_group_pairs()
         grouped = dense_numbers(graph.row_ids, np.array([row[0] for row in pairs], dtype=np.int64))
         incidence, group_names = _group_tables(graph.size, grouped, [row[1] for row in pairs])
+        tag_pairs = store.page_tag_pairs()
+        tagged = dense_numbers(graph.row_ids, np.array([row[0] for row in tag_pairs], dtype=np.int64))
+        tag_incidence, tag_names = _group_tables(graph.size, tagged, [row[1] for row in tag_pairs])
         users, viewed, times = store.view_arrays()
         teams: dict[str, list[int]] = {}
         for user, name in store.memberships("team"):
@@ -279,6 +284,8 @@ def read_evidence(store: Store, *, topics: str = "spaces") -> Evidence:
         places=places,
         headings=headings,
         bodies=bodies,
+        tag_incidence=tag_incidence if tag_names else None,
+        tag_names=tag_names,
     )
 
 

@@ -6,7 +6,8 @@ related, personal and landing lists (built by :mod:`rankrec.build`).
   and store id), what was precomputed;
 - the page table: ``pages.*`` and ``titles.*`` (UTF-8 blob + offsets), ``page_order.npy``
   (pages sorted, for lookups), ``row_ids.npy``, ``archived.npy``, ``space.npy`` (codes), ``views.npy``,
-  ``page_groups.*`` and ``group_pages.*`` (access groups both ways, CSR);
+  ``page_groups.*`` and ``group_pages.*`` (access groups both ways, CSR), ``page_tags.*`` (pages × tags,
+  CSR; only when some page has a tag);
 - the transition ``forward.*`` (``P``, links blended with navigation) and ``backward.*`` (``Pᵀ``) as CSR
   arrays, ``dangling.npy``, ``out_degree.npy``, ``out_weight.npy``;
 - ``global.npy``: global PageRank; ``basis/``: topic and hub vectors (:func:`rankrec.basis.save_basis`);
@@ -121,7 +122,9 @@ def write_tables(
     for name in ("dangling", "out_degree", "out_weight"):
         np.save(folder / f"{name}.npy", getattr(transition, name))
     np.save(folder / "global.npy", global_vector)
-    names = {"spaces": evidence.space_names, "groups": evidence.group_names}
+    names = {"spaces": evidence.space_names, "groups": evidence.group_names, "tags": evidence.tag_names}
+    if evidence.tag_incidence is not None:
+        save_csr(folder, "page_tags", evidence.tag_incidence)
     (folder / "names.json").write_text(json.dumps(names, ensure_ascii=False) + "\n")
     np.save(folder / "team_vectors.npy", team_vectors)
     (folder / "teams.json").write_text(json.dumps(team_names, ensure_ascii=False) + "\n")
@@ -131,6 +134,8 @@ def index_signals(folder: Path, transition, global_vector, space, views, archive
     """The ranker's :class:`~rankrec.ranker.features.Signals` over the arrays of an index folder."""
     chrome = load_array(folder, "chrome_in_share")
     size = int(np.asarray(archived).size)
+    tag_names = json.loads((folder / "names.json").read_text()).get("tags", [])
+    tags = load_csr(folder, "page_tags", (size, len(tag_names))) if tag_names else None
     reading = tuple(
         load_csr(folder, name, (size, size)) if (folder / f"{name}.data.npy").exists() else None
         for name in READING
@@ -138,7 +143,9 @@ def index_signals(folder: Path, transition, global_vector, space, views, archive
     pages_read = tuple(
         load_array(folder, name) if (folder / f"{name}.npy").exists() else None for name in PAGES_READ
     )
-    return Signals.of(transition, global_vector, space, views, archived, chrome, text, reading, pages_read)
+    return Signals.of(
+        transition, global_vector, space, views, archived, chrome, text, reading, pages_read, tags=tags
+    )
 
 
 def load_transition(folder: Path, size: int) -> Transition:

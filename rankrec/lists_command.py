@@ -242,14 +242,15 @@ def _threshold_line(serving: dict) -> str:
     if not serving.get("readers"):
         return "personal lists: push threshold as configured (no readers to measure a coarser one on)"
     chosen, configured = serving["vector_epsilon"], serving["configured"]
+    required = serving.get("required", 1.0)  # indexes built before the tolerance asked for every page
     if chosen == configured:
         return (
-            f"personal lists: push threshold {configured:g} as configured (no coarser one listed the "
-            f"same pages for {serving['readers']} sampled readers)"
+            f"personal lists: push threshold {configured:g} as configured (no coarser one kept "
+            f"{required:.1%} of the pages of {serving['readers']} sampled readers' lists)"
         )
     return (
-        f"personal lists: push threshold {chosen:g} (configured {configured:g}; it lists the same pages "
-        f"for {serving['readers']} sampled readers)"
+        f"personal lists: push threshold {chosen:g} (configured {configured:g}; its lists for "
+        f"{serving['readers']} sampled readers hold {serving['agreement']:.2%} of the configured one's pages)"
     )
 
 

@@ -143,6 +143,17 @@ def test_page_table_matches_the_store(built):
         assert (index.pages[number], index.titles[number], index.space_of(number)) == (page, title, space)
         assert bool(index.archived[number]) == bool(archived)
         assert index.public[number] == (page not in groups)
+    # the ranker's tag sets (rankrec.ranker.features: shared_tags) are the store's, page by page
+    with Store(folder / "wiki.db") as store:
+        tag_rows = store.connection.execute(
+            "SELECT page, tag FROM page_tags JOIN pages ON id = page_id WHERE present = 1"
+        ).fetchall()
+    tags = index.signals.tags
+    names = json.loads((index.folder / "names.json").read_text())["tags"]
+    expected = {(page, tag) for page, tag in tag_rows}
+    assert expected and tags is not None
+    found = {(index.pages[row], names[column]) for row, column in zip(*tags.nonzero(), strict=True)}
+    assert found == expected
 
 
 def test_global_vector_matches_a_direct_solve(built):

@@ -86,6 +86,29 @@ def test_link_features_match_networkx_counts_and_a_dense_matrix_power():
             )
 
 
+def test_shared_tags_is_the_ochiai_coefficient_of_the_two_tag_sets():
+    # Reference: the Ochiai (1957) coefficient |A ∩ B| / sqrt(|A| |B|) of binary sets, the cosine of their
+    # incidence vectors, counted here with Python sets; 0 when either page has no tag.
+    adjacency, _ = _adjacency(40, 0.12, seed=5)
+    signals, transition = _signals(adjacency)
+    rng = np.random.default_rng(8)
+    tag_sets = [set(rng.choice(6, rng.integers(0, 4), replace=False).tolist()) for _ in range(40)]
+    rows = [page for page, tags in enumerate(tag_sets) for _ in tags]
+    columns = [tag for tags in tag_sets for tag in tags]
+    incidence = sp.csr_array((np.ones(len(rows), dtype=np.int8), (rows, columns)), shape=(40, 6))
+    tagged = replace(signals, tags=incidence)
+    position = FEATURES.index("shared_tags")
+    for seed in range(40):
+        indices, values = _vector(transition, seed)
+        pool = candidate_pool(tagged, seed, indices, values, pool=40)
+        found = pair_features(tagged, seed, pool, indices, values)[:, position]
+        for row, page in enumerate(pool.tolist()):
+            a, b = tag_sets[seed], tag_sets[page]
+            expected = len(a & b) / np.sqrt(len(a) * len(b)) if a and b else 0.0
+            assert found[row] == pytest.approx(expected, rel=1e-6)
+        assert not pair_features(signals, seed, pool, indices, values)[:, position].any()  # no tags: 0
+
+
 @pytest.mark.parametrize("with_history", [True, False], ids=["click-through", "no-history"])
 def test_click_walk_features_are_the_rows_of_a_dense_click_matrix_and_its_square(with_history):
     # reference: the click walk written as a dense row-stochastic numpy matrix, squared by numpy

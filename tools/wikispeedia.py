@@ -4,13 +4,14 @@ Usage (from the project root)::
 
     .venv/bin/python tools/wikispeedia.py --data ../shared/data/wikispeedia --out build/wikispeedia
 
-writes ``pages.csv`` (id, title, space), ``links.tsv`` (source, target) and ``views.csv`` (user, page,
+writes ``pages.csv`` (id, title, space, tags), ``links.tsv`` (source, target) and ``views.csv`` (user, page,
 timestamp) into ``--out`` and imports them with ``rankrec import`` into ``--out/wiki.db`` (made anew).
 
 How the data becomes a wiki (the dataset's format: its SOURCE.md):
 
 - every article is a page; its title is the decoded article name; its space is the top level of its first
-  subject category (``subject.Science.Biology`` -> ``Science``);
+  subject category (``subject.Science.Biology`` -> ``Science``), its tags every level of every subject
+  category (``Science``, ``Science.Biology``);
 - every hyperlink is a link (the few self-links are left out);
 - every unfinished path is one reader's session: the reader is the hashed IP address; each step is a view
   of the page the player is on (a back click ``<`` views the previous page again); steps are 1 ms apart
@@ -39,13 +40,21 @@ def _rows(path: Path, *, header: bool) -> list[list[str]]:
     return [line.split("\t") for line in lines[1 if header else 0 :]]
 
 
-def _spaces(categories: Path) -> dict[str, str]:
+def _categories(categories: Path) -> tuple[dict[str, str], dict[str, list[str]]]:
+    """Each article's space (the top level of its first subject category) and tags (every level of every
+    subject category: ``subject.Science.Biology`` -> ``Science``, ``Science.Biology``)."""
     spaces: dict[str, str] = {}
+    tags: dict[str, list[str]] = {}
     for article, category in _rows(categories, header=True):
-        parts = category.split(".")
-        if len(parts) > 1:
-            spaces.setdefault(article, parts[1])
-    return spaces
+        parts = category.split(".")[1:]
+        if parts:
+            spaces.setdefault(article, parts[0])
+        known = tags.setdefault(article, [])
+        for depth in range(1, len(parts) + 1):
+            tag = ".".join(parts[:depth])
+            if tag not in known:
+                known.append(tag)
+    return spaces, tags
 
 
 def path_views(paths: Path) -> list[tuple[str, str, str]]:
@@ -68,13 +77,19 @@ def write_files(data: Path, out: Path) -> dict[str, Path]:
     """Write the pages, links and views files of the Wikispeedia folder ``data`` into ``out``."""
     out.mkdir(parents=True, exist_ok=True)
     articles = [row[0] for row in _rows(data / "articles.tsv", header=True)]
-    spaces = _spaces(data / "categories.tsv")
+    spaces, tags = _categories(data / "categories.tsv")
     files = {"pages": out / "pages.csv", "edges": out / "links.tsv", "views": out / "views.csv"}
     with files["pages"].open("w", encoding="utf-8", newline="") as handle:
         writer = csv.writer(handle, lineterminator="\n")
-        writer.writerow(["id", "title", "space"])
+        writer.writerow(["id", "title", "space", "tags"])
         writer.writerows(
-            [article, unquote(article).replace("_", " "), spaces.get(article, "")] for article in articles
+            [
+                article,
+                unquote(article).replace("_", " "),
+                spaces.get(article, ""),
+                ";".join(tags.get(article, [])),
+            ]
+            for article in articles
         )
     with files["edges"].open("w", encoding="utf-8") as handle:
         handle.write("source\ttarget\n")

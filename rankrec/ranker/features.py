@@ -48,6 +48,7 @@ FEATURES = (
     "text_similarity",  # TF-IDF cosine (0 when not among the seed's text neighbours)
     "text_rank_log",  # log(1 + its rank among the seed's text neighbours); log(1 + top) when absent
     "same_space",  # 1 when seed and candidate share a space
+    "shared_tags",  # cosine of their tag sets: shared tags / sqrt(seed's tags × candidate's tags)
     "views_log",  # log(1 + its views)
     "in_degree_log",  # log(1 + its in-links)
     "chrome_in_share",  # share of its in-link occurrences that are page chrome
@@ -104,6 +105,7 @@ class Signals:
     # per page, :func:`rankrec.ranker.covisits.page_reading` (None: no history)
     click_through: np.ndarray | None = None
     sessions: np.ndarray | None = None
+    tags: sp.csr_array | None = None  # pages × tags incidence (None: no page has a tag)
 
     @cached_property
     def popular(self) -> np.ndarray:
@@ -131,10 +133,12 @@ class Signals:
         text,
         reading=(None, None),
         pages_read=(None, None),
+        tags=None,
     ) -> Signals:
         """The signals of a transition, its global vector, the page arrays, ``text`` neighbours (None),
         ``reading``: (co-visited pages, session successors), either None, and ``pages_read``:
-        (click-through, sessions) per page (:func:`rankrec.ranker.covisits.page_reading`) or Nones."""
+        (click-through, sessions) per page (:func:`rankrec.ranker.covisits.page_reading`) or Nones,
+        ``tags``: the pages × tags incidence or None."""
         return cls(
             forward=transition.forward,
             backward=transition.backward,
@@ -149,6 +153,7 @@ class Signals:
             successors=reading[1],
             click_through=pages_read[0],
             sessions=pages_read[1],
+            tags=tags,
         )
 
 
@@ -296,6 +301,19 @@ def _neighbour_values(matrix, seed: int, candidates: np.ndarray, top: int):
     return values, ranks
 
 
+def _shared_tags(tags: sp.csr_array, seed: int, candidates: np.ndarray) -> np.ndarray:
+    """Cosine of the seed's and each candidate's tag sets (0 when either has none)."""
+    seed_tags = tags.indices[tags.indptr[seed] : tags.indptr[seed + 1]]
+    if seed_tags.size == 0:
+        return np.zeros(candidates.size)
+    rows = tags[candidates]
+    hit = np.isin(np.asarray(rows.indices), seed_tags)
+    entry_rows = np.repeat(np.arange(candidates.size), np.diff(rows.indptr))
+    shared = np.bincount(entry_rows[hit], minlength=candidates.size)
+    sizes = np.diff(rows.indptr) * seed_tags.size
+    return np.divide(shared, np.sqrt(sizes), out=np.zeros(candidates.size), where=sizes > 0)
+
+
 def pair_features(
     signals: Signals, seed: int, candidates: np.ndarray, indices, values, walk: ClickWalk | None = None
 ) -> np.ndarray:
@@ -341,6 +359,8 @@ def pair_features(
         out[:, column[value]], out[:, column[rank_column]] = _neighbour_values(matrix, seed, candidates, top)
     space = np.asarray(signals.space)
     out[:, column["same_space"]] = (space[candidates] == space[seed]) & (space[seed] >= 0)
+    if signals.tags is not None:
+        out[:, column["shared_tags"]] = _shared_tags(signals.tags, seed, candidates)
     out[:, column["views_log"]] = np.log1p(np.asarray(signals.views)[candidates].astype(np.float64))
     starts = np.asarray(signals.backward.indptr)
     out[:, column["in_degree_log"]] = np.log1p(starts[candidates + 1] - starts[candidates])
