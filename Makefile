@@ -19,9 +19,10 @@ demo: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m ruff check rankrec api tests tools
 	$(BIN)/python -m ruff format --check rankrec api tests tools
-	$(BIN)/python -m pytest --cov --cov-report=term:skip-covered --cov-fail-under=85 rankrec api tests
+	$(BIN)/python -m pytest -m "not heavy" -n 2 --dist loadfile --cov --cov-report=term:skip-covered --cov-fail-under=85 rankrec api tests
 
 bench: $(STAMP)
+	$(BIN)/python -m pytest -m heavy -p no:cacheprovider tests
 	$(BIN)/python -m tests.bench
 
 serve: $(STAMP)

@@ -28,7 +28,7 @@ def _tool():
     return module
 
 
-@pytest.mark.slow
+@pytest.mark.heavy  # about three minutes on 2 cores: `make bench` runs it, `make test` leaves it out
 def test_wikispeedia_next_pages_report(tmp_path, record_property):
     data_folder = require_shared("wikispeedia")
     for name in ("articles.tsv", "categories.tsv", "links.tsv", "paths_unfinished.tsv"):
