@@ -301,16 +301,22 @@ def _neighbour_values(matrix, seed: int, candidates: np.ndarray, top: int):
     return values, ranks
 
 
+def _shared_columns(matrix, rows: np.ndarray, wanted: np.ndarray) -> np.ndarray:
+    """Per row of ``rows``, how many of its positive entries lie in the ``wanted`` columns."""
+    part = matrix[rows]
+    hit = np.isin(np.asarray(part.indices), wanted) & (np.asarray(part.data) > 0)
+    entry_rows = np.repeat(np.arange(rows.size), np.diff(part.indptr))
+    return np.bincount(entry_rows[hit], minlength=rows.size)
+
+
 def _shared_tags(tags: sp.csr_array, seed: int, candidates: np.ndarray) -> np.ndarray:
     """Cosine of the seed's and each candidate's tag sets (0 when either has none)."""
-    seed_tags = tags.indices[tags.indptr[seed] : tags.indptr[seed + 1]]
+    seed_tags, _ = _row(tags, seed)
     if seed_tags.size == 0:
         return np.zeros(candidates.size)
-    rows = tags[candidates]
-    hit = np.isin(np.asarray(rows.indices), seed_tags)
-    entry_rows = np.repeat(np.arange(candidates.size), np.diff(rows.indptr))
-    shared = np.bincount(entry_rows[hit], minlength=candidates.size)
-    sizes = np.diff(rows.indptr) * seed_tags.size
+    shared = _shared_columns(tags, candidates, seed_tags)
+    starts = np.asarray(tags.indptr)
+    sizes = (starts[candidates + 1] - starts[candidates]) * seed_tags.size
     return np.divide(shared, np.sqrt(sizes), out=np.zeros(candidates.size), where=sizes > 0)
 
 
@@ -347,10 +353,7 @@ def pair_features(
         linked, counts = _linked_counts(signals.forward, sources)
         out[:, column["cocitation_log"]] = np.log1p(_lookup(linked, counts, candidates))
     if out_pages.size:  # pages the seed and the candidate both link to
-        rows = signals.forward[candidates]
-        hit = np.isin(np.asarray(rows.indices), out_pages) & (np.asarray(rows.data) > 0)
-        entry_rows = np.repeat(np.arange(m), np.diff(rows.indptr))
-        out[:, column["coupling_log"]] = np.log1p(np.bincount(entry_rows[hit], minlength=m))
+        out[:, column["coupling_log"]] = np.log1p(_shared_columns(signals.forward, candidates, out_pages))
     for matrix, value, rank_column, top in (
         (signals.similar, "text_similarity", "text_rank_log", signals.text_top),
         (signals.covisited, "covisit", "covisit_rank_log", NEIGHBOURS_KEPT),
