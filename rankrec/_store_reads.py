@@ -19,6 +19,7 @@ from collections.abc import Iterator, Sequence
 
 import numpy as np
 
+from ._store_links import Links, stored_links
 from .errors import InputError
 from .sources.records import TEXT_BYTES
 
@@ -44,6 +45,7 @@ class StoreReads:
     connection: sqlite3.Connection
     path: str
     _text_tables: bool
+    _pending_links: object  # rankrec._store_links.PendingLinks, merged by the store's _settle_links
 
     # -- plain queries -------------------------------------------------------------------------
     def scalar(self, sql: str, parameters: tuple = ()):
@@ -70,15 +72,13 @@ class StoreReads:
     def counts(self) -> dict[str, int]:
         """Sizes of the snapshot: pages, links, unresolved links, views, users, teams, groups."""
         with self.reading():
+            links = self._links(("sources", "targets"))
+            present = self._present()
+            resolved = present[links.targets]
             return {
                 "pages": self.scalar("SELECT count(*) FROM pages WHERE present = 1"),
-                "links": self.scalar(
-                    "SELECT count(*) FROM links JOIN pages AS t ON t.id = links.target_id "
-                    "JOIN pages AS s ON s.id = links.source_id WHERE t.present = 1 AND s.present = 1"
-                ),
-                "unresolved_links": self.scalar(
-                    "SELECT count(*) FROM links JOIN pages AS t ON t.id = links.target_id WHERE t.present = 0"
-                ),
+                "links": int(np.count_nonzero(resolved & present[links.sources])),
+                "unresolved_links": int(resolved.size - np.count_nonzero(resolved)),
                 "views": self.scalar("SELECT count(*) FROM views"),
                 "users": self.scalar("SELECT count(*) FROM users"),
                 "teams": self.scalar("SELECT count(DISTINCT name) FROM memberships WHERE kind = 'team'"),
@@ -231,20 +231,44 @@ class StoreReads:
 
     def unresolved_targets(self, limit: int) -> list[tuple[str, int]]:
         """``(page, links)`` of the ``limit`` missing pages most linked to (most first, ties by page)."""
-        return self.connection.execute(
-            "SELECT t.page, count(*) AS n FROM links JOIN pages AS t ON t.id = links.target_id "
-            "WHERE t.present = 0 GROUP BY t.id ORDER BY n DESC, t.page LIMIT ?",
-            (limit,),
-        ).fetchall()
+        return self._most_unresolved("targets", limit)
 
     def pages_with_unresolved_links(self, limit: int) -> list[tuple[str, int]]:
         """``(page, links)`` of the ``limit`` pages with the most links to missing pages (ties by page)."""
-        return self.connection.execute(
-            "SELECT s.page, count(*) AS n FROM links JOIN pages AS t ON t.id = links.target_id "
-            "JOIN pages AS s ON s.id = links.source_id WHERE t.present = 0 "
-            "GROUP BY s.id ORDER BY n DESC, s.page LIMIT ?",
-            (limit,),
-        ).fetchall()
+        return self._most_unresolved("sources", limit)
+
+    def _most_unresolved(self, end: str, limit: int) -> list[tuple[str, int]]:
+        """``(page, links to missing pages)`` of the ``limit`` pages at the ``end`` ("sources" or
+        "targets") of the most such links, most first, ties by page id."""
+        with self.reading():
+            links = self._links(("sources", "targets"))
+            missing = ~self._present()[links.targets]
+            rows, counts = np.unique(getattr(links, end)[missing], return_counts=True)
+            names = self._page_values(rows, "page")
+        ranked = sorted(zip(names, counts.tolist(), strict=True), key=lambda pair: (-pair[1], pair[0]))
+        return ranked[: max(int(limit), 0)]
+
+    def _page_values(self, rows: np.ndarray, column: str) -> list:
+        """``column`` (a constant name: ``page``, ``origin``) of the page ``rows``, in their order."""
+        found: dict[int, object] = {}
+        for chunk, marks in _chunks(rows.tolist()):
+            sql = f"SELECT id, {column} FROM pages WHERE id IN ({marks})"
+            found.update(self.connection.execute(sql, chunk))
+        return [found[int(row)] for row in rows]
+
+    def _present(self) -> np.ndarray:
+        """Whether each page row id (0 to the largest) is a present page."""
+        top = self.scalar("SELECT coalesce(max(id), 0) FROM pages")
+        present = np.zeros(top + 1, dtype=bool)
+        present[self.present_pages()[0]] = True
+        return present
+
+    def _links(self, names: tuple[str, ...]) -> Links:
+        """Every stored link, the ``names`` columns of :class:`~rankrec._store_links.Links` filled (the
+        link writes of a write transaction merged in first)."""
+        if self._pending_links:
+            self._settle_links()
+        return stored_links(self.connection, names, self.path)
 
     def most_viewed_public_pages(self) -> list[tuple[str, str | None]]:
         """``(page, space)`` of viewed pages that are neither archived nor in an access group.
@@ -261,15 +285,25 @@ class StoreReads:
     def link_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Row ids of source and target, and weight, of every link between present pages."""
         with self.reading():
-            count = self.scalar("SELECT count(*) FROM links")
-            table = self._columns("SELECT source_id, target_id, weight FROM links", count, 3)
-            top = self.scalar("SELECT coalesce(max(id), 0) FROM pages")
-            present_ids = self.present_pages()[0]
-        sources, targets = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64)
-        present = np.zeros(top + 1, dtype=bool)
-        present[present_ids] = True
-        keep = present[sources] & present[targets]
-        return sources[keep], targets[keep], table[keep, 2]
+            links = self._links(("sources", "targets", "weights"))
+            present = self._present()
+        keep = present[links.sources] & present[links.targets]
+        sources, targets = links.sources[keep].astype(np.int64), links.targets[keep].astype(np.int64)
+        return sources, targets, links.weights[keep].astype(np.float64)
+
+    def link_rows(self) -> list[tuple[str, str, float]]:
+        """``(source, target, weight)`` of every stored link, by page id, in source then target row order
+        (links to pages no source describes too)."""
+        with self.reading():
+            links = self._links(("sources", "targets", "weights"))
+            rows = np.unique(np.concatenate([links.sources, links.targets]))
+            names = dict(zip(rows.tolist(), self._page_values(rows, "page"), strict=True))
+        return [
+            (names[source], names[target], weight)
+            for source, target, weight in zip(
+                links.sources.tolist(), links.targets.tolist(), links.weights.tolist(), strict=True
+            )
+        ]
 
     def link_place_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, list[str]]:
         """Where the links between present pages sit: one row per (source, target, place).

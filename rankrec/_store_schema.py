@@ -19,7 +19,11 @@ from __future__ import annotations
 import sqlite3
 import uuid
 
-SCHEMA_VERSION = 1
+from ._store_links import TABLE as LINK_BLOCKS
+from ._store_links import convert
+
+SCHEMA_VERSION = 2  # 2: links kept in blocks of source pages (:mod:`rankrec._store_links`)
+READABLE_VERSIONS = (1, 2)  # a version 1 store is read as it is and converted by its first write
 STORE_ID_KEY = "store_id"  # the meta key of the store id (added after version 1, with no new version)
 
 # Added after version 1 came out, each table IF NOT EXISTS: older stores gain them on their next write.
@@ -41,14 +45,13 @@ TEXT_SCHEMA = (
 ) WITHOUT ROWID""",
 )
 
-# Where each link was read (added after version 1): the file, interned in ``link_files``, and the line.
+# Where each link was read (added after version 1): the file, interned in ``link_files``; the link blocks
+# hold its id and the line.
 _LINK_FILES = "CREATE TABLE IF NOT EXISTS link_files (id INTEGER PRIMARY KEY, file TEXT NOT NULL UNIQUE)"
 # Columns added after version 1 came out, each with a default (SQLite's ALTER TABLE ADD COLUMN): a store
 # made before them gains them on its next write transaction and reads as holding the default until then.
 _ADDED_COLUMNS = (
     ("pages", "same_page_links", "INTEGER NOT NULL DEFAULT 0"),  # links of the page to itself, counted
-    ("links", "file_id", "INTEGER REFERENCES link_files(id)"),  # NULL: read before files were kept
-    ("links", "line", "INTEGER"),
 )
 
 _SCHEMA = """
@@ -70,13 +73,6 @@ CREATE TABLE IF NOT EXISTS page_tags (
 CREATE TABLE IF NOT EXISTS page_groups (
     page_id INTEGER NOT NULL REFERENCES pages(id), name TEXT NOT NULL, PRIMARY KEY (page_id, name)
 ) WITHOUT ROWID;
-CREATE TABLE IF NOT EXISTS links (
-    source_id INTEGER NOT NULL REFERENCES pages(id),
-    target_id INTEGER NOT NULL REFERENCES pages(id),
-    weight REAL NOT NULL DEFAULT 1.0,
-    PRIMARY KEY (source_id, target_id)
-) WITHOUT ROWID;
-CREATE INDEX IF NOT EXISTS links_by_target ON links (target_id);
 CREATE TABLE IF NOT EXISTS users (id INTEGER PRIMARY KEY, user TEXT NOT NULL UNIQUE);
 CREATE TABLE IF NOT EXISTS views (
     user_id INTEGER NOT NULL REFERENCES users(id),
@@ -100,7 +96,7 @@ CREATE TABLE IF NOT EXISTS imports (
     errors INTEGER NOT NULL,
     imported_at TEXT NOT NULL DEFAULT (strftime('%Y-%m-%dT%H:%M:%SZ', 'now'))
 );
-""" + "".join(statement + ";\n" for statement in TEXT_SCHEMA)
+""" + "".join(statement + ";\n" for statement in (*TEXT_SCHEMA, LINK_BLOCKS, _LINK_FILES))
 
 
 def new_store_id() -> str:
@@ -116,9 +112,10 @@ def create_or_check(connection: sqlite3.Connection) -> None:
     ).fetchone()
     if existing:
         row = connection.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
-        if row is None or int(row[0]) != SCHEMA_VERSION:
+        if row is None or not row[0].isdigit() or int(row[0]) not in READABLE_VERSIONS:
             found = None if row is None else row[0]
-            raise sqlite3.DatabaseError(f"schema version {found}, this rankrec reads {SCHEMA_VERSION}")
+            readable = " and ".join(str(version) for version in READABLE_VERSIONS)
+            raise sqlite3.DatabaseError(f"schema version {found}, this rankrec reads {readable}")
         return
     # one transaction: the tables, the schema version and the store id come together or not at all
     # (both values are digits and hex digits, safe to write as literals)
@@ -131,12 +128,16 @@ def create_or_check(connection: sqlite3.Connection) -> None:
     )
 
 
-def migrate(connection: sqlite3.Connection) -> None:
+def migrate(connection: sqlite3.Connection, path: str) -> None:
     """Inside a write transaction: add what came after version 1 to a store made before it (the text
-    and place tables, the added columns, a store id); a store that has them is left as it is."""
+    and place tables, the added columns, a store id) and move its links into blocks (version 2); a
+    store that has them is left as it is."""
     for statement in TEXT_SCHEMA:
         connection.execute(statement)
     connection.execute(_LINK_FILES)
+    convert(connection, path)
+    connection.execute(LINK_BLOCKS)
+    connection.execute("UPDATE meta SET value = ? WHERE key = 'schema_version'", (str(SCHEMA_VERSION),))
     for table, column, declaration in _ADDED_COLUMNS:
         if column not in column_names(connection, table):
             connection.execute(f"ALTER TABLE {table} ADD COLUMN {column} {declaration}")

@@ -5,6 +5,7 @@ import log and site shapes. Call them inside :meth:`rankrec.store.Store.transact
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import zlib
@@ -12,6 +13,9 @@ from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from operator import itemgetter
 
+import numpy as np
+
+from ._store_links import PENDING_LINKS, Links
 from .sources.records import HEADINGS_BYTES, TEXT_BYTES, clip_utf8
 
 
@@ -20,6 +24,20 @@ def _kept_text(record) -> tuple[bytes, str]:
     its SHA-256; empty bytes for a record without text."""
     data = clip_utf8(getattr(record, "text", "") or "", TEXT_BYTES).encode("utf-8")
     return data, hashlib.sha256(data).hexdigest() if data else ""
+
+
+def _in_a_transaction(method):
+    """A link write run inside the open write transaction, or in one of its own when none is open (the
+    links it holds are merged into the store when that transaction ends)."""
+
+    @functools.wraps(method)
+    def written(self, *args, **kwargs):
+        if self.connection.in_transaction:
+            return method(self, *args, **kwargs)
+        with self.transaction():
+            return method(self, *args, **kwargs)
+
+    return written
 
 
 _IN_LIST = 500
@@ -52,7 +70,8 @@ class StoreWrites:
         described twice in ``records`` keeps its last description, as one put_page after another would."""
         last = {record.page: record for record in records}  # first place of each page, last record
         chosen = list(last.values())
-        ids = [self.page_id(record.page) for record in chosen]
+        known = self._ids_of(self._page_ids, "pages", "page", [record.page for record in chosen])
+        ids = [known[record.page] for record in chosen]
         pairs = list(zip(chosen, ids, strict=True))
         connection = self.connection
         connection.executemany(
@@ -92,22 +111,12 @@ class StoreWrites:
 
     @contextmanager
     def links_loading(self) -> Iterator[bool]:
-        """Inside :meth:`transaction`, around writing many links: when the store holds none yet, the
-        index of links by target is dropped and built again at the end, one sort instead of a random
-        insert per link (a rollback brings it back as it was). Gives whether the store held no links,
-        in which case no page has old out-links (or places of them) to forget."""
-        empty = not any(
-            self.connection.execute(f"SELECT 1 FROM {table} LIMIT 1").fetchone()
-            for table in ("links", "link_occurrences")
-        )
-        if not empty:
-            yield False
-            return
-        self.connection.execute("DROP INDEX IF EXISTS links_by_target")
-        yield True
-        self.connection.execute("CREATE INDEX IF NOT EXISTS links_by_target ON links (target_id)")
+        """Inside :meth:`transaction`, around writing many links: gives whether the store held no links
+        yet, in which case no page has old out-links (or places of them) to forget."""
+        held = self.connection.execute("SELECT 1 FROM link_occurrences LIMIT 1").fetchone()
+        yield held is None and self._links(("sources",)).size == 0
 
-    def put_named_pages(self, pages: Sequence[str], origins: Sequence[str]) -> None:
+    def put_named_pages(self, pages: Sequence[str], origins: Sequence[str]) -> list[int]:
         """Mark ``pages`` present as a source that only names them does (an edge list's endpoints):
         a page without a title or origin gets its id and ``origins``' entry; one with them keeps them.
         The same as :meth:`put_page` with ``describe=False``, in two statements for all of them (the
@@ -129,38 +138,58 @@ class StoreWrites:
             "INSERT INTO pages (id, page, title, origin, present) VALUES (?1, ?2, ?2, ?3, 1)", numbered
         )
         known.update((page, number) for number, page, _ in numbered)
+        return [known[page] for page in pages]
 
+    @_in_a_transaction
     def clear_links_from(self, pages: Iterable[str]) -> None:
         """Forget the outgoing links of ``pages`` and where they sat (before their new snapshot's)."""
-        rows = [(self.page_id(page),) for page in pages]
-        self.connection.executemany("DELETE FROM links WHERE source_id = ?", rows)
-        self.connection.executemany("DELETE FROM link_occurrences WHERE source_id = ?", rows)
+        rows = [self.page_id(page) for page in pages]
+        self._pending_links.clear(np.asarray(rows, dtype=np.int64))
+        forgotten = [(row,) for row in rows]
+        self.connection.executemany("DELETE FROM link_occurrences WHERE source_id = ?", forgotten)
 
+    @_in_a_transaction
     def put_links(self, rows: Iterable[tuple]) -> None:
         """``(source, target, weight)``, or ``(source, target, weight, file, line)`` with where the link
-        was read (kept for `rankrec stats` to name; inside :meth:`transaction`, which adds the columns)."""
-        plain, placed = [], []
-        for row in rows:
-            (placed if len(row) > 3 else plain).append(row)
+        was read (kept for `rankrec stats` to name; inside :meth:`transaction`). A link already stored
+        takes the new weight, file and line. Held, and merged into the stored blocks many at a time
+        (:mod:`rankrec._store_links`)."""
+        rows = list(rows)
+        files = {file: self._file_id(file) or 0 for file in {row[3] for row in rows if len(row) > 3}}
         ids = self._page_ids
-        for page in {page for row in (*plain, *placed) for page in row[:2]} - ids.keys():
+        for page in {page for row in rows for page in row[:2]} - ids.keys():
             self.page_id(page)  # pages only referred to: a row each, once
-        self.connection.executemany(
-            "INSERT INTO links (source_id, target_id, weight) VALUES (?, ?, ?) "
-            "ON CONFLICT (source_id, target_id) DO UPDATE SET weight = excluded.weight",
-            [(ids[source], ids[target], weight) for source, target, weight in plain],
-        )
-        if placed:
-            files = {file: self._file_id(file) for file in {row[3] for row in placed}}
-            self.connection.executemany(
-                "INSERT INTO links (source_id, target_id, weight, file_id, line) VALUES (?, ?, ?, ?, ?) "
-                "ON CONFLICT (source_id, target_id) DO UPDATE SET weight = excluded.weight, "
-                "file_id = excluded.file_id, line = excluded.line",
-                [
-                    (ids[source], ids[target], weight, files[file], line)
-                    for source, target, weight, file, line in placed
-                ],
+        count = len(rows)
+        lines = (row[4] if len(row) > 4 and row[4] is not None else -1 for row in rows)
+        self._hold(
+            Links(
+                np.fromiter((ids[row[0]] for row in rows), np.int64, count),
+                np.fromiter((ids[row[1]] for row in rows), np.int64, count),
+                np.fromiter((row[2] for row in rows), np.float64, count),
+                np.fromiter((files.get(row[3], 0) if len(row) > 3 else 0 for row in rows), np.int64, count),
+                np.fromiter(lines, np.int64, count),
             )
+        )
+
+    @_in_a_transaction
+    def put_link_ids(self, sources: np.ndarray, targets: np.ndarray, weights, file: str, lines) -> None:
+        """Links by page row id, column by column, all read from ``file`` (an edge list's run): as
+        :meth:`put_links`."""
+        self._hold(
+            Links(
+                np.asarray(sources, dtype=np.int64),
+                np.asarray(targets, dtype=np.int64),
+                np.asarray(weights, dtype=np.float64),
+                np.full(len(sources), self._file_id(file) or 0, dtype=np.int64),
+                np.asarray(lines, dtype=np.int64),
+            )
+        )
+
+    def _hold(self, links: Links) -> None:
+        """Hold ``links`` (put after everything held), merging what is held when it is much."""
+        self._pending_links.put(links)
+        if self._pending_links.count >= PENDING_LINKS:
+            self._settle_links()
 
     def _file_id(self, file: str | None) -> int | None:
         return None if file is None else self._row_id(self._file_ids, "link_files", "file", file)

@@ -16,13 +16,14 @@ processes (``workers``); they come back in file order, so the store is the same 
 
 from __future__ import annotations
 
-import itertools
 import time
 from collections import Counter
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
+
+import numpy as np
 
 from ._validation import check_choice, check_count, id_problem, quoted
 from .errors import InputError
@@ -69,6 +70,8 @@ class _Batch:
     views: list = field(default_factory=list)
     memberships: list = field(default_factory=list)
     cleared: set | None = field(default_factory=set)  # None: the store held no links, none to forget
+    page_ids: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # an edge list's
+    # page numbers -> the store's row ids
 
     def flush(self, store: Store, force: bool = False) -> None:
         links_due = bool(self.links) and (force or len(self.links) >= _BATCH)
@@ -298,11 +301,16 @@ def _bad_id(item) -> InputError | None:
 
 def _put_edges(store, rows: EdgeRows, batch: _Batch) -> None:
     """A run of an edge list's rows: its new endpoints marked present (as PageRecords of an edge list
-    would be), its links batched. The reader checked every id."""
-    store.put_named_pages(rows.pages, [f"{rows.file}:{line}" for line in rows.page_lines])
-    batch.links.extend(
-        zip(rows.sources, rows.targets, rows.weights, itertools.repeat(rows.file), rows.lines, strict=False)
-    )
+    would be), its links put (the store holds them until it merges many). The reader checked every id."""
+    new = store.put_named_pages(rows.pages, [f"{rows.file}:{line}" for line in rows.page_lines])
+    batch.page_ids = np.concatenate([batch.page_ids, np.asarray(new, dtype=np.int64)])
+    if batch.cleared is not None:  # as _Batch.flush does: a source forgets its old out-links first
+        fresh = set(rows.sources) - batch.cleared
+        store.clear_links_from(fresh)
+        batch.cleared |= fresh
+    ids = batch.page_ids  # the reader's page numbers -> the store's row ids
+    sources, targets = ids[rows.source_numbers], ids[rows.target_numbers]
+    store.put_link_ids(sources, targets, rows.weights, rows.file, rows.lines)
 
 
 def _put(store, item, batch: _Batch, ledger: _PageLedger, format: str):

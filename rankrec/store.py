@@ -19,6 +19,9 @@ from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
+import numpy as np
+
+from ._store_links import PendingLinks, settle, stored_count
 from ._store_os import create_private, raise_unavailable, store_unavailable
 from ._store_reads import StoreReads
 from ._store_schema import STORE_ID_KEY, create_or_check, has_added_columns, migrate
@@ -72,6 +75,7 @@ class Store(StoreReads, StoreWrites):
         self._columns_added = False  # _ADDED_COLUMNS known to exist (set like _text_tables)
         self._file_ids: dict[str, int] = {}
         self._migrated = False  # migrate() has run in this store's transactions (reset by a rollback)
+        self._pending_links = PendingLinks()  # link writes not yet merged into the stored blocks
 
     # -- lifecycle -------------------------------------------------------------------------------
     def close(self) -> None:
@@ -89,9 +93,14 @@ class Store(StoreReads, StoreWrites):
         with self._transaction("BEGIN IMMEDIATE"):
             self._every_page_id = False  # another connection may have added pages since
             if not self._migrated:  # a store made before version 1's additions gains them now
-                migrate(self.connection)
+                migrate(self.connection, self.path)
                 self._text_tables = self._columns_added = self._migrated = True
             yield self
+            self._settle_links()
+
+    def _settle_links(self) -> None:
+        """Merge the link writes held so far into the stored blocks (inside a write transaction)."""
+        settle(self.connection, self._pending_links, self.path)
 
     @contextmanager
     def reading(self) -> Iterator[Store]:
@@ -140,6 +149,7 @@ class Store(StoreReads, StoreWrites):
             self._columns_added = False  # and so are columns
             self._file_ids.clear()
             self._migrated = False  # and so is what a migration added
+            self._pending_links = PendingLinks()  # and the link writes held
             raise_unavailable(self.path, error)
             raise
 
@@ -198,7 +208,9 @@ class Store(StoreReads, StoreWrites):
 
     def stored_link_count(self) -> int:
         """Every stored link: between present pages, to pages no source describes, and any other."""
-        return int(self.scalar("SELECT count(*) FROM links"))
+        if self._pending_links:
+            self._settle_links()
+        return stored_count(self.connection)
 
     def unresolved_link_origins(
         self, *, target: str | None = None, source: str | None = None, limit: int = 3
@@ -209,25 +221,27 @@ class Store(StoreReads, StoreWrites):
         The file is where the link was read, else (a store written before that was kept, or a link put
         without it) the source page's origin; the line is None when not known.
         """
-        where, parameters = "t.present = 0", []
-        if target is not None:
-            where, parameters = where + " AND t.page = ?", [*parameters, target]
-        if source is not None:
-            where, parameters = where + " AND s.page = ?", [*parameters, source]
-        joins = (
-            "FROM links JOIN pages AS t ON t.id = links.target_id JOIN pages AS s ON s.id = links.source_id"
-        )
         with self.reading():
-            if self._has_added_columns():
-                select = "SELECT coalesce(f.file, s.origin) AS file, links.line AS line "
-                joins += " LEFT JOIN link_files AS f ON f.id = links.file_id"
-            else:
-                select = "SELECT s.origin AS file, NULL AS line "
-            total = self.scalar(f"SELECT count(*) {joins} WHERE {where}", tuple(parameters))
-            rows = self.connection.execute(
-                f"{select}{joins} WHERE {where} ORDER BY file, line LIMIT ?", (*parameters, limit)
-            ).fetchall()
-        return [(file, line) for file, line in rows], int(total)
+            links = self._links(("sources", "targets", "files", "lines"))
+            keep = ~self._present()[links.targets]
+            for page, column in ((target, links.targets), (source, links.sources)):
+                if page is not None:
+                    row = self.connection.execute("SELECT id FROM pages WHERE page = ?", (page,)).fetchone()
+                    keep &= column == (-1 if row is None else row[0])
+            chosen = links.taken(keep)
+            placed = chosen.size and self._has_added_columns()  # a version 1 store has no files
+            files = dict(self.connection.execute("SELECT id, file FROM link_files")) if placed else {}
+            unplaced = np.unique(chosen.sources[chosen.files == 0])
+            origins = dict(zip(unplaced.tolist(), self._page_values(unplaced, "origin"), strict=True))
+        places = [
+            (files[file] if file else origins.get(page), None if line < 0 else line)
+            for page, file, line in zip(
+                chosen.sources.tolist(), chosen.files.tolist(), chosen.lines.tolist(), strict=True
+            )
+        ]
+        # as SQL's ORDER BY file, line would: None first
+        places.sort(key=lambda at: (at[0] is not None, at[0] or "", at[1] is not None, at[1] or 0))
+        return places[: max(int(limit), 0)], chosen.size
 
     # -- event log upkeep (each call is its own transaction; not inside :meth:`transaction`) ------
     def append_views(self, records: Iterable, *, known_pages_only: bool = False) -> int:

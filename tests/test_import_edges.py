@@ -175,31 +175,63 @@ def test_stats_names_the_file_and_line_of_each_broken_link(tmp_path, capsys):
     assert f"ops/plan  2  {db}:3, {net}:4" in capsys.readouterr().out
 
 
+# The tables of a version 1 store as that version made them (a row per link, before files and lines
+# were kept; the text tables came later still).
+_VERSION_1 = """
+CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE pages (id INTEGER PRIMARY KEY, page TEXT NOT NULL UNIQUE, title TEXT, space TEXT, url TEXT,
+    archived INTEGER NOT NULL DEFAULT 0, present INTEGER NOT NULL DEFAULT 0,
+    external_links INTEGER NOT NULL DEFAULT 0, origin TEXT);
+CREATE TABLE page_tags (page_id INTEGER NOT NULL REFERENCES pages(id), tag TEXT NOT NULL,
+    PRIMARY KEY (page_id, tag)) WITHOUT ROWID;
+CREATE TABLE page_groups (page_id INTEGER NOT NULL REFERENCES pages(id), name TEXT NOT NULL,
+    PRIMARY KEY (page_id, name)) WITHOUT ROWID;
+CREATE TABLE links (source_id INTEGER NOT NULL REFERENCES pages(id),
+    target_id INTEGER NOT NULL REFERENCES pages(id), weight REAL NOT NULL DEFAULT 1.0,
+    PRIMARY KEY (source_id, target_id)) WITHOUT ROWID;
+CREATE INDEX links_by_target ON links (target_id);
+CREATE TABLE users (id INTEGER PRIMARY KEY, user TEXT NOT NULL UNIQUE);
+CREATE TABLE views (user_id INTEGER NOT NULL REFERENCES users(id),
+    page_id INTEGER NOT NULL REFERENCES pages(id), timestamp REAL NOT NULL, dwell REAL,
+    PRIMARY KEY (user_id, page_id, timestamp)) WITHOUT ROWID;
+CREATE INDEX views_by_time ON views (timestamp);
+CREATE TABLE memberships (kind TEXT NOT NULL CHECK (kind IN ('team', 'group')), name TEXT NOT NULL,
+    user_id INTEGER NOT NULL REFERENCES users(id), PRIMARY KEY (kind, name, user_id)) WITHOUT ROWID;
+CREATE TABLE imports (id INTEGER PRIMARY KEY, source TEXT NOT NULL, format TEXT NOT NULL,
+    records INTEGER NOT NULL, errors INTEGER NOT NULL,
+    imported_at TEXT NOT NULL DEFAULT '2026-01-01T00:00:00Z');
+INSERT INTO meta (key, value) VALUES ('schema_version', '1');
+INSERT INTO pages (id, page, title, present, origin) VALUES (1, 'a', 'A', 1, 'a.md');
+INSERT INTO pages (id, page, present) VALUES (2, 'ghost', 0);
+INSERT INTO pages (id, page, title, present, origin) VALUES (3, 'c', 'C', 1, 'c.md');
+INSERT INTO links (source_id, target_id, weight) VALUES (1, 2, 1.0), (3, 1, 2.5), (1, 3, 1.0);
+"""
+
+
 def _old_store(path: Path) -> None:
-    """A store laid out as before links kept their file and line: the tables of version 1 only."""
-    with Store(path):
-        pass  # the columns added later come with the first write transaction, which never ran
+    """A store of version 1 (see _VERSION_1), never written by this rankrec."""
     with sqlite3.connect(path) as connection:
-        names = {row[1] for row in connection.execute("PRAGMA table_info(links)")}
-        assert names == {"source_id", "target_id", "weight"}
-        connection.execute(
-            "INSERT INTO pages (id, page, title, present, origin) VALUES (1, 'a', 'A', 1, 'a.md')"
-        )
-        connection.execute("INSERT INTO pages (id, page, present) VALUES (2, 'ghost', 0)")
-        connection.execute("INSERT INTO links (source_id, target_id, weight) VALUES (1, 2, 1.0)")
+        connection.executescript(_VERSION_1)
 
 
-def test_a_store_from_before_file_and_line_still_reads_and_migrates_on_write(tmp_path):
+def test_a_version_1_store_still_reads_and_is_converted_by_its_first_write(tmp_path):
+    # A store of schema version 1 (a row per link, before files and lines) is read as it is, and its first
+    # write transaction moves its links into blocks (version 2): the same links, weights and all.
     wiki = tmp_path / "old.db"
     _old_store(wiki)
     with Store(wiki, create=False) as store:
         summary = wiki_stats(store)
+        before = store.link_rows()
+    assert before == [("a", "ghost", 1.0), ("a", "c", 1.0), ("c", "a", 2.5)]  # source, then target row order
     assert summary["worst_unresolved_targets"] == [{"target": "ghost", "links": 1, "at": "a.md"}]
     assert summary["same_page_links"] == 0
     folder = write(tmp_path / "wiki", {"b.md": "# B\n\n[ghost](ghost.md) [me](#b)\n"})
     with Store(wiki) as store:
         import_sources(store, [(folder, "markdown")])
         summary = wiki_stats(store)
+        assert store.scalar("SELECT value FROM meta WHERE key = 'schema_version'") == "2"
+        assert store.scalar("SELECT count(*) FROM sqlite_master WHERE name = 'links'") == 0
+        assert [row for row in store.link_rows() if row[0] != "b"] == before
     assert summary["worst_unresolved_targets"] == [
         {
             "target": "ghost",

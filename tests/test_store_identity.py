@@ -128,4 +128,4 @@ def test_old_store_gets_an_id_on_its_first_write_only(tmp_path):
 def test_new_store_has_schema_version_and_id_together(tmp_path):
     with Store(tmp_path / "new.db") as store:
         rows = dict(store.connection.execute("SELECT key, value FROM meta").fetchall())
-    assert rows == {"schema_version": "1", STORE_ID_KEY: rows[STORE_ID_KEY]} and len(rows[STORE_ID_KEY]) == 32
+    assert rows == {"schema_version": "2", STORE_ID_KEY: rows[STORE_ID_KEY]} and len(rows[STORE_ID_KEY]) == 32

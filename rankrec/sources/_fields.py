@@ -77,8 +77,20 @@ def iter_rows(
     [(1, ['a', 'b, c']), (3, ['say "hi" now', 'd'])]
     >>> os.unlink(f.name)
     """
-    name = str(path)
-    lines = iter_lines(path, encoding)
+    return rows_of(str(path), iter_lines(path, encoding), comments=comments, delimiter=delimiter)
+
+
+def rows_of(
+    name: str,
+    lines: Iterator[tuple[int, str] | InputError],
+    *,
+    comments: bool = False,
+    delimiter: str | None = None,
+    chosen: list[str] | None = None,
+) -> Iterator[Row | InputError]:
+    """:func:`iter_rows` of the ``lines`` of the file ``name`` (as :func:`iter_lines` gives them);
+    the delimiter decided on the first data line is appended to ``chosen`` (when given). A row
+    consumes exactly its own lines (more than one for a quoted field that spans lines)."""
     for item in lines:
         if isinstance(item, InputError):
             yield item
@@ -89,6 +101,8 @@ def iter_rows(
             continue
         if delimiter is None:
             delimiter = "\t" if "\t" in text else ","
+            if chosen is not None:
+                chosen.append(delimiter)
         if delimiter != "," or '"' not in text:
             yield number, text.split(delimiter)
             continue

@@ -17,6 +17,7 @@ import codecs
 import errno
 import gzip
 import io
+import itertools
 import os
 import stat
 import zlib
@@ -170,17 +171,23 @@ def iter_lines(path: str | Path, encoding: str = "utf-8") -> Iterator[tuple[int,
     missing file, a file that is not a regular file, a line longer than :data:`LINE_BYTES`
     or a truncated gzip stream yields one InputError and stops. ``.gz`` files (by their
     magic bytes, whatever their name) are read transparently. UTF-16/32 files with a
-    byte-order mark are read as such.
+    byte-order mark are read as such. The lines are made a chunk of the file at a time
+    (:func:`line_blocks`) and handed out one by one in C (``itertools.chain``).
     """
+    return itertools.chain.from_iterable(line_blocks(path, encoding))
+
+
+def line_blocks(path: str | Path, encoding: str = "utf-8") -> Iterator[list[tuple[int, str] | InputError]]:
+    """What :func:`iter_lines` yields, in lists of the lines of about a chunk of the file each."""
     name = str(path)
     path = Path(path)
     try:
         stream = _open_binary(path, limit=None)
     except FileRefused as error:
-        yield InputError(name, None, f"{error.strerror}; file skipped")
+        yield [InputError(name, None, f"{error.strerror}; file skipped")]
         return
     except OSError as error:
-        yield InputError(name, None, f"cannot open: {error.strerror or error}")
+        yield [InputError(name, None, f"cannot open: {error.strerror or error}")]
         return
     number = 0
     too_long = f"line is longer than {size_text(LINE_BYTES)}; the rest of the file is not read"
@@ -194,33 +201,38 @@ def iter_lines(path: str | Path, encoding: str = "utf-8") -> Iterator[tuple[int,
                 while line := text.readline(LINE_BYTES + 1):  # characters: a bound on memory all the same
                     number += 1
                     if len(line) > LINE_BYTES and not line.endswith("\n"):
-                        yield InputError(name, number, too_long)
+                        yield [InputError(name, number, too_long)]
                         return
-                    yield number, line.rstrip("\r\n")
+                    yield [(number, line.rstrip("\r\n"))]
             else:
                 decoder_name = codecs.lookup(encoding).name
-                for raw in _split_lines(rest, LINE_BYTES):
-                    number += 1
-                    if raw is None:
-                        yield InputError(name, number, too_long)
+                for block in _split_lines(rest, LINE_BYTES):
+                    if block is None:
+                        yield [InputError(name, number + 1, too_long)]
                         return
-                    try:
-                        line = raw.decode(decoder_name)
-                    except UnicodeDecodeError as error:
-                        yield InputError(name, number, _decode_reason(error, encoding))
+                    lines, whole = _decoded(block, decoder_name)
+                    numbers = range(number + 1, number + 1 + len(lines))
+                    number += len(lines)
+                    if whole:  # every line decoded: no line to check
+                        yield list(zip(numbers, lines, strict=True))
                         continue
-                    yield number, line.rstrip("\r\n")
+                    yield [
+                        InputError(name, at, _decode_reason(line, encoding))
+                        if isinstance(line, UnicodeDecodeError)
+                        else (at, line.rstrip("\r\n"))
+                        for at, line in zip(numbers, lines, strict=True)
+                    ]
     except (EOFError, gzip.BadGzipFile, zlib.error) as error:
-        yield InputError(name, number + 1, f"compressed stream is damaged or truncated ({error})")
+        yield [InputError(name, number + 1, f"compressed stream is damaged or truncated ({error})")]
         return
     except UnicodeDecodeError as error:
-        yield InputError(name, number + 1, _decode_reason(error, encoding))
+        yield [InputError(name, number + 1, _decode_reason(error, encoding))]
         return
     except OSError as error:
-        yield InputError(name, number + 1, f"read failed: {error}")
+        yield [InputError(name, number + 1, f"read failed: {error}")]
         return
     if number == 0:
-        yield InputError(name, None, "file is empty")
+        yield [InputError(name, None, "file is empty")]
 
 
 def read_text(path: str | Path, encoding: str = "utf-8", limit: int = PAGE_FILE_BYTES) -> str:
@@ -247,8 +259,9 @@ def read_text(path: str | Path, encoding: str = "utf-8", limit: int = PAGE_FILE_
     return text.replace("\r\n", "\n").replace("\r", "\n")
 
 
-def _split_lines(stream: io.BufferedIOBase, limit: int) -> Iterator[bytes | None]:
-    """The lines of ``stream`` (split at ``\\n``, which is dropped), read in chunks.
+def _split_lines(stream: io.BufferedIOBase, limit: int) -> Iterator[list[bytes] | None]:
+    """The lines of ``stream`` (split at ``\\n``, which is dropped), read in chunks: a list of the lines
+    each chunk completes.
 
     A line of more than ``limit`` bytes gives None and ends the lines: memory stays within
     ``limit`` and one chunk, and splitting runs in C (``bytes.split``), not a call per line.
@@ -261,11 +274,12 @@ def _split_lines(stream: io.BufferedIOBase, limit: int) -> Iterator[bytes | None
             if held:
                 lines[0] = b"".join([*held, lines[0]])
                 held, size = [], 0
-            for line in lines[:-1]:
-                if len(line) > limit:
-                    yield None
-                    return
-                yield line
+            complete = lines[:-1]
+            if max(map(len, complete)) > limit:
+                yield list(itertools.takewhile(lambda line: len(line) <= limit, complete))
+                yield None
+                return
+            yield complete
         if lines[-1]:
             held.append(lines[-1])
             size += len(lines[-1])
@@ -273,7 +287,28 @@ def _split_lines(stream: io.BufferedIOBase, limit: int) -> Iterator[bytes | None
                 yield None
                 return
     if held:
-        yield b"".join(held)
+        yield [b"".join(held)]
+
+
+def _decoded(lines: list[bytes], encoding: str) -> tuple[list[str | UnicodeDecodeError], bool]:
+    """Each line decoded, or the error of a line that does not, and whether all of them decoded. A block
+    that decodes at once (an ASCII-compatible ``encoding``, whose ``\\n`` is the byte 0x0a) is split in
+    C, its line endings (``\\r``) already dropped; else each line is decoded alone (ends not dropped)."""
+    try:
+        text = b"\n".join(lines).decode(encoding)
+    except UnicodeDecodeError:
+        pass
+    else:
+        if "\r" in text:
+            return [line.rstrip("\r") for line in text.split("\n")], True
+        return text.split("\n"), True
+    decoded: list[str | UnicodeDecodeError] = []
+    for line in lines:
+        try:
+            decoded.append(line.decode(encoding))
+        except UnicodeDecodeError as error:
+            decoded.append(error)
+    return decoded, False
 
 
 class CappedText:

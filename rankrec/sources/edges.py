@@ -6,13 +6,16 @@ An edge list alone defines a graph: every endpoint is a page (its title is its i
 from __future__ import annotations
 
 from collections.abc import Iterator
+from dataclasses import dataclass
+from itertools import repeat
+from operator import itemgetter
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
-from ._fields import FieldError, column_count_reason, iter_rows, parse_id, parse_weight
-from ._text import check_encoding
+from ._fields import FieldError, column_count_reason, parse_id, parse_weight, rows_of
+from ._text import check_encoding, line_blocks
 from .records import EdgeRows, LinkRecord, PageRecord, expanded
 
 HEADER_PAIRS = frozenset({("source", "target"), ("from", "to"), ("src", "dst")})
@@ -66,25 +69,28 @@ def is_known_header(fields: list[str]) -> bool:
 
 
 class _Run:
-    """The rows read since the last run was handed out (see :class:`EdgeRows`); each link's endpoints
-    packed into one key, so that repeated links are found a run at a time (:meth:`taken`)."""
+    """The rows read since the last run was handed out (see :class:`EdgeRows`): each link's endpoints
+    by page number (``names`` gives their ids); the two packed into one key when the run is handed out,
+    so that repeated links are found a run at a time (:meth:`taken`)."""
 
-    def __init__(self, name: str) -> None:
+    def __init__(self, name: str, names: list[str]) -> None:
         self.name = name
+        self.names = names
         self.pages: list[str] = []
         self.page_lines: list[int] = []
-        self.sources: list[str] = []
-        self.targets: list[str] = []
+        self.sources: list[int] = []
+        self.targets: list[int] = []
         self.weights: list[float] = []
         self.lines: list[int] = []
-        self.keys: list[int] = []
 
     def taken(self, seen: _SeenLinks) -> Iterator[EdgeRows | InputError]:
         """The run so far (if it holds anything), split where a row repeats a link read before (in
         this run or an earlier one), that row's InputError between; then an empty run."""
         if not (self.pages or self.sources):
             return
-        keys = np.asarray(self.keys, dtype=np.int64)
+        sources = np.asarray(self.sources, dtype=np.int64)
+        targets = np.asarray(self.targets, dtype=np.int64)
+        keys = sources * _PACK + targets
         lines = np.asarray(self.lines, dtype=np.int64)
         first = seen.first_lines(keys)
         order = np.argsort(keys, kind="stable")  # a key's rows in line order
@@ -102,25 +108,27 @@ class _Run:
         for position in np.flatnonzero(repeated).tolist():
             # a repeated link names no page first: the pages read before its line go with the part before
             upto = int(np.searchsorted(page_lines, self.lines[position]))
-            yield from self._part(start, position, given, upto)
-            source, target = self.sources[position], self.targets[position]
+            yield from self._part(sources, targets, start, position, given, upto)
+            source, target = self.names[self.sources[position]], self.names[self.targets[position]]
             reason = f"duplicate link {source!r} -> {target!r} (first on line {int(first[position])})"
             yield InputError(self.name, self.lines[position], reason)
             start, given = position + 1, upto
-        yield from self._part(start, len(self.sources), given, len(self.pages))
-        self.__init__(self.name)
+        yield from self._part(sources, targets, start, len(self.sources), given, len(self.pages))
+        self.__init__(self.name, self.names)
 
-    def _part(self, start: int, stop: int, first_page: int, last_page: int) -> Iterator[EdgeRows]:
-        """Links ``start:stop`` and pages ``first_page:last_page`` as one run (if it holds anything)."""
+    def _part(self, sources, targets, start: int, stop: int, first_page: int, last_page: int):
+        """Links ``start:stop`` (``sources`` and ``targets`` their page numbers) and pages
+        ``first_page:last_page`` as one run (if it holds anything)."""
         if start < stop or first_page < last_page:
             yield EdgeRows(
                 self.name,
                 self.pages[first_page:last_page],
                 self.page_lines[first_page:last_page],
-                self.sources[start:stop],
-                self.targets[start:stop],
+                sources[start:stop],
+                targets[start:stop],
                 self.weights[start:stop],
                 self.lines[start:stop],
+                self.names,
             )
 
 
@@ -161,8 +169,20 @@ def _read(path: str | Path, encoding: str) -> Iterator[EdgeRows | InputError]:
     held: tuple[int, list[str]] | None = None  # the first row while it may still be a header
     watch: tuple[str, str] = ("", "")
     rows = 0
-    run = _Run(name)
-    for item in iter_rows(path, encoding, comments=True):
+    run = _Run(name, names)
+    lines = _Lines(line_blocks(path, encoding))
+    delimiter: list[str] = []  # the delimiter, once the first data line has decided it
+    each_row = rows_of(name, lines, comments=True, chosen=delimiter)
+    while True:
+        if held is None and rows > 1 and delimiter == [","]:  # between blocks: a plain one read whole
+            plain = _plain_fields(lines.next_block())
+            if plain is not None:
+                lines.skip_block()
+                yield from _block_links(run, seen, *plain, numbers, names)
+                continue
+        item = next(each_row, None)
+        if item is None:
+            break
         if isinstance(item, InputError):
             yield from run.taken(seen)
             yield item
@@ -181,6 +201,8 @@ def _read(path: str | Path, encoding: str) -> Iterator[EdgeRows | InputError]:
             if source in watch or target in watch:  # the first row's fields occur again: it is data
                 yield from _checked(run, seen, _edge(run, *held, numbers, names))
                 held = None
+                if len(run.sources) >= RUN_ROWS:
+                    yield from run.taken(seen)
         error = _edge(run, number, fields, numbers, names)
         if error is not None:
             yield from run.taken(seen)
@@ -190,6 +212,127 @@ def _read(path: str | Path, encoding: str) -> Iterator[EdgeRows | InputError]:
     if held is not None and rows == 1:
         yield from _checked(run, seen, _edge(run, *held, numbers, names))
     yield from run.taken(seen)
+
+
+class _Lines:
+    """The lines of :func:`~rankrec.sources._text.line_blocks` one at a time (for the row-by-row path),
+    with a look at the next whole block when every line of the current one has been handed out."""
+
+    def __init__(self, blocks: Iterator[list]) -> None:
+        self._blocks = blocks
+        self._block: list = []
+        self._at = 0
+
+    def __iter__(self) -> _Lines:
+        return self
+
+    def __next__(self):
+        while self._at >= len(self._block):
+            self._block, self._at = next(self._blocks), 0
+        self._at += 1
+        return self._block[self._at - 1]
+
+    def next_block(self) -> list | None:
+        """The next block (it becomes the current one, none of it handed out), or None when lines of
+        the current block are still to come or there are no more blocks."""
+        if self._at < len(self._block):
+            return None
+        block = next(self._blocks, None)
+        if block is not None:
+            self._block, self._at = block, 0
+        return block
+
+    def skip_block(self) -> None:
+        """Count the current block as handed out (it was read whole)."""
+        self._at = len(self._block)
+
+
+def _plain_fields(block: list | None) -> tuple[int, list[str], list[str]] | None:
+    """``(first line, sources, targets)`` of a block of lines that are all plain ``source,target`` rows
+    (one comma each; no quote, tab or ``#``; no bad line), split in C; None for any other block."""
+    if not block:
+        return None
+    try:
+        texts = list(map(itemgetter(1), block))
+    except TypeError:  # an InputError among the lines
+        return None
+    joined = "\n".join(texts)
+    if '"' in joined or "\t" in joined or "#" in joined or set(map(str.count, texts, repeat(","))) != {1}:
+        return None
+    fields = joined.replace("\n", ",").split(",")
+    return block[0][0], fields[0::2], fields[1::2]
+
+
+def _block_links(
+    run: _Run, seen: _SeenLinks, first: int, sources: list[str], targets: list[str], numbers, names
+) -> Iterator[EdgeRows | InputError]:
+    """The rows of a plain block (lines ``first``, ``first + 1``, ...) as :func:`_read` reads them one by
+    one: the ids seen before looked up a column at a time, the others checked and numbered row by row
+    (:func:`_endpoints`), then every row added to ``run`` in line order, each endpoint first seen with
+    the row that brought it, and each bad row an InputError after the run so far."""
+    count, get = len(sources), numbers.get
+    # a row's source is mostly the row before's: each distinct one looked up once in the (large) map
+    distinct = {field: get(field, -1) for field in dict.fromkeys(sources)}
+    source_numbers = np.fromiter(map(distinct.__getitem__, sources), dtype=np.int64, count=count)
+    target_numbers = np.fromiter(map(get, targets, repeat(-1, count)), dtype=np.int64, count=count)
+    new_pages: list[tuple[int, str]] = []  # (line, page) of the pages first seen in the block
+    errors: dict[int, InputError] = {}
+    for row in np.flatnonzero((source_numbers < 0) | (target_numbers < 0)).tolist():
+        fields = [sources[row], targets[row]]
+        source, target = get(fields[0]), get(fields[1])
+        if source is not None and target is not None and source != target:  # both seen earlier in the block
+            source_numbers[row], target_numbers[row] = source, target
+            continue
+        found = _endpoints(run.name, first + row, fields, numbers, names, new_pages)
+        if isinstance(found, InputError):
+            errors[row] = found
+        else:
+            source_numbers[row], target_numbers[row] = found[0], found[1]
+    for row in np.flatnonzero(source_numbers == target_numbers).tolist():  # self-links of known pages
+        errors.setdefault(row, _self_link(run.name, first + row, names[source_numbers[row]]))
+    block = _Block(first, source_numbers, target_numbers, new_pages)
+    start = 0
+    for row in sorted(errors):
+        yield from block.rows(run, seen, start, row)
+        block.pages_to(run, first + row)
+        yield from run.taken(seen)
+        yield errors[row]
+        start = row + 1
+    yield from block.rows(run, seen, start, count)
+    block.pages_to(run, first + count)
+
+
+@dataclass
+class _Block:
+    """A plain block's rows by page number, and the pages first seen in it, added to runs in order."""
+
+    first: int
+    sources: np.ndarray
+    targets: np.ndarray
+    pages: list[tuple[int, str]]
+    given: int = 0  # pages already added to a run
+
+    def pages_to(self, run: _Run, line: int) -> None:
+        """Add the pages first seen on lines up to ``line`` to ``run``."""
+        while self.given < len(self.pages) and self.pages[self.given][0] <= line:
+            page_line, page = self.pages[self.given]
+            run.pages.append(page)
+            run.page_lines.append(page_line)
+            self.given += 1
+
+    def rows(self, run: _Run, seen: _SeenLinks, start: int, stop: int) -> Iterator[EdgeRows | InputError]:
+        """Add rows ``start:stop`` (all good) to ``run``, handing it out whenever it holds
+        :data:`RUN_ROWS` links."""
+        while start < stop:
+            end = min(stop, start + max(RUN_ROWS - len(run.sources), 1))
+            self.pages_to(run, self.first + end - 1)
+            run.sources.extend(self.sources[start:end].tolist())
+            run.targets.extend(self.targets[start:end].tolist())
+            run.weights.extend([1.0] * (end - start))
+            run.lines.extend(range(self.first + start, self.first + end))
+            start = end
+            if len(run.sources) >= RUN_ROWS:
+                yield from run.taken(seen)
 
 
 def _checked(run: _Run, seen: _SeenLinks, error: InputError | None) -> Iterator[EdgeRows | InputError]:
@@ -203,39 +346,58 @@ def _edge(
     run: _Run, line: int, fields: list[str], numbers: dict[str, int], names: list[str]
 ) -> InputError | None:
     """Add one row to ``run`` (its endpoints first seen to ``run.pages``, even for a self-link), or
-    say why it is bad; a repeated link is found when the run is handed out. One dictionary look-up per
-    field once its id has been seen."""
+    say why it is bad; a repeated link is found when the run is handed out."""
+    new_pages: list[tuple[int, str]] = []
+    found = _endpoints(run.name, line, fields, numbers, names, new_pages)
+    for page_line, page in new_pages:
+        run.pages.append(page)
+        run.page_lines.append(page_line)
+    if isinstance(found, InputError):
+        return found
+    run.sources.append(found[0])
+    run.targets.append(found[1])
+    run.weights.append(found[2])
+    run.lines.append(line)
+    return None
+
+
+def _endpoints(
+    name: str, line: int, fields: list[str], numbers: dict[str, int], names: list[str], new_pages: list
+) -> tuple[int, int, float] | InputError:
+    """A row's source and target numbers and weight, or why it is bad. Its endpoints first seen (even
+    for a self-link) are numbered and added to ``new_pages`` as ``(line, page)``. One dictionary
+    look-up per field once its id has been seen."""
     if len(fields) not in (2, 3):
-        return InputError(run.name, line, column_count_reason(len(fields), "2 or 3 (source,target[,weight])"))
+        return InputError(name, line, column_count_reason(len(fields), "2 or 3 (source,target[,weight])"))
     source_number, target_number = numbers.get(fields[0]), numbers.get(fields[1])
     try:
         source = parse_id(fields[0], "source id") if source_number is None else names[source_number]
         target = parse_id(fields[1], "target id") if target_number is None else names[target_number]
         weight = parse_weight(fields[2]) if len(fields) == 3 else 1.0
     except FieldError as error:
-        return InputError(run.name, line, str(error))
+        return InputError(name, line, str(error))
     if source_number is None:
-        source_number = _numbered(run, line, fields[0], source, numbers, names)
+        source_number = _numbered(line, fields[0], source, numbers, names, new_pages)
     if target_number is None:
-        target_number = _numbered(run, line, fields[1], target, numbers, names)
+        target_number = _numbered(line, fields[1], target, numbers, names, new_pages)
     if source_number == target_number:
-        return InputError(run.name, line, f"self-link: source and target are both {source!r}")
-    run.keys.append(source_number * _PACK + target_number)
-    run.sources.append(source)
-    run.targets.append(target)
-    run.weights.append(weight)
-    run.lines.append(line)
-    return None
+        return _self_link(name, line, source)
+    return source_number, target_number, weight
 
 
-def _numbered(run: _Run, line: int, field: str, page: str, numbers: dict[str, int], names: list[str]) -> int:
-    """The number of ``page`` (the checked id of ``field``), a new one (and a page of ``run``) when first
-    seen; ``field`` as given maps to it too."""
+def _self_link(name: str, line: int, page: str) -> InputError:
+    return InputError(name, line, f"self-link: source and target are both {page!r}")
+
+
+def _numbered(
+    line: int, field: str, page: str, numbers: dict[str, int], names: list[str], new_pages: list
+) -> int:
+    """The number of ``page`` (the checked id of ``field``), a new one (added to ``new_pages`` with its
+    line) when first seen; ``field`` as given maps to it too."""
     found = numbers.get(page)
     if found is None:
         found = numbers[page] = len(names)
         names.append(page)
-        run.pages.append(page)
-        run.page_lines.append(line)
+        new_pages.append((line, page))
     numbers[field] = found
     return found

@@ -9,7 +9,9 @@ yielded the same way, after which the reader stops.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+
+import numpy as np
 
 DEFAULT_EXCLUDE = "nav, header, footer, [role=navigation]"
 """CSS selector of the HTML elements whose links and text are always left out (``--exclude`` adds to it);
@@ -129,17 +131,30 @@ def clip_utf8(text: str, limit: int) -> str:
 class EdgeRows:
     """A run of an edge list's good rows, column by column: what a PageRecord per endpoint first seen
     and a LinkRecord per row would say, without an object per row (a list of ten million links is read
-    in seconds). ``pages`` are the endpoints first seen in the run, ``page_lines`` the line of each;
-    ``sources``, ``targets``, ``weights`` and ``lines`` hold one entry per link. Every id is checked.
+    in about a minute). ``pages`` are the endpoints first seen in the run, ``page_lines`` the line of
+    each; ``source_numbers``, ``target_numbers``, ``weights`` and ``lines`` hold one entry per link. A
+    page's number counts the pages of the file in the order they were first seen (the pages of the
+    file's runs, one run after another), ``names`` gives its id. Every id is checked.
     """
 
     file: str
     pages: list[str]
     page_lines: list[int]
-    sources: list[str]
-    targets: list[str]
+    source_numbers: np.ndarray
+    target_numbers: np.ndarray
     weights: list[float]
     lines: list[int]
+    names: list[str] = field(repr=False, compare=False)  # page number -> id (the reader's, still growing)
+
+    @property
+    def sources(self) -> list[str]:
+        """The source page id of each link."""
+        return [self.names[number] for number in self.source_numbers.tolist()]
+
+    @property
+    def targets(self) -> list[str]:
+        """The target page id of each link."""
+        return [self.names[number] for number in self.target_numbers.tolist()]
 
     def records(self):
         """The same as PageRecords and LinkRecords, in line order (an endpoint before its first link)."""

@@ -230,3 +230,48 @@ def test_runs_of_any_length_read_as_one_record_per_row_in_line_order(rows, run):
             seen.add((s, t))
             expected.append((s, t, float(w or 1), number))
     assert _links(whole) == expected
+
+
+plain_rows = st.lists(
+    st.tuples(
+        st.sampled_from(["a", "b", "c", "d", " a", "x\x01", ""]), st.sampled_from(["a", "b", "c", "e"])
+    ),
+    max_size=40,
+)
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    rows=plain_rows,
+    header=st.booleans(),
+    chunk=st.integers(4, 40),
+    run=st.integers(1, 7),
+    extra=st.sampled_from(["", "# note\n", "\n", 'q,"r"\n', "f,g,2\n"]),
+)
+def test_plain_blocks_read_whole_give_what_row_by_row_reading_gives(rows, header, chunk, run, extra):
+    # Blocks of plain "source,target" lines are read a block at a time (edges._plain_fields and
+    # _block_links); every other line row by row. With tiny blocks (so that pages, self-links, repeated
+    # links, bad ids and runs fall across block boundaries) the records, errors and runs must be exactly
+    # those of reading every line row by row (the block reading switched off), in line order.
+    import rankrec.sources._text as text
+    import rankrec.sources.edges as edges
+
+    lines = [f"{s},{t}" for s, t in rows]
+    lines.insert(len(lines) // 2, extra.rstrip("\n")) if extra else None
+    content = ("source,target\n" if header else "") + "\n".join(lines) + "\n"
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "links.csv"
+        path.write_text(content)
+        kept = text._CHUNK_BYTES, edges.RUN_ROWS, edges._plain_fields
+        try:
+            text._CHUNK_BYTES, edges.RUN_ROWS = chunk, run
+            by_blocks = [_same(item) for item in read_edge_list(path)]
+            runs = [
+                len(item.sources) for item in edges.read_edge_rows(path) if not isinstance(item, InputError)
+            ]
+            edges._plain_fields = lambda block: None
+            by_rows = [_same(item) for item in read_edge_list(path)]
+        finally:
+            text._CHUNK_BYTES, edges.RUN_ROWS, edges._plain_fields = kept
+    assert by_blocks == by_rows
+    assert all(size <= run for size in runs)
