@@ -8,6 +8,10 @@ import sys
 from collections.abc import Mapping, Sequence
 from typing import TextIO
 
+EXPORT_FORMATS = ("json", "jsonl", "csv")
+"""What `rankrec export` writes (here, not in :mod:`rankrec.export`, so that the command line starts
+without the index's imports)."""
+
 
 def _cell(value) -> str:
     if isinstance(value, float):

@@ -20,6 +20,7 @@ as they are (:func:`stored_links`) and converted in their first write transactio
 
 from __future__ import annotations
 
+import itertools
 import sqlite3
 from dataclasses import dataclass
 
@@ -201,12 +202,14 @@ def stored_links(connection: sqlite3.Connection, names: tuple[str, ...], path: s
     if not has_legacy(connection):
         return _read(connection, names, path)
     columns = {row[1] for row in connection.execute(f"PRAGMA table_info({_LEGACY})")}
-    found = connection.execute(
+    count = int(connection.execute(f"SELECT count(*) FROM {_LEGACY}").fetchone()[0])
+    cursor = connection.execute(
         "SELECT source_id, target_id, weight, "
         + ("coalesce(file_id, 0), coalesce(line, -1)" if "file_id" in columns else "0, -1")
         + f" FROM {_LEGACY} ORDER BY source_id, target_id"
-    ).fetchall()
-    table = np.array(found, dtype=np.float64).reshape(len(found), 5)
+    )  # read row by row into one array, never a list of ten million tuples
+    flat = np.fromiter(itertools.chain.from_iterable(cursor), dtype=np.float64, count=count * 5)
+    table = flat.reshape(count, 5)
     links = Links(*(table[:, column].astype(_TYPES[name]) for column, name in enumerate(_ALL)))
     empty = Links.empty()
     return Links(*(getattr(links if name in names else empty, name) for name in _ALL))

@@ -30,6 +30,7 @@ from urllib.parse import quote
 
 import numpy as np
 
+from ._output import EXPORT_FORMATS
 from ._pool import block_runner
 from ._validation import check_choice, check_count
 from .errors import GroupTooSmall, NoSpace, StaleIndex, UsageError
@@ -38,7 +39,7 @@ from .progress import Progress, report
 from .recommend import Item, Reader, landing, related, team_from_store
 from .recommend.candidates import fill_candidates
 
-FORMATS = ("json", "jsonl", "csv")
+FORMATS = EXPORT_FORMATS
 CSV_COLUMNS = ("page", "rank", "related_page", "title", "url", "score", "reason")
 LANDING_CSV_COLUMNS = ("team", "rank", "page", "title", "url", "score", "reason")
 _CHUNK_PAGES = 512  # pages a task lists: their candidates are scored together, and progress moves by it

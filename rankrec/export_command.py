@@ -8,7 +8,7 @@ import sys
 from pathlib import Path
 
 from ._cli_common import add_cluster_option, list_urls, open_index, step_bars, worker_count
-from .export import FORMATS
+from ._output import EXPORT_FORMATS as FORMATS
 
 _SHOWN_DIFFS = 3  # files whose whole diff a dry run prints (the others are counted)
 

@@ -16,7 +16,6 @@ from ._cli_common import (
 )
 from ._output import print_mapping, print_rows
 from .errors import UsageError
-from .ranker.model import labels_text
 
 
 def register(commands) -> None:
@@ -259,6 +258,8 @@ def _ranker_line(ranker: dict) -> str:
     if not ranker.get("used"):
         reason = ranker.get("reason", "none was trained")
         return f"related lists: the PageRank and text mix (no learnt ranker: {reason})"
+    from .ranker.model import labels_text  # here: the command line starts without the ranker's imports
+
     scores = ", ".join(f"{name} {value:.3f}" for name, value in ranker["validation_ndcg@10"].items())
     source = labels_text(ranker)
     return (

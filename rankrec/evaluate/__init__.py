@@ -11,46 +11,58 @@
 - :mod:`.sweeps`: :func:`validation_split` and :func:`choose_configuration` over a :class:`Grid`.
 - :mod:`.run`: :func:`load_data`, :func:`make_split`, :func:`run_evaluation`; :mod:`.report` writes the
   report folder (imported on demand: it loads matplotlib); :mod:`.command` is ``rankrec evaluate``.
+
+The names below are imported on first use, so that ``rankrec`` commands other than ``evaluate``
+start without the evaluation's imports.
 """
 
-from ..errors import CutoffOutsideSpan, NothingToEvaluate
-from .baselines import (
-    CoVisitation,
-    GlobalPageRank,
-    MostRead,
-    OutLinks,
-    RandomPages,
-    TeamMostRead,
-    check_recommendations,
-)
-from .method import Configuration, PersonalisedPageRank, rankrec_lists
-from .metrics import (
-    average_precision,
-    coverage,
-    dcg,
-    evaluate_lists,
-    hit_rate,
-    intra_list_diversity,
-    ndcg,
-    novelty,
-    precision,
-    recall,
-    reciprocal_rank,
-    unvisited_share,
-)
-from .run import Evaluation, load_data, make_split, run_evaluation
-from .splits import (
-    Queries,
-    Split,
-    Views,
-    assert_no_leakage,
-    excluded_pages,
-    last_n_split,
-    session_split,
-    temporal_split,
-)
-from .statistics import PairedComparison, bootstrap_ci, paired_difference
-from .sweeps import Choice, Grid, choose_configuration, validation_split
+from importlib import import_module
+
+_WHERE = {  # name -> the module it comes from, imported on first use (PEP 562)
+    "Choice": ".sweeps",
+    "CoVisitation": ".baselines",
+    "Configuration": ".method",
+    "CutoffOutsideSpan": "..errors",
+    "Evaluation": ".run",
+    "GlobalPageRank": ".baselines",
+    "Grid": ".sweeps",
+    "MostRead": ".baselines",
+    "NothingToEvaluate": "..errors",
+    "OutLinks": ".baselines",
+    "PairedComparison": ".statistics",
+    "PersonalisedPageRank": ".method",
+    "Queries": ".splits",
+    "RandomPages": ".baselines",
+    "Split": ".splits",
+    "TeamMostRead": ".baselines",
+    "Views": ".splits",
+    "assert_no_leakage": ".splits",
+    "average_precision": ".metrics",
+    "bootstrap_ci": ".statistics",
+    "check_recommendations": ".baselines",
+    "choose_configuration": ".sweeps",
+    "coverage": ".metrics",
+    "dcg": ".metrics",
+    "evaluate_lists": ".metrics",
+    "excluded_pages": ".splits",
+    "hit_rate": ".metrics",
+    "intra_list_diversity": ".metrics",
+    "last_n_split": ".splits",
+    "load_data": ".run",
+    "make_split": ".run",
+    "ndcg": ".metrics",
+    "novelty": ".metrics",
+    "paired_difference": ".statistics",
+    "precision": ".metrics",
+    "rankrec_lists": ".method",
+    "recall": ".metrics",
+    "reciprocal_rank": ".metrics",
+    "run_evaluation": ".run",
+    "session_split": ".splits",
+    "temporal_split": ".splits",
+    "unvisited_share": ".metrics",
+    "validation_split": ".sweeps",
+}
 
 __all__ = [
     "Choice",
@@ -97,3 +109,11 @@ __all__ = [
     "unvisited_share",
     "validation_split",
 ]
+
+
+def __getattr__(name: str):
+    if name not in _WHERE:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(import_module(_WHERE[name], __name__), name)
+    globals()[name] = value
+    return value

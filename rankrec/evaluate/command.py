@@ -48,9 +48,9 @@ def _bar(total: int):
 
 def evaluate(args: argparse.Namespace, out=None) -> int:
     """Run ``rankrec evaluate``; prints the headline table and where the report is."""
+    from .grid import Grid
     from .report import write_report
     from .run import load_data, make_split, open_store, run_evaluation
-    from .sweeps import Grid
 
     out = out or sys.stdout
     try:  # settings first, so that a bad value costs no reading (the library checks its own)
@@ -269,7 +269,7 @@ def register(commands) -> None:
     )
     settings.add_argument("--no-sweep", action="store_true", help="use these settings as they are")
     grid = command.add_argument_group("sweep grids (comma-separated values)")
-    from .sweeps import GRID_NAMES, Grid  # the grid's own defaults, shown as they are
+    from .grid import GRID_NAMES, Grid  # the grid's own defaults, shown as they are
 
     grid_defaults = Grid()
     shown = {name: ",".join(f"{value:g}" for value in getattr(grid_defaults, name)) for name in GRID_NAMES}

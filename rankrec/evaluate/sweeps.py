@@ -39,47 +39,13 @@ from .._validation import check_count
 from ..configuration import Configuration
 from ..errors import NothingToEvaluate
 from ..progress import Progress, report
+from .grid import GRID_NAMES, SPLIT_NAMES, Grid
 from .links import editorial_validation, held_out_links_split
 from .method import rankrec_lists
 from .metrics import evaluate_lists
 from .splits import Split, last_n_split, session_split, temporal_split
 
-SPLIT_NAMES = ("temporal", "last-n", "sessions", "links", "editorial")
-GRID_NAMES = ("damping", "lift", "half_life_days", "navigation_weight", "text_weight", "title_weight")
-
-
-@dataclass(frozen=True)
-class Grid:
-    """The values each sweep tries (common practice: damping around the classic 0.85; half-lives from a
-    week to a year; navigation weight, lift and text weight over their whole useful range: lift below 0
-    leans towards pages important site-wide, above 0 away from them)."""
-
-    damping: tuple[float, ...] = (0.5, 0.7, 0.85, 0.95)
-    lift: tuple[float, ...] = (-1.0, -0.5, 0.0, 0.25, 0.5, 0.75, 1.0)
-    half_life_days: tuple[float, ...] = (7.0, 30.0, 90.0, 365.0)
-    navigation_weight: tuple[float, ...] = (0.0, 0.3, 0.6, 0.9)
-    text_weight: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75)
-    title_weight: tuple[float, ...] = (0.4,)
-
-    def __post_init__(self) -> None:
-        for name in GRID_NAMES:
-            values = tuple(float(value) for value in getattr(self, name))
-            if not values:
-                raise ValueError(f"grid {name} must hold at least one value; got {getattr(self, name)!r}")
-            for value in values:  # Configuration validates each value's range
-                Configuration(**{name: value})
-            object.__setattr__(self, name, values)
-
-    @property
-    def solves(self) -> int:
-        """Upper bound of the index builds (damping × lift, half-life × navigation weight, damping × lift
-        again, then text weight × lift when related lists mix text or a ranker, and the hub rule)."""
-        return (
-            2 * len(self.damping) * len(self.lift)
-            + len(self.half_life_days) * len(self.navigation_weight)
-            + len(self.text_weight) * len(self.lift)
-            + 1
-        )  # an upper bound
+__all__ = ["GRID_NAMES", "SPLIT_NAMES", "Choice", "Grid", "Sweep", "choose_configuration", "validation_split"]
 
 
 @dataclass(frozen=True, eq=False)

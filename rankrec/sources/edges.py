@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._validation import ID_MAX_CHARS
 from ..errors import InputError
 from ._fields import FieldError, column_count_reason, parse_id, parse_weight, rows_of
 from ._text import check_encoding, line_blocks
@@ -247,9 +248,10 @@ class _Lines:
         self._at = len(self._block)
 
 
-def _plain_fields(block: list | None) -> tuple[int, list[str], list[str]] | None:
-    """``(first line, sources, targets)`` of a block of lines that are all plain ``source,target`` rows
-    (one comma each; no quote, tab or ``#``; no bad line), split in C; None for any other block."""
+def _plain_fields(block: list | None) -> tuple[int, list[str], list[str], bool] | None:
+    """``(first line, sources, targets, clean)`` of a block of lines that are all plain ``source,target``
+    rows (one comma each; no quote, tab or ``#``; no bad line), split in C, ``clean`` when every field is
+    an id as it stands (:func:`_clean`); None for any other block."""
     if not block:
         return None
     try:
@@ -259,17 +261,37 @@ def _plain_fields(block: list | None) -> tuple[int, list[str], list[str]] | None
     joined = "\n".join(texts)
     if '"' in joined or "\t" in joined or "#" in joined or set(map(str.count, texts, repeat(","))) != {1}:
         return None
-    fields = joined.replace("\n", ",").split(",")
-    return block[0][0], fields[0::2], fields[1::2]
+    flat = joined.replace("\n", ",")
+    fields = flat.split(",")
+    return block[0][0], fields[0::2], fields[1::2], _clean(flat, fields)
+
+
+def _clean(flat: str, fields: list[str]) -> bool:
+    """Whether every one of ``fields`` (``flat``: them joined by commas) is an id as it stands, judged in
+    C for ASCII text: not empty, no blank at either end, no control character, not too long (what
+    :func:`parse_id` checks field by field; other text is checked that way)."""
+    if not flat.isascii() or min(flat) < " " or "\x7f" in flat:
+        return False
+    if flat[0] in ", " or flat[-1] in ", " or ",," in flat or " ," in flat or ", " in flat:
+        return False
+    return max(map(len, fields)) <= ID_MAX_CHARS
 
 
 def _block_links(
-    run: _Run, seen: _SeenLinks, first: int, sources: list[str], targets: list[str], numbers, names
+    run: _Run,
+    seen: _SeenLinks,
+    first: int,
+    sources: list[str],
+    targets: list[str],
+    clean: bool,
+    numbers,
+    names,
 ) -> Iterator[EdgeRows | InputError]:
     """The rows of a plain block (lines ``first``, ``first + 1``, ...) as :func:`_read` reads them one by
     one: the ids seen before looked up a column at a time, the others checked and numbered row by row
-    (:func:`_endpoints`), then every row added to ``run`` in line order, each endpoint first seen with
-    the row that brought it, and each bad row an InputError after the run so far."""
+    (:func:`_endpoints`; in a ``clean`` block, whose fields are all ids as they stand, only numbered),
+    then every row added to ``run`` in line order, each endpoint first seen with the row that brought
+    it, and each bad row an InputError after the run so far."""
     count, get = len(sources), numbers.get
     # a row's source is mostly the row before's: each distinct one looked up once in the (large) map
     distinct = {field: get(field, -1) for field in dict.fromkeys(sources)}
@@ -283,7 +305,15 @@ def _block_links(
         if source is not None and target is not None and source != target:  # both seen earlier in the block
             source_numbers[row], target_numbers[row] = source, target
             continue
-        found = _endpoints(run.name, first + row, fields, numbers, names, new_pages)
+        if clean:  # ids as they stand: what _endpoints does, without checking them one by one
+            if source is None:
+                source = _new_page(fields[0], first + row, numbers, names, new_pages)
+            target = get(fields[1])  # (the source, when it is the target too)
+            if target is None:
+                target = _new_page(fields[1], first + row, numbers, names, new_pages)
+            found = _self_link(run.name, first + row, fields[0]) if source == target else (source, target)
+        else:
+            found = _endpoints(run.name, first + row, fields, numbers, names, new_pages)
         if isinstance(found, InputError):
             errors[row] = found
         else:
@@ -389,6 +419,14 @@ def _self_link(name: str, line: int, page: str) -> InputError:
     return InputError(name, line, f"self-link: source and target are both {page!r}")
 
 
+def _new_page(page: str, line: int, numbers: dict[str, int], names: list[str], new_pages: list) -> int:
+    """The number of ``page``, an id first seen on ``line`` (numbered, added to ``new_pages``)."""
+    number = numbers[page] = len(names)
+    names.append(page)
+    new_pages.append((line, page))
+    return number
+
+
 def _numbered(
     line: int, field: str, page: str, numbers: dict[str, int], names: list[str], new_pages: list
 ) -> int:
@@ -396,8 +434,6 @@ def _numbered(
     line) when first seen; ``field`` as given maps to it too."""
     found = numbers.get(page)
     if found is None:
-        found = numbers[page] = len(names)
-        names.append(page)
-        new_pages.append((line, page))
+        found = _new_page(page, line, numbers, names, new_pages)
     numbers[field] = found
     return found
