@@ -223,6 +223,8 @@ def test_a_version_1_store_still_reads_and_is_converted_by_its_first_write(tmp_p
         summary = wiki_stats(store)
         before = store.link_rows()
     assert before == [("a", "ghost", 1.0), ("a", "c", 1.0), ("c", "a", 2.5)]  # source, then target row order
+    with Store(wiki, create=False) as store:
+        assert store.stored_link_count() == 3 and store.counts()["links"] == 2  # one link to a missing page
     assert summary["worst_unresolved_targets"] == [{"target": "ghost", "links": 1, "at": "a.md"}]
     assert summary["same_page_links"] == 0
     folder = write(tmp_path / "wiki", {"b.md": "# B\n\n[ghost](ghost.md) [me](#b)\n"})
