@@ -6,7 +6,7 @@ arrays: sources and targets (int32 row ids), weights (float64), files (int32 ``l
 not known) and lines (int64, -1 when not known), sorted by source then target, each pair once. A
 million-page wiki is a thousand rows instead of ten million, written and read whole with numpy: an
 edge list of ten million links is stored in seconds, where a row per link and its index took minutes
-(measured: README, "Import throughput").
+(measured: README, "Importing").
 
 Writes are held in :class:`PendingLinks` (puts and clears in the order they came) and merged into the
 blocks they touch by :func:`settle`, when many are held, before a read inside the write transaction,
@@ -148,6 +148,8 @@ def settle(connection: sqlite3.Connection, pending: PendingLinks, path: str) -> 
 
 def _write(connection: sqlite3.Connection, links: Links) -> None:
     """Insert the blocks of ``links`` (sorted by source and target, blocks not stored yet)."""
+    if links.size and max(int(links.sources.max()), int(links.targets.max())) >= 2**31:
+        raise OverflowError("page row ids past 2**31 - 1 do not fit the link blocks' int32 columns")
     block = links.sources.astype(np.int64) // BLOCK_SOURCES
     ends = np.flatnonzero(_last_of_runs(block)) + 1
     starts = np.r_[0, ends[:-1]].astype(np.int64) if ends.size else ends

@@ -105,3 +105,16 @@ def test_a_damaged_block_is_an_input_error_naming_the_store(tmp_path):
     with Store(wiki, create=False) as store, pytest.raises(InputError, match="damaged wiki store") as caught:
         store.link_arrays()
     assert caught.value.file == str(wiki)
+
+
+def test_a_page_row_id_past_int32_is_refused_not_wrapped():
+    # The blocks keep row ids as int32: a store whose page ids grew past 2**31 - 1 (SQLite allows 2**63)
+    # must stop the write, not store a wrapped id, and the transaction leaves nothing behind.
+    with Store(":memory:") as store:
+        with store.transaction():
+            far = "INSERT INTO pages (id, page, present) VALUES (?, 'ops/far', 1)"
+            store.connection.execute(far, (2**31,))
+        with pytest.raises(OverflowError, match="int32"), store.transaction():
+            store.put_links([("ops/a", "ops/far", 1.0)])
+        assert store.link_rows() == []
+        assert store.scalar("SELECT count(*) FROM pages WHERE page = 'ops/a'") == 0
