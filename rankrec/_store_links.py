@@ -59,8 +59,9 @@ class Links:
     lines: np.ndarray
 
     @classmethod
-    def empty(cls) -> Links:
-        return cls(*(np.zeros(0, dtype=_TYPES[name]) for name in _ALL))
+    def of(cls, columns: dict[str, np.ndarray]) -> Links:
+        """Links with the given columns, the others empty."""
+        return cls(*(columns[name] if name in columns else np.zeros(0, _TYPES[name]) for name in _ALL))
 
     @classmethod
     def joined(cls, parts: list[Links]) -> Links:
@@ -185,8 +186,7 @@ def _read(
             reason = f"its link blocks hold {len(data)} bytes of {name}, not {expected * width}"
             raise InputError(path, None, f"damaged wiki store: {reason}")
         columns[name] = np.frombuffer(data, dtype=_TYPES[name])
-    empty = Links.empty()
-    return Links(*(columns.get(name, getattr(empty, name)) for name in _ALL))
+    return Links.of(columns)
 
 
 def has_legacy(connection: sqlite3.Connection) -> bool:
@@ -212,9 +212,7 @@ def stored_links(connection: sqlite3.Connection, names: tuple[str, ...], path: s
     )  # read row by row into one array, never a list of ten million tuples
     flat = np.fromiter(itertools.chain.from_iterable(cursor), dtype=np.float64, count=count * 5)
     table = flat.reshape(count, 5)
-    links = Links(*(table[:, column].astype(_TYPES[name]) for column, name in enumerate(_ALL)))
-    empty = Links.empty()
-    return Links(*(getattr(links if name in names else empty, name) for name in _ALL))
+    return Links.of({name: table[:, _ALL.index(name)].astype(_TYPES[name]) for name in names})
 
 
 def stored_count(connection: sqlite3.Connection) -> int:

@@ -46,6 +46,7 @@ class StoreReads:
     path: str
     _text_tables: bool
     _pending_links: object  # rankrec._store_links.PendingLinks, merged by the store's _settle_links
+    _snapshot: dict | None  # inside a reading block: what it read (:meth:`_kept`), else None
 
     # -- plain queries -------------------------------------------------------------------------
     def scalar(self, sql: str, parameters: tuple = ()):
@@ -257,18 +258,42 @@ class StoreReads:
         return [found[int(row)] for row in rows]
 
     def _present(self) -> np.ndarray:
-        """Whether each page row id (0 to the largest) is a present page."""
+        """Whether each page row id (0 to the largest) is a present page (read-only)."""
+        return self._kept("present", self._read_present)
+
+    def _read_present(self) -> np.ndarray:
         top = self.scalar("SELECT coalesce(max(id), 0) FROM pages")
         present = np.zeros(top + 1, dtype=bool)
         present[self.present_pages()[0]] = True
+        present.flags.writeable = False
         return present
 
     def _links(self, names: tuple[str, ...]) -> Links:
         """Every stored link, the ``names`` columns of :class:`~rankrec._store_links.Links` filled (the
-        link writes of a write transaction merged in first)."""
+        link writes of a write transaction merged in first). Inside a reading block each column is
+        decoded once (``rankrec stats`` asks for the links twenty times and more)."""
+        self._settled()
+        if self._snapshot is None:
+            return stored_links(self.connection, names, self.path)
+        missing = tuple(name for name in names if name not in self._snapshot)
+        if missing:
+            read = stored_links(self.connection, missing, self.path)
+            self._snapshot.update({name: getattr(read, name) for name in missing})
+        return Links.of({name: self._snapshot[name] for name in names})
+
+    def _kept(self, key: str, read):
+        """``read()``, or inside a reading block what it gave the first time there (the snapshot
+        cannot change until the block ends)."""
+        if self._snapshot is None:
+            return read()
+        if key not in self._snapshot:
+            self._snapshot[key] = read()
+        return self._snapshot[key]
+
+    def _settled(self) -> None:
+        """Merge the link writes a write transaction holds, so that a read sees them."""
         if self._pending_links:
             self._settle_links()
-        return stored_links(self.connection, names, self.path)
 
     def most_viewed_public_pages(self) -> list[tuple[str, str | None]]:
         """``(page, space)`` of viewed pages that are neither archived nor in an access group.

@@ -9,8 +9,7 @@ import functools
 import hashlib
 import json
 import zlib
-from collections.abc import Iterable, Iterator, Sequence
-from contextlib import contextmanager
+from collections.abc import Iterable, Sequence
 from operator import itemgetter
 
 import numpy as np
@@ -109,12 +108,11 @@ class StoreWrites:
             texts,
         )
 
-    @contextmanager
-    def links_loading(self) -> Iterator[bool]:
-        """Inside :meth:`transaction`, around writing many links: gives whether the store held no links
-        yet, in which case no page has old out-links (or places of them) to forget."""
+    def holds_no_links(self) -> bool:
+        """Whether the store holds no links (nor places of them): then no page has old out-links to
+        forget before its new ones."""
         held = self.connection.execute("SELECT 1 FROM link_occurrences LIMIT 1").fetchone()
-        yield held is None and self._links(("sources",)).size == 0
+        return held is None and self.stored_link_count() == 0
 
     def put_named_pages(self, pages: Sequence[str], origins: Sequence[str]) -> list[int]:
         """Mark ``pages`` present as a source that only names them does (an edge list's endpoints):

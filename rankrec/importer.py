@@ -197,8 +197,8 @@ def import_sources(
         handled += records
         report(progress, "importing", handled, 0)
 
-    with store.transaction(), store.links_loading() as no_links:
-        cleared = None if no_links else set()  # None: no page has old out-links to forget
+    with store.transaction():
+        cleared = None if store.holds_no_links() else set()  # None: no page has old out-links to forget
         for path, format in jobs:
             reports.append(
                 _import_one(store, path, format, ledger, cleared, strict, error_cap, counted, site, options)

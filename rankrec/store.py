@@ -76,6 +76,7 @@ class Store(StoreReads, StoreWrites):
         self._file_ids: dict[str, int] = {}
         self._migrated = False  # migrate() has run in this store's transactions (reset by a rollback)
         self._pending_links = PendingLinks()  # link writes not yet merged into the stored blocks
+        self._snapshot: dict | None = None  # what a reading block has read and may read again
 
     # -- lifecycle -------------------------------------------------------------------------------
     def close(self) -> None:
@@ -120,7 +121,11 @@ class Store(StoreReads, StoreWrites):
             return
         with self._transaction("BEGIN"):
             self.connection.execute("SELECT count(*) FROM meta").fetchone()  # the snapshot starts here
-            yield self
+            self._snapshot = {}  # nothing can change until the block ends: decoded links are kept
+            try:
+                yield self
+            finally:
+                self._snapshot = None
 
     @contextmanager
     def _transaction(self, begin: str) -> Iterator[None]:
@@ -208,8 +213,7 @@ class Store(StoreReads, StoreWrites):
 
     def stored_link_count(self) -> int:
         """Every stored link: between present pages, to pages no source describes, and any other."""
-        if self._pending_links:
-            self._settle_links()
+        self._settled()
         return stored_count(self.connection)
 
     def unresolved_link_origins(

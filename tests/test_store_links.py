@@ -118,3 +118,28 @@ def test_a_page_row_id_past_int32_is_refused_not_wrapped():
             store.put_links([("ops/a", "ops/far", 1.0)])
         assert store.link_rows() == []
         assert store.scalar("SELECT count(*) FROM pages WHERE page = 'ops/a'") == 0
+
+
+def test_a_reading_block_decodes_each_link_column_once(monkeypatch):
+    # `rankrec stats` asks for the links once for every worst target and page besides its counts (each a
+    # whole decode of the blocks): inside one reading block the snapshot cannot change, so each column is
+    # decoded once, and the figures are those read outside a block.
+    import rankrec._store_reads as reads
+    from rankrec.stats import wiki_stats
+
+    with Store(":memory:") as store:
+        with store.transaction():
+            store.put_named_pages(["ops/a", "ops/b"], ["links.csv:1", "links.csv:2"])
+            store.put_links([("ops/a", f"ops/gone{n % 3}", 1.0, "a.md", n + 1) for n in range(6)])
+            store.put_links([("ops/b", "ops/gone0", 1.0, "b.md", 7), ("ops/a", "ops/b", 1.0)])
+        outside = (store.counts(), store.unresolved_link_origins(target="ops/gone0"), store.link_rows())
+        asked: list[str] = []
+        real = reads.stored_links
+        monkeypatch.setattr(reads, "stored_links", lambda *a: asked.extend(a[1]) or real(*a))
+        summary = wiki_stats(store)
+        decoded = list(asked)
+        with store.reading():
+            inside = (store.counts(), store.unresolved_link_origins(target="ops/gone0"), store.link_rows())
+    assert len(summary["worst_unresolved_targets"]) == 3 and len(summary["pages_with_most_unresolved"]) == 2
+    assert sorted(decoded) == sorted(set(decoded))  # stats: every column decoded once
+    assert inside == outside

@@ -131,8 +131,8 @@ def clip_utf8(text: str, limit: int) -> str:
 class EdgeRows:
     """A run of an edge list's good rows, column by column: what a PageRecord per endpoint first seen
     and a LinkRecord per row would say, without an object per row (a list of ten million links is read
-    in about a minute). ``pages`` are the endpoints first seen in the run, ``page_lines`` the line of
-    each; ``source_numbers``, ``target_numbers``, ``weights`` and ``lines`` hold one entry per link. A
+    in about a minute and a half). ``pages`` are the endpoints first seen in the run, ``page_lines`` the
+    line of each; ``source_numbers``, ``target_numbers``, ``weights`` and ``lines`` hold one entry per link. A
     page's number counts the pages of the file in the order they were first seen (the pages of the
     file's runs, one run after another), ``names`` gives its id. Every id is checked.
     """
