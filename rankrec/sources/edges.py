@@ -318,8 +318,9 @@ def _block_links(
             errors[row] = found
         else:
             source_numbers[row], target_numbers[row] = found[0], found[1]
-    for row in np.flatnonzero(source_numbers == target_numbers).tolist():  # self-links of known pages
-        errors.setdefault(row, _self_link(run.name, first + row, names[source_numbers[row]]))
+    for row in np.flatnonzero(source_numbers == target_numbers).tolist():
+        if row not in errors:  # a self-link of a page seen before (a bad row keeps its own error)
+            errors[row] = _self_link(run.name, first + row, names[source_numbers[row]])
     block = _Block(first, source_numbers, target_numbers, new_pages)
     start = 0
     for row in sorted(errors):
