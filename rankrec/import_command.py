@@ -7,7 +7,7 @@ import sys
 
 from ._cli_common import pseudonym_key, step_bars, worker_count
 from ._output import print_mapping
-from .sources import FORMATS, ROOT_RELATIVE, SAME_PAGE, SPACE_MODES, check_base_url, detect_format
+from .sources import ALIASES, FORMATS, ROOT_RELATIVE, SAME_PAGE, SPACE_MODES, check_base_url, detect_format
 from .sources.records import DEFAULT_EXCLUDE
 
 
@@ -133,6 +133,9 @@ def _cmd_import(args: argparse.Namespace) -> int:
         same_page, root_relative = dropped.pop(SAME_PAGE, 0), dropped.pop(ROOT_RELATIVE, 0)
         if same_page:
             line += f"; {same_page:,} same-page links (to the page itself) counted apart"
+        aliases = dropped.pop(ALIASES, 0)
+        if aliases:
+            line += f"; {aliases:,} symbolic links to other page files read as those pages"
         if dropped:
             line += "; dropped " + ", ".join(f"{n:,} {why}" for why, n in sorted(dropped.items()))
         print(line)

@@ -18,7 +18,7 @@ from typing import Any
 from .._validation import ID_MAX_CHARS, check_id
 from ..errors import InputError, UsageError
 from ._fields import FieldError, parse_timestamp
-from ._links import ROOT_RELATIVE, SAME_PAGE, check_base_url
+from ._links import ALIASES, ROOT_RELATIVE, SAME_PAGE, check_base_url
 from ._parallel import PARSING
 from ._site_shape import SiteShape, shape_site
 from ._site_spaces import SPACE_MODES
@@ -28,6 +28,7 @@ from .records import Origin, Record, ViewRecord
 from .views import check_view
 
 __all__ = [
+    "ALIASES",
     "FORMATS",
     "ID_MAX_CHARS",
     "ROOT_RELATIVE",

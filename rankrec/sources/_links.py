@@ -32,6 +32,7 @@ NOT_A_PAGE = "not-a-page"  # another file of the folder (an image, a PDF): dropp
 
 # What the folder readers count in a ``tally`` (a Counter) without it being a bad record.
 SAME_PAGE = "same-page links"  # a page's links to itself: section anchors, its own file
+ALIASES = "page aliases"  # page files that are symbolic links to other page files of the folder
 ROOT_RELATIVE = "root-relative links"  # HTML ``href="/x"`` read without a base URL: left out
 
 _HEADING_CHARS = 80  # of a heading's text in a Markdown place
@@ -53,6 +54,7 @@ class FolderFiles:
     pages: list[tuple[str, str]] = field(default_factory=list)  # (relative POSIX path, file name)
     others: set[str] = field(default_factory=set)  # relative POSIX paths of non-page files
     refused: list[tuple[str, InputError]] = field(default_factory=list)  # (relative path, why)
+    aliases: dict[str, str] = field(default_factory=dict)  # page id of a link to a page file -> its page id
 
 
 def walk_folder(folder: str | os.PathLike[str], suffixes: tuple[str, ...]) -> FolderFiles:
@@ -63,7 +65,9 @@ def walk_folder(folder: str | os.PathLike[str], suffixes: tuple[str, ...]) -> Fo
     A page file is refused (with the reason, in ``refused``) when it is a symbolic link whose
     real path lies outside the folder, or is not a regular file (a FIFO, a device, a socket,
     a folder; POSIX file types), or cannot be looked at. Symbolic links to folders are not
-    followed (so the walk cannot loop); links to files inside the folder are.
+    followed (so the walk cannot loop); links to files inside the folder are. A symbolic link to another
+    page file of the folder is no page of its own but an alias (``aliases``): generated sites link
+    ``index.html`` to their contents page, and two pages of one text would crowd each other's lists.
     """
     found = FolderFiles()
     root = os.fspath(folder)
@@ -86,7 +90,23 @@ def walk_folder(folder: str | os.PathLike[str], suffixes: tuple[str, ...]) -> Fo
                 found.refused.append((relative, InputError(file, None, f"{problem}; file skipped")))
     found.pages.sort()
     found.refused.sort(key=lambda item: item[0])
+    _fold_aliases(found, real_root)
     return found
+
+
+def _fold_aliases(found: FolderFiles, real_root: str) -> None:
+    """Move the page files that are symbolic links to another listed page file (not itself a link) from
+    ``pages`` to ``aliases``, by page id."""
+    links = [(relative, file) for relative, file in found.pages if os.path.islink(file)]
+    if not links:
+        return
+    plain = {relative for relative, file in found.pages if not os.path.islink(file)}
+    for relative, file in links:
+        target = Path(os.path.relpath(os.path.realpath(file), real_root)).as_posix()
+        if target in plain and page_id_for_path(target) != page_id_for_path(relative):
+            found.aliases[page_id_for_path(relative)] = page_id_for_path(target)
+    if found.aliases:
+        found.pages = [item for item in found.pages if page_id_for_path(item[0]) not in found.aliases]
 
 
 def page_file_problem(file: str, real_root: str) -> str | None:
@@ -319,17 +339,22 @@ def url_link_target(url: str, base_url: str, others: Collection[str] = frozenset
 
 
 def link_records(
-    source: str, file: str, targets: Iterable[tuple[int | None, str, str]]
+    source: str,
+    file: str,
+    targets: Iterable[tuple[int | None, str, str]],
+    aliases: dict[str, str] | None = None,
 ) -> Iterator[LinkRecord | InputError]:
     """One LinkRecord per distinct target of page ``source``, self-links as InputErrors.
 
-    ``targets`` are ``(line, target, place)`` per link occurrence, in document order. A
-    record has the line of the target's first occurrence and every place it occurs in, with
-    how often (first occurrence first).
+    ``targets`` are ``(line, target, place)`` per link occurrence, in document order; a target that is
+    an alias (:attr:`FolderFiles.aliases`) stands for the page it leads to. A record has the line of
+    the target's first occurrence and every place it occurs in, with how often (first occurrence first).
     """
     lines: dict[str, int | None] = {}
     places: dict[str, dict[str, int]] = {}
     for line, target, place in targets:
+        if aliases:
+            target = aliases.get(target, target)
         counts = places.get(target)
         if counts is None:
             lines[target] = line

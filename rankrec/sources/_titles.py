@@ -3,7 +3,8 @@
 Documentation generators put the site's name after (or before) every page's own title, set off by a
 separator: a dash, en dash or em dash, a pipe or a middle dot with blanks around it, or a colon followed by
 a blank. A *title suffix* is the separator and the whole segments after it; a *title prefix* the whole
-segments before it and the separator. One that at least :data:`COMMON_SHARE` of the pages carry (and at
+segments before it and the separator. A parenthesised last part is a title suffix too (API reference
+generators write "Widget (Acme Lib 3.1 API)"). One that at least :data:`COMMON_SHARE` of the pages carry (and at
 least :data:`MIN_PAGES` of them) is the site's, and is cut off; the longest such one wins, so a suffix of
 two segments (" | Guides | Acme") is cut whole. A title that is nothing but the affix is kept as it is.
 """
@@ -23,6 +24,8 @@ MIN_PAGES = 2
 
 # A separator: a dash, en dash, em dash, pipe or middle dot between blanks, or a colon before a blank.
 _SEPARATOR = re.compile(r"\s+[-\u2013\u2014|\u00b7]\s+|:\s+")
+# A parenthesised last part, blanks before it: " (Acme Lib 3.1 API)".
+_LAST_PART = re.compile(r"\s+\([^()]+\)\s*$")
 
 
 @dataclass(frozen=True, slots=True)
@@ -58,6 +61,9 @@ def _affixes(title: str) -> tuple[set[str], set[str]]:
         if head.strip() and tail.strip():
             prefixes.add(title[: match.end()])
             suffixes.add(title[match.start() :])
+    last = _LAST_PART.search(title)
+    if last is not None and title[: last.start()].strip():
+        suffixes.add(title[last.start() :])
     return prefixes, suffixes
 
 
@@ -70,6 +76,8 @@ def detect_title_affixes(titles: Iterable[str]) -> TitleAffixes:
     'Acme: '
     >>> bool(detect_title_affixes(["Install - Linux", "Upgrade - Windows", "Remove"]))
     False
+    >>> detect_title_affixes(["Widget (Acme Lib 3.1 API)", "Gear (Acme Lib 3.1 API)", "Source"]).suffix
+    ' (Acme Lib 3.1 API)'
     """
     prefix_counts: Counter[str] = Counter()
     suffix_counts: Counter[str] = Counter()

@@ -41,6 +41,7 @@ from ..errors import InputError
 from ..progress import Progress
 from ._front_matter import Meta, read_front_matter, split_front_matter
 from ._links import (
+    ALIASES,
     EXTERNAL,
     JUMP,
     OUTSIDE,
@@ -329,6 +330,9 @@ def _read(
     files, pages = folder_pages(folder, _SUFFIXES, "Markdown")
     parsed: list[_Parsed] = []
     context = (encoding, files.others if files else set())
+    aliases = files.aliases if files else {}
+    if aliases:
+        tally[ALIASES] += len(aliases)
     for result in parse_in_order(_parse_file, context, pages, workers=workers, progress=progress):
         if isinstance(result, InputError):
             yield result
@@ -347,7 +351,7 @@ def _read(
             (line, value if kind == PAGE else resolve(value), place)
             for line, kind, value, place in item.links
         )
-        yield from link_records(item.record.page, item.record.origin.file, targets)
+        yield from link_records(item.record.page, item.record.origin.file, targets, aliases)
 
 
 def _wiki_resolver(records: list[PageRecord]):

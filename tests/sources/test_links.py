@@ -4,11 +4,13 @@ from __future__ import annotations
 
 import os
 import threading
+from collections import Counter
 from urllib.parse import urljoin
 
 import pytest
 
 from rankrec.errors import InputError
+from rankrec.sources import ALIASES, read_source
 from rankrec.sources._links import (
     EXTERNAL,
     JUMP,
@@ -21,7 +23,9 @@ from rankrec.sources._links import (
     remove_dot_segments,
     resolve_reference,
     url_link_target,
+    walk_folder,
 )
+from rankrec.sources.records import LinkRecord, PageRecord
 
 RFC3986_BASE = "http://a/b/c/d;p?q"
 
@@ -240,8 +244,29 @@ def test_links_inside_the_folder_are_followed_and_folder_links_cannot_loop(tmp_p
     (wiki / "sub" / "loop").symlink_to(wiki, target_is_directory=True)  # a loop back to the root
     (wiki / "away").symlink_to(outside, target_is_directory=True)  # a folder outside
     pages, errors = pages_and_errors(wiki)
-    assert pages == ["a.md", "alias.md", "sub/b.md"]  # neither folder link is walked into
+    assert pages == ["a.md", "sub/b.md"]  # neither folder link is walked into; alias.md is sub/b's alias
     assert errors == {}
+    assert walk_folder(wiki, (".md",)).aliases == {"alias": "sub/b"}
+
+
+@posix_only
+def test_a_link_to_a_page_file_is_an_alias_and_links_to_it_reach_that_page(tmp_path):
+    # Generated HTML sites link index.html to their contents page (Debian's git-doc: index.html ->
+    # git.html); read as two pages of one text, each would top the other's related list.
+    site = tmp_path / "site"
+    (site / ".hidden").mkdir(parents=True)
+    (site / "main.html").write_text('<html><title>Main</title><a href="guide.html">guide</a></html>')
+    (site / "guide.html").write_text('<html><title>Guide</title><a href="index.html">home</a></html>')
+    (site / "index.html").symlink_to("main.html")
+    (site / ".hidden" / "note.html").write_text("<html><title>Note</title></html>")
+    (site / "note.html").symlink_to(".hidden/note.html")  # leads to no listed page file: a page of its own
+    tally = Counter()
+    records = [r for r in read_source(site, "html", tally=tally) if not isinstance(r, InputError)]
+    pages = sorted(r.page for r in records if isinstance(r, PageRecord))
+    links = sorted((r.source, r.target) for r in records if isinstance(r, LinkRecord))
+    assert pages == ["guide", "main", "note"]
+    assert links == [("guide", "main"), ("main", "guide")]
+    assert tally[ALIASES] == 1
 
 
 @posix_only
