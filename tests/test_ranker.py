@@ -23,11 +23,20 @@ from hypothesis import strategies as st
 from rankrec.build import build_from_evidence
 from rankrec.configuration import Configuration
 from rankrec.evaluate.links import held_out_links_split
+from rankrec.evaluate.tasks import excluded_pages
 from rankrec.evidence import Evidence
 from rankrec.index import load_index
 from rankrec.pagerank import personalised_pagerank, prepare
 from rankrec.profiles import ViewLog
-from rankrec.ranker.features import CLICK_WALK, FEATURES, Signals, candidate_pool, click_walk, pair_features
+from rankrec.ranker.features import (
+    CLICK_WALK,
+    FEATURES,
+    POOL,
+    Signals,
+    candidate_pool,
+    click_walk,
+    pair_features,
+)
 from rankrec.ranker.model import Ranker
 from rankrec.ranker.training import SESSION_WINDOWS, _session_windows, examples, fit_lightgbm
 from rankrec.recommend import Reader, related
@@ -197,14 +206,20 @@ def test_the_pages_read_in_most_sessions_are_candidates_of_every_seed_and_their_
     assert column["views_out_degree"][at[29]] == pytest.approx(np.log1p(9) * np.log1p(out_degree))
 
 
+def _held_out_inputs(split):
+    """Signals and transition of a held-out-links split's remaining links, its query pages and their
+    vectors."""
+    signals, transition = _signals(split.links)
+    seeds = split.queries.pages[:, 0]
+    return signals, transition, seeds, [_vector(transition, int(page)) for page in seeds]
+
+
 @settings(max_examples=10, deadline=None)
 @given(seed=st.integers(min_value=0, max_value=1000))
 def test_no_hidden_link_reaches_the_features_of_its_own_query(seed):
     adjacency, _ = _adjacency(50, 0.15, seed=seed)
     split = held_out_links_split(adjacency, share=0.3, seed=seed)
-    signals, transition = _signals(split.links)
-    seeds = split.queries.pages[:, 0]
-    vectors = [_vector(transition, int(page)) for page in seeds]
+    signals, transition, seeds, vectors = _held_out_inputs(split)
     features, labels, groups, _, _ = examples(signals, seeds, vectors, split.relevant)
     out_link = features[:, FEATURES.index("out_link")]
     assert labels.sum() > 0
@@ -215,12 +230,33 @@ def test_no_hidden_link_reaches_the_features_of_its_own_query(seed):
     assert np.array_equal(again[0], features) and np.array_equal(again[2], groups)
 
 
+def test_the_links_a_query_page_keeps_are_no_training_candidates():
+    # Held-out links: the page's kept links are excluded from every evaluated list (the filtered setting
+    # of link prediction); learnt as wrong answers they would teach the model to push a page's own links
+    # down its served list. Each pool loses exactly its kept links, and no example has a direct link.
+    adjacency, _ = _adjacency(60, 0.12, seed=5)
+    split = held_out_links_split(adjacency, share=0.3, seed=2)
+    signals, transition, seeds, vectors = _held_out_inputs(split)
+    excluded = excluded_pages(split)
+    features, labels, groups, _, _ = examples(signals, seeds, vectors, split.relevant, excluded=excluded)
+    _, _, all_groups, _, _ = examples(signals, seeds, vectors, split.relevant)
+    kept = sp.csr_array(split.links)
+    expected = []
+    for row, page in enumerate(seeds.tolist()):
+        pool = candidate_pool(signals, page, *vectors[row], POOL, click_walk(signals, page))
+        targets = split.relevant.indices[split.relevant.indptr[row] : split.relevant.indptr[row + 1]]
+        if np.isin(pool, targets).any():
+            expected.append(
+                pool.size - np.isin(pool, kept.indices[kept.indptr[page] : kept.indptr[page + 1]]).sum()
+            )
+    assert groups.tolist() == expected and groups.sum() < all_groups.sum()
+    assert np.all(features[:, FEATURES.index("out_link")] == 0)
+
+
 def test_training_is_deterministic_under_a_seed_and_occlusion_matches_the_linear_terms():
     adjacency, _ = _adjacency(80, 0.08, seed=11)
     split = held_out_links_split(adjacency, share=0.3, seed=3)
-    signals, transition = _signals(split.links)
-    seeds = split.queries.pages[:, 0]
-    vectors = [_vector(transition, int(page)) for page in seeds]
+    signals, transition, seeds, vectors = _held_out_inputs(split)
     features, labels, groups, _, _ = examples(signals, seeds, vectors, split.relevant)
     first = fit_lightgbm(features, labels, groups, seed=4)
     second = fit_lightgbm(features, labels, groups, seed=4)
@@ -326,9 +362,7 @@ def test_a_block_of_seeds_is_ranked_and_explained_as_each_seed_alone():
     # batching the model's calls over a block must not change any list, score or reason
     adjacency, _ = _adjacency(60, 0.08, seed=21)
     split = held_out_links_split(adjacency, share=0.3, seed=2)
-    signals, transition = _signals(split.links)
-    seeds = split.queries.pages[:, 0]
-    vectors = [_vector(transition, int(page)) for page in seeds]
+    signals, transition, seeds, vectors = _held_out_inputs(split)
     features, labels, groups, _, _ = examples(signals, seeds, vectors, split.relevant)
     ranker = Ranker("lightgbm", FEATURES, {}, booster=fit_lightgbm(features, labels, groups, seed=1))
     block = ranked_block(

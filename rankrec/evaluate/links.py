@@ -10,7 +10,9 @@ so "the page's own out-links" is a baseline like any other; the text of the page
 hidden target) is not changed.
 
 The split looks like a session task with one-page prefixes (``task == "sessions"``): the query's page is
-its prefix, and the page itself is the only page excluded from its list.
+its prefix. The page itself and the links it keeps are excluded from every method's list
+(:func:`~rankrec.evaluate.tasks.excluded_pages`): its reader has those links in front of them already, so a
+list is judged on the pages it adds.
 
 The editorial-block task (:func:`editorial_split`) takes its targets from the wiki's own curated blocks
 instead: the links that sit at a place matching a pattern (``*seealso*`` for a Sphinx "See also" box,

@@ -203,8 +203,11 @@ def training_pages(split: Split) -> sp.csr_array:
 def excluded_pages(split: Split) -> sp.csr_array:
     """Queries × pages, 1 for each page no method may list for that query.
 
-    Session tasks: the query's prefix pages. User tasks with ``new_only``: the pages the user viewed in
-    training. User tasks without it: nothing.
+    Session tasks: the query's prefix pages. Tasks that hide links (``split.links``: held-out links,
+    editorial blocks): also the links the query page keeps, which its reader already has in front of
+    them, as a user task leaves out what the user read (the "filtered" setting of link-prediction
+    evaluation, common practice); a list spends no place on them, whatever the method. User tasks
+    with ``new_only``: the pages the user viewed in training. User tasks without it: nothing.
     """
     queries = len(split.queries)
     if split.task == "sessions":
@@ -214,6 +217,10 @@ def excluded_pages(split: Split) -> sp.csr_array:
         matrix = sp.csr_array(
             (np.ones(int((flat >= 0).sum())), (rows[flat >= 0], flat[flat >= 0])), shape=(queries, split.size)
         )
+        if split.links is not None and queries:
+            kept = sp.csr_array(split.links)[prefix[:, 0]]
+            ones = sp.csr_array((np.ones(kept.nnz), kept.indices, kept.indptr), shape=kept.shape)
+            matrix = sp.csr_array(matrix + ones)
         matrix.sum_duplicates()
         matrix.data[:] = 1.0
     elif split.new_only:

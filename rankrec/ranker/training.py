@@ -38,6 +38,7 @@ import scipy.sparse as sp
 
 from ..evaluate.links import editorial_pairs, editorial_split, held_out_links_split
 from ..evaluate.splits import session_split
+from ..evaluate.tasks import excluded_pages
 from ..profiles import ViewLog
 from ..progress import report
 from .features import FEATURES, POOL, Signals, candidate_pool, click_walk, pair_features
@@ -71,14 +72,27 @@ CV_QUERIES = 1500
 SESSION_WINDOWS = 3
 
 
-def examples(signals: Signals, seeds, vectors, relevant: sp.csr_array, pool: int = POOL):
+def examples(
+    signals: Signals,
+    seeds,
+    vectors,
+    relevant: sp.csr_array,
+    pool: int = POOL,
+    excluded: sp.csr_array | None = None,
+):
     """Features, labels and group sizes of every seed's candidates (seeds without a relevant candidate
-    left out), and the share of relevant pages the pools hold (their recall)."""
+    left out), and the share of relevant pages the pools hold (their recall). A row of ``excluded``
+    (:func:`rankrec.evaluate.tasks.excluded_pages`) names pages its query's list may not hold: they are
+    no candidates, neither good nor bad (with held-out links, the links the page keeps: learning them as
+    wrong answers would teach the model to push a page's own links down its served list)."""
     blocks, labels, groups, kept, found, wanted = [], [], [], [], 0, 0
     for row, (seed, (indices, values)) in enumerate(zip(seeds, vectors, strict=True)):
         targets = relevant.indices[relevant.indptr[row] : relevant.indptr[row + 1]]
         walk = click_walk(signals, int(seed))
         candidates = candidate_pool(signals, int(seed), indices, values, pool, walk)
+        if excluded is not None:
+            barred = excluded.indices[excluded.indptr[row] : excluded.indptr[row + 1]]
+            candidates = candidates[~np.isin(candidates, barred)]
         label = np.isin(candidates, targets)
         wanted += targets.size
         found += int(label.sum())
@@ -273,7 +287,8 @@ def train_ranker(
     for number, (split, reduced, _) in enumerate(windows):
         seeds = split.queries.pages[:, 0]
         signals, transition = signals_of(reduced)
-        *part, recall = examples(signals, seeds, vectors_of(transition, seeds), split.relevant)
+        vectors = vectors_of(transition, seeds)
+        *part, recall = examples(signals, seeds, vectors, split.relevant, excluded=excluded_pages(split))
         del signals, transition  # let one window's graph go before the next is made (memory at 1M pages)
         parts.append(part)
         found, wanted = found + recall * split.relevant.nnz, wanted + split.relevant.nnz

@@ -4,9 +4,10 @@ Documentation generators put the site's name after (or before) every page's own 
 separator: a dash, en dash or em dash, a pipe or a middle dot with blanks around it, or a colon followed by
 a blank. A *title suffix* is the separator and the whole segments after it; a *title prefix* the whole
 segments before it and the separator. A parenthesised last part is a title suffix too (API reference
-generators write "Widget (Acme Lib 3.1 API)"). One that at least :data:`COMMON_SHARE` of the pages carry (and at
-least :data:`MIN_PAGES` of them) is the site's, and is cut off; the longest such one wins, so a suffix of
-two segments (" | Guides | Acme") is cut whole. A title that is nothing but the affix is kept as it is.
+generators write "Widget (Acme Lib 3.1 API)"). One that at least :data:`COMMON_SHARE` of the pages
+carry (and at least :data:`MIN_PAGES` of them) is the site's, and is cut off; the longest such one wins,
+so a suffix of two segments (" | Guides | Acme") is cut whole. A title that is nothing but the affix is
+kept as it is.
 """
 
 from __future__ import annotations

@@ -19,6 +19,7 @@ from rankrec.evaluate.baselines import OutLinks, TextSimilarity
 from rankrec.evaluate.links import held_out_links_split
 from rankrec.evaluate.method import training_evidence
 from rankrec.evaluate.sweeps import validation_split
+from rankrec.evaluate.tasks import excluded_pages
 from rankrec.evidence import Evidence
 
 
@@ -83,25 +84,36 @@ def test_hidden_links_reach_no_input_and_chrome_is_never_hidden(size, p, share, 
 
 def test_link_baselines_answer_each_split_from_its_own_links():
     # Out-links can only list links it is given: on the validation split its lists must miss every link
-    # the validation split hid, though the baseline was made with the test split's links.
+    # the validation split hid, though the baseline was made with the test split's links. The links a
+    # query page keeps are excluded from every list, so on its own split's links it lists nothing.
     links = _graph(60, 0.2, seed=3)
     split = held_out_links_split(links, share=0.3, seed=1)
     validation = validation_split(split)
+    kept = excluded_pages(validation)
+    pages = validation.queries.pages[:, 0]
+    assert _pairs_of_rows(kept, pages) == {
+        (s, t) for s, t in _pairs(validation.links) if s in set(pages.tolist())
+    }
     method = OutLinks(split.links)
     lists = method.recommend(validation, 10)
-    listed = {
-        (int(page), int(target))
-        for page, row in zip(validation.queries.pages[:, 0], lists, strict=True)
-        for target in row
-        if target >= 0
-    }
-    assert listed and listed <= _pairs(validation.links)
-    assert listed.isdisjoint(_hidden(validation))
+    assert (lists < 0).all()  # reading the test split's links, it would list what validation hid
     # text similarity is not a link matrix: it keeps its own neighbours whatever links the split hides
     similar = sp.csr_array(sp.eye_array(60, k=1, format="csr"))
     text = TextSimilarity(similar).recommend(validation, 1)
-    expected = validation.queries.pages[:, 0] + 1
-    assert np.array_equal(text[:, 0][expected < 60], expected[expected < 60])
+    expected = pages + 1
+    free = np.array(
+        [page + 1 < 60 and (page, page + 1) not in _pairs(validation.links) for page in pages.tolist()]
+    )
+    assert free.any()
+    assert np.array_equal(text[free, 0], expected[free])
+
+
+def _pairs_of_rows(matrix, pages) -> set[tuple[int, int]]:
+    """(page, column) of each entry of ``matrix``, its row ``r`` standing for ``pages[r]``."""
+    coo = sp.coo_array(matrix)
+    return {(int(pages[row]), int(column)) for row, column in zip(coo.row, coo.col, strict=True)} - {
+        (int(page), int(page)) for page in pages
+    }
 
 
 @settings(max_examples=20, deadline=None)
