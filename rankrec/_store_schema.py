@@ -52,6 +52,7 @@ _LINK_FILES = "CREATE TABLE IF NOT EXISTS link_files (id INTEGER PRIMARY KEY, fi
 # made before them gains them on its next write transaction and reads as holding the default until then.
 _ADDED_COLUMNS = (
     ("pages", "same_page_links", "INTEGER NOT NULL DEFAULT 0"),  # links of the page to itself, counted
+    ("pages", "code_share", "REAL NOT NULL DEFAULT 0"),  # share of the page's text in code blocks
 )
 
 _SCHEMA = """

@@ -83,8 +83,11 @@ class StoreWrites:
         )
         if self._columns_added:  # known inside a transaction, where pages are put
             connection.executemany(
-                "UPDATE pages SET same_page_links = ? WHERE id = ?",
-                [(int(getattr(r, "same_page_links", 0)), page_id) for r, page_id in pairs],
+                "UPDATE pages SET same_page_links = ?, code_share = ? WHERE id = ?",
+                [
+                    (int(getattr(r, "same_page_links", 0)), float(getattr(r, "code_share", 0.0)), page_id)
+                    for r, page_id in pairs
+                ],
             )
         each = [(page_id,) for page_id in ids]
         for table in ("page_tags", "page_groups", "page_text"):  # constant names

@@ -38,6 +38,7 @@ from .derive import (
     pages_read,
     reading_neighbours,
     site_hubs,
+    source_listings,
 )
 from .errors import GroupTooSmall
 from .evidence import Evidence, read_evidence
@@ -227,6 +228,8 @@ def build_from_evidence(
     damping, tol = configuration.damping, configuration.tol
     seconds = dict.fromkeys(STAGES, 0.0)
     skipped = skipped_pages(evidence, configuration.skip_pages)
+    listings = source_listings(evidence) if configuration.skip_listings else np.zeros(size, dtype=bool)
+    skipped |= listings
     if skipped.any():  # kept out of every list as archived pages are
         evidence = replace(evidence, archived=evidence.archived | skipped)
     views = evidence.views.counts(size)
@@ -328,6 +331,7 @@ def build_from_evidence(
                 "precomputed": int(chosen.size),
                 "views": int(views.sum()),
                 "skipped": int(skipped.sum()),
+                "source_listings": int(listings.sum()),
                 "pages_with_text": evidence.pages_with_text,
                 "text_pairs": 0 if text is None else text.pairs,
             },

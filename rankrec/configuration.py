@@ -75,6 +75,9 @@ class Configuration:
         Share of the title-and-headings field in text similarity (the rest is the body text).
     skip_pages : tuple of str
         Shell patterns of page ids kept out of every list (generated indexes, source listings).
+    skip_listings : bool
+        Keep generated source listings out of every list: pages nearly all of whose text is code
+        (:func:`rankrec.derive.source_listings`), as API documentation generators write one per file.
     ranker : {"auto", "lightgbm", "linear", "none"}
         The related lists' order: a ranker learnt at build time from the wiki's own held-out links
         (:mod:`rankrec.ranker`: "auto" compares LightGBM's lambdarank with a linear model and keeps the
@@ -108,6 +111,7 @@ class Configuration:
     text_weight: float = 0.5
     title_weight: float = 0.4
     skip_pages: tuple[str, ...] = ()
+    skip_listings: bool = True
     ranker: str = "auto"
     ranker_queries: int = 2000
     editorial_place: str = ""
@@ -139,6 +143,8 @@ class Configuration:
         if isinstance(self.skip_pages, str) or not all(isinstance(item, str) for item in self.skip_pages):
             raise TypeError(f"skip_pages must be a list of shell patterns, not {self.skip_pages!r}")
         set_value(self, "skip_pages", tuple(self.skip_pages))
+        if not isinstance(self.skip_listings, bool):
+            raise TypeError(f"skip_listings must be true or false, not {self.skip_listings!r}")
         check_choice("ranker", self.ranker, RANKER_MODES)
         check_count("ranker_queries", self.ranker_queries)
         check_count("hub_free_top", self.hub_free_top, minimum=0)

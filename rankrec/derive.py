@@ -19,6 +19,20 @@ from .ranker.covisits import covisited_pages, page_reading, session_successors
 # with mostly chrome links
 HUB_SHARE, CHROME_HUB_SHARE = 0.2, 0.05
 INDEX_MIN_LINKS = 20  # fewest targets of an index page (common practice: a small wiki's hub pages differ)
+# a generated source listing: at least this share of the page's text in code blocks. Measured on six
+# Debian documentation packages: every Doxygen source page 0.90 or more, every Javadoc one 1.0; prose pages
+# with examples below 0.65, a README made of one build file 0.84, a licence page of licence texts 0.86;
+# pages printing whole example programs or a grammar (4 of the other 3,400 pages) 0.91 to 0.98: they count too
+LISTING_CODE_SHARE = 0.9
+
+
+def source_listings(evidence: Evidence) -> np.ndarray:
+    """Pages at least :data:`LISTING_CODE_SHARE` of whose text sits in code blocks: the per-file source
+    listings of API documentation (Javadoc's ``src-html``, Doxygen's ``*_source``, Sphinx's ``_modules``),
+    which match their own API pages' text and would top those pages' related lists."""
+    if evidence.code_share is None:
+        return np.zeros(evidence.size, dtype=bool)
+    return evidence.code_share >= LISTING_CODE_SHARE
 
 
 def chrome_only(evidence: Evidence) -> sp.csr_matrix | None:

@@ -111,6 +111,7 @@ class Evidence:
     notes: tuple[str, ...] = field(default=())
     tag_incidence: sp.csr_array | None = None  # pages × tags (int8), None when no page has a tag
     tag_names: list[str] = field(default_factory=list)
+    code_share: np.ndarray | None = None  # each page's share of text in code blocks (None: not measured)
     # text neighbours by title weight: the text does not change with the views or links a split keeps,
     # so the copies made by with_views/with_links share them (an evaluation builds many indexes)
     _text: dict = field(default_factory=dict, repr=False, compare=False)
@@ -249,6 +250,7 @@ def read_evidence(store: Store, *, topics: str = "spaces") -> Evidence:
             (space_code.get(row[1], -1) for row in rows), dtype=np.int32, count=len(rows)
         )
         archived = np.fromiter((bool(row[2]) for row in rows), dtype=bool, count=len(rows))
+        code_share = store.code_shares()
         pairs = store.page_group_pairs()
         grouped = dense_numbers(graph.row_ids, np.array([row[0] for row in pairs], dtype=np.int64))
         incidence, group_names = _group_tables(graph.size, grouped, [row[1] for row in pairs])
@@ -286,6 +288,7 @@ def read_evidence(store: Store, *, topics: str = "spaces") -> Evidence:
         bodies=bodies,
         tag_incidence=tag_incidence if tag_names else None,
         tag_names=tag_names,
+        code_share=code_share if code_share.any() else None,
     )
 
 

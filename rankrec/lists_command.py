@@ -70,6 +70,12 @@ def register(commands) -> None:
         "listings: 'genindex*', '_modules/*'); repeat for more; added to the settings file's",
     )
     build.add_argument(
+        "--keep-listings",
+        action="store_true",
+        help="let generated source listings (pages at least 90%% code, such as Javadoc's src-html or "
+        "Doxygen's *_source pages) into lists; by default they are kept out, as --skip-pages would",
+    )
+    build.add_argument(
         "--ranker",
         choices=("auto", "lightgbm", "linear", "none"),
         help="order related lists by a ranker learnt from this wiki's own sessions or held-out links "
@@ -184,6 +190,8 @@ def _build_configuration(args: argparse.Namespace, store_path: str):
             said += f" (chosen on another store: {chosen_store})"
     if getattr(args, "skip_pages", None):
         overrides["skip_pages"] = (*configuration.skip_pages, *args.skip_pages)
+    if getattr(args, "keep_listings", False):
+        overrides["skip_listings"] = False
     if overrides:
         try:
             configuration = configuration.with_values(**overrides)

@@ -211,6 +211,15 @@ class Store(StoreReads, StoreWrites):
             return 0
         return int(self.scalar("SELECT coalesce(sum(same_page_links), 0) FROM pages WHERE present = 1"))
 
+    def code_shares(self) -> np.ndarray:
+        """Each present page's share of text in code blocks (:attr:`PageRecord.code_share`), in row-id
+        order (as :meth:`present_pages`); zeros for a store older than the column."""
+        count = int(self.scalar("SELECT count(*) FROM pages WHERE present = 1"))
+        if not self._has_added_columns():
+            return np.zeros(count)
+        rows = self.connection.execute("SELECT code_share FROM pages WHERE present = 1 ORDER BY id")
+        return np.fromiter((row[0] for row in rows), dtype=np.float64, count=count)
+
     def stored_link_count(self) -> int:
         """Every stored link: between present pages, to pages no source describes, and any other."""
         self._settled()

@@ -17,6 +17,9 @@ _HEADINGS = frozenset({"h1", "h2", "h3", "h4", "h5", "h6"})
 # Inline formatting: left out of a link's place (``<p><em><a>`` sits where ``<p><a>`` does).
 _INLINE = frozenset({"span", "em", "strong", "b", "i", "code", "small", "abbr", "sup", "sub", "font"})
 _TOP = frozenset({"body", "html"})  # where a place stops
+# Code blocks: <pre>, and the classes generators give theirs (Doxygen's div.fragment of div.line rows,
+# Pygments' div.highlight, pandoc's div.sourceCode; common practice).
+_CODE_CLASSES = frozenset({"fragment", "highlight", "sourcecode"})
 _PLACE_DEPTH = 12  # elements of a place, the nearest to the link
 _PLACE_STEPS = 64  # ancestors looked at per place: bounds the work on hostile nesting
 _CLASSES = 4  # class names per element, the first in sorted order
@@ -37,17 +40,29 @@ def text_of(element) -> str:
     return " ".join(" ".join(element.itertext()).split()) if element is not None else ""
 
 
-def walk(root, excluded: set) -> tuple[list, str, str]:
-    """Links (``<a href>``), visible text and headings of a page, outside the ``excluded`` elements.
+def _is_code(node) -> bool:
+    """Whether an element is a code block (see ``_CODE_CLASSES``)."""
+    if node.tag == "pre":
+        return True
+    classes = node.get("class")
+    return bool(classes) and not _CODE_CLASSES.isdisjoint(classes.lower().split())
+
+
+def walk(root, excluded: set) -> tuple[list, str, str, float]:
+    """Links (``<a href>``), visible text, headings and code share of a page, outside the ``excluded``
+    elements.
 
     One pass in document order; a text piece is an element's text or the tail after an
-    element or comment, so pieces on either side of a hidden element stay apart.
+    element or comment, so pieces on either side of a hidden element stay apart. The code share is the
+    share of the visible text's characters (blanks left out) that sit inside code blocks.
     """
     anchors = []
     text = CappedText(TEXT_BYTES)
     headings: list[list[str]] = []  # the pieces of each heading, in document order
     open_headings: list[list[str]] = []
     hidden = 0  # hidden elements around the current node (their links still count)
+    code = []  # the code blocks around the current node
+    characters = code_characters = 0
     walk = etree.iterwalk(root, events=("start", "end", "comment", "pi"))
     for event, node in walk:
         if event == "start":
@@ -58,6 +73,8 @@ def walk(root, excluded: set) -> tuple[list, str, str]:
                 hidden += 1
             else:
                 piece = node.text
+                if _is_code(node):
+                    code.append(node)
                 if node.tag == "a" and node.get("href") is not None:
                     anchors.append(node)
                 elif hidden == 0 and node.tag in _HEADINGS:
@@ -70,17 +87,23 @@ def walk(root, excluded: set) -> tuple[list, str, str]:
                 hidden -= 1
             elif hidden == 0 and node.tag in _HEADINGS:
                 open_headings.pop()
+            if code and code[-1] is node:
+                code.pop()
             piece = node.tail
         else:  # a comment or processing instruction: not text, what follows it is
             piece = node.tail
         if piece and hidden == 0 and not piece.isspace():  # blank pieces add nothing
+            visible = len(piece) - piece.count(" ") - piece.count("\n")
+            characters += visible
+            if code:
+                code_characters += visible
             text.add(piece)
             for pieces in open_headings:
                 pieces.append(piece)
     capped = CappedText(HEADINGS_BYTES, "\n")
     for pieces in headings:
         capped.add(" ".join(pieces))
-    return anchors, text.text(), capped.text()
+    return anchors, text.text(), capped.text(), code_characters / characters if characters else 0.0
 
 
 def anchor_lines(markup: str, anchors: list) -> dict:

@@ -149,7 +149,7 @@ def _parse_page(
         if not has_scheme(document_base):
             document_base = page_url
     lines = anchor_lines(markup, list(root.iter("a")))
-    anchors, text, headings = walk(root, set(exclude(root)) if exclude is not None else set())
+    anchors, text, headings, code_share = walk(root, set(exclude(root)) if exclude is not None else set())
     links: list[tuple[int | None, str, str]] = []
     external: set[str] = set()
     places: dict[object, str] = {}  # parent element -> its place (links often share one)
@@ -193,6 +193,7 @@ def _parse_page(
         headings=clip_utf8(title + ("\n" + headings if headings else ""), HEADINGS_BYTES),
         same_page_links=same_page,
         parent=parent if parent != page else None,
+        code_share=round(code_share, 4),
     )
     return _Parsed(record, links)
 

@@ -49,7 +49,9 @@ class PageRecord:
     page id the page names as the one above it (an HTML ``rel="up"`` link), if any: the importer
     may give a site without folders its spaces from it; it is not stored. ``same_page_links``
     counts the page's links to itself (a section anchor ``#part``, or its own file with or without
-    one): neither links of the graph nor bad records, only counted.
+    one): neither links of the graph nor bad records, only counted. ``code_share`` is the share of the
+    page's visible text that sits in code blocks (HTML pages; 0 where not measured): a page that is
+    nearly all code is a generated source listing (:func:`rankrec.derive.source_listings`).
     """
 
     page: str
@@ -65,6 +67,7 @@ class PageRecord:
     headings: str = ""
     parent: str | None = None
     same_page_links: int = 0
+    code_share: float = 0.0
 
 
 @dataclass(frozen=True, slots=True)
