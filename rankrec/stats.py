@@ -9,6 +9,7 @@ import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
 from .chrome import judge_chrome
+from .derive import LISTING_CODE_SHARE
 from .store import Store
 
 _PLACES_SHOWN = 3  # file:line places named per unresolved target or page
@@ -55,6 +56,8 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
     targets, and of the pages with most unresolved links, names ``at`` the ``file:line`` of its first
     links (by file and line) and how many more there are. ``sites`` says, for every folder of pages
     imported, the title prefix and suffix its latest import cut off and how its spaces were found.
+    ``source_listings`` counts the pages a build keeps out of lists as generated source listings
+    (:func:`rankrec.derive.source_listings`).
 
     >>> with Store(":memory:") as store:
     ...     summary = wiki_stats(store)
@@ -66,6 +69,7 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
         ids, page_ids = store.present_pages()
         sources, targets, _ = store.link_arrays()
         archived = sum(archived for _, _, archived in store.page_table())
+        listings = int(np.count_nonzero(store.code_shares() >= LISTING_CODE_SHARE))
         restricted = len({page for page, _ in store.page_group_pairs()})
         users, pages, times = store.view_arrays()
         worst_targets = [
@@ -112,6 +116,7 @@ def wiki_stats(store: Store, *, worst: int = 10) -> dict:
     summary["chrome_places"] = [{"place": place} for place in chrome.get("places", [])]
     summary["chrome_top_targets"] = chrome.get("top_targets", [])
     summary["archived"] = archived
+    summary["source_listings"] = listings
     summary["restricted"] = restricted
     summary["views_per_user"] = _spread(np.unique(users, return_counts=True)[1])
     summary["views_per_page"] = _spread(np.unique(pages, return_counts=True)[1])

@@ -19,6 +19,7 @@ from rankrec.recommend import related
 from rankrec.sources import read_source
 from rankrec.sources._html_walk import walk
 from rankrec.sources.records import PageRecord
+from rankrec.stats import wiki_stats
 from rankrec.store import Store
 
 _CODE = "\n".join(f"    int value{line} = compute(state, {line});  // step {line}" for line in range(60))
@@ -68,10 +69,12 @@ def test_the_share_is_read_stored_and_reaches_the_evidence(tmp_path):
         with store.transaction():
             store.put_pages(list(records.values()))
         shares = store.code_shares()
+        counted = wiki_stats(store)["source_listings"]
         order = [
             row[0] for row in store.connection.execute("SELECT page FROM pages WHERE present = 1 ORDER BY id")
         ]
     assert shares.tolist() == pytest.approx([records[page].code_share for page in order])
+    assert counted == sum(record.code_share >= LISTING_CODE_SHARE for record in records.values()) == 3
 
 
 def test_listings_are_kept_out_of_every_list_unless_asked_for(tmp_path):
