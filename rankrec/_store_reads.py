@@ -1,6 +1,7 @@
 """The store's reads: every question the library asks of a wiki store, one named method each.
 
-:class:`rankrec.store.Store` inherits these; this module exists only to keep ``store.py`` short.
+:class:`rankrec.store.Store` inherits these; this module exists only to keep ``store.py`` short (the
+reads of the pages' stored text are in :mod:`rankrec._store_text`).
 Nothing outside the store writes SQL: graph, profiles, topics, stats, build, recommend, the
 demo and the evaluation call the methods below. Methods return plain Python values or numpy
 arrays; pages and users are named by their row ids (``pages.id``, ``users.id``), which is
@@ -14,14 +15,11 @@ from __future__ import annotations
 
 import itertools
 import sqlite3
-import zlib
 from collections.abc import Iterator, Sequence
 
 import numpy as np
 
 from ._store_links import Links, stored_links
-from .errors import InputError
-from .sources.records import TEXT_BYTES
 
 _CHUNK = 500  # row ids per IN (...) query: well under SQLite's limit on bound parameters
 _TEXT_TABLES = ("page_text", "link_places", "link_occurrences")  # absent from stores made before them
@@ -147,88 +145,6 @@ class StoreReads:
             "FROM pages LEFT JOIN page_tags ON page_tags.page_id = pages.id "
             "WHERE present = 1 AND archived = 0 GROUP BY pages.id ORDER BY pages.id"
         ).fetchall()
-
-    def page_texts_by_row(self, rows: Sequence[int] | None = None) -> tuple[np.ndarray, list[str], list[str]]:
-        """Row ids (ascending), headings and text of the present pages that have text.
-
-        ``rows`` (page row ids) restricts the answer to those pages, so that a large wiki can be
-        read in pieces inside one :meth:`~rankrec.store.Store.reading` block. Archived pages are
-        included. Pages without text (and every page of a store without text) are left out.
-        """
-        found: list[tuple[int, str, bytes]] = []
-        if self._has_text_tables():
-            sql = (
-                "SELECT page_id, headings, text FROM page_text JOIN pages ON pages.id = page_id "
-                "WHERE present = 1"
-            )
-            if rows is None:
-                found = self.connection.execute(sql + " ORDER BY page_id").fetchall()
-            else:
-                for chunk, marks in _chunks(sorted({int(row) for row in rows})):
-                    found += self.connection.execute(f"{sql} AND page_id IN ({marks})", chunk).fetchall()
-                found.sort()
-        ids = np.fromiter((row[0] for row in found), dtype=np.int64, count=len(found))
-        return ids, [row[1] for row in found], [self._inflate(row[0], row[2]) for row in found]
-
-    def page_text_batches(
-        self, field: str = "text", *, batch: int = 2000
-    ) -> Iterator[tuple[np.ndarray, list[str]]]:
-        """Row ids (ascending) and ``field`` of the present pages that have text, ``batch`` pages at a time.
-
-        ``field`` is ``"text"`` (the main text, decompressed), ``"headings"`` or ``"sha256"`` (the hex
-        digest of the main text's UTF-8, read without decompressing it). Archived pages are
-        included, as in :meth:`page_texts_by_row`. A generator that holds one batch: a large wiki's
-        text is read without holding all of it. Iterate it inside one
-        :meth:`~rankrec.store.Store.reading` block, with the store open, for one snapshot.
-        """
-        if field not in ("text", "headings", "sha256"):
-            raise ValueError(f"field must be 'text', 'headings' or 'sha256'; got {field!r}")
-        if isinstance(batch, bool) or not isinstance(batch, int) or batch < 1:
-            raise ValueError(f"batch must be a positive integer; got {batch!r}")
-        if not self._has_text_tables():
-            return
-        cursor = self.connection.execute(
-            f"SELECT page_id, {field} FROM page_text JOIN pages ON pages.id = page_id WHERE present = 1 "
-            "ORDER BY page_id"
-        )
-        while found := cursor.fetchmany(batch):
-            ids = np.fromiter((row[0] for row in found), dtype=np.int64, count=len(found))
-            if field == "text":
-                yield ids, [self._inflate(row, data) for row, data in found]
-            else:
-                yield ids, [row[1] for row in found]
-
-    def _inflate(self, row: int, data: bytes) -> str:
-        """A stored page text: zlib-compressed UTF-8, never read past the 64 KiB a text may hold."""
-        try:
-            inflater = zlib.decompressobj()
-            text = inflater.decompress(data, TEXT_BYTES + 1)
-            if len(text) > TEXT_BYTES or not inflater.eof:
-                raise zlib.error("longer than a page text may be")
-            return text.decode("utf-8")
-        except (zlib.error, UnicodeDecodeError) as error:
-            raise InputError(self.path, None, f"stored text of page row {row} is damaged ({error})") from None
-
-    def page_text_hashes(self) -> tuple[np.ndarray, list[str]]:
-        """Row ids (ascending) and SHA-256 hex digests of the UTF-8 text of present pages with text."""
-        found = []
-        if self._has_text_tables():
-            found = self.connection.execute(
-                "SELECT page_id, sha256 FROM page_text JOIN pages ON pages.id = page_id WHERE present = 1 "
-                "ORDER BY page_id"
-            ).fetchall()
-        ids = np.fromiter((row[0] for row in found), dtype=np.int64, count=len(found))
-        return ids, [row[1] for row in found]
-
-    def text_counts(self) -> tuple[int, int]:
-        """How many present pages have text, and their UTF-8 bytes in all (before compression)."""
-        if not self._has_text_tables():
-            return 0, 0
-        pages, size = self.connection.execute(
-            "SELECT count(*), coalesce(sum(text_bytes), 0) FROM page_text JOIN pages ON pages.id = page_id "
-            "WHERE present = 1"
-        ).fetchone()
-        return int(pages), int(size)
 
     def unresolved_targets(self, limit: int) -> list[tuple[str, int]]:
         """``(page, links)`` of the ``limit`` missing pages most linked to (most first, ties by page)."""

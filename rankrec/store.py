@@ -4,10 +4,10 @@ Pages are numbered by SQLite row ids. A page that is only *referred to* (a link 
 viewed page that no source has described) is kept as a row with ``present = 0``, so links to
 pages that do not exist are counted and reported instead of being dropped, and a later import
 that brings the page makes them resolve. Imports run inside :meth:`Store.transaction`: all of
-it or nothing. This module, :mod:`rankrec._store_reads` (the named read methods ``Store``
-inherits), :mod:`rankrec._store_writes` (the import's writes, inherited the same way) and
-:mod:`rankrec._store_schema` (the tables, and how older stores are brought up to them) hold all of
-the project's SQL; reads that build something from several of those methods run inside
+it or nothing. This module, :mod:`rankrec._store_reads` and :mod:`rankrec._store_text` (the named
+read methods ``Store`` inherits), :mod:`rankrec._store_writes` (the import's writes, inherited the
+same way) and :mod:`rankrec._store_schema` (the tables, and how older stores are brought up to them)
+hold all of the project's SQL; reads that build something from several of those methods run inside
 :meth:`Store.reading`, one snapshot.
 """
 
@@ -25,6 +25,7 @@ from ._store_links import PendingLinks, settle, stored_count
 from ._store_os import create_private, raise_unavailable, store_unavailable
 from ._store_reads import StoreReads
 from ._store_schema import STORE_ID_KEY, create_or_check, has_added_columns, migrate
+from ._store_text import TextReads
 from ._store_writes import StoreWrites
 from .errors import InputError, UnknownPage
 
@@ -38,7 +39,7 @@ def read_store_id(path: str | Path) -> str | None:
         return store.store_id()
 
 
-class Store(StoreReads, StoreWrites):
+class Store(StoreReads, TextReads, StoreWrites):
     """An open wiki store. Use as a context manager, or call :meth:`close`.
 
     >>> with Store(":memory:") as store:

@@ -252,7 +252,14 @@ def test_no_sql_outside_the_store():
     root = Path(__file__).resolve().parent.parent
     allowed = {
         root / "rankrec" / name
-        for name in ("store.py", "_store_reads.py", "_store_writes.py", "_store_schema.py", "_store_links.py")
+        for name in (
+            "store.py",
+            "_store_reads.py",
+            "_store_text.py",
+            "_store_writes.py",
+            "_store_schema.py",
+            "_store_links.py",
+        )
     }
     pattern = re.compile(r"\.(execute|executemany|executescript|scalar)\(|\.connection\b")
     offenders = [

@@ -93,7 +93,7 @@ def walk(root, excluded: set) -> tuple[list, str, str, float]:
         else:  # a comment or processing instruction: not text, what follows it is
             piece = node.tail
         if piece and hidden == 0 and not piece.isspace():  # blank pieces add nothing
-            visible = len(piece) - piece.count(" ") - piece.count("\n")
+            visible = len(piece) - piece.count(" ") - piece.count("\n") - piece.count("\t")
             characters += visible
             if code:
                 code_characters += visible

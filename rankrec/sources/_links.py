@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import os
 import re
+from collections import Counter
 from collections.abc import Collection, Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -383,9 +384,10 @@ def duplicate_error(file: str, page: str, first_file: str) -> InputError:
 
 
 def folder_pages(
-    folder: str | os.PathLike[str], suffixes: tuple[str, ...], what: str
+    folder: str | os.PathLike[str], suffixes: tuple[str, ...], what: str, tally: Counter | None = None
 ) -> tuple[FolderFiles | None, Iterator[tuple[str, str] | InputError]]:
-    """The files of a wiki folder and its pages as ``(relative path, file)``, one per page id.
+    """The files of a wiki folder and its pages as ``(relative path, file)``, one per page id; the
+    folder's aliases (:attr:`FolderFiles.aliases`) counted in ``tally`` under :data:`ALIASES`.
 
     Yields an InputError instead of a page for a missing folder, for a page file refused by
     :func:`walk_folder` (a link leaving the folder, not a regular file), for a second file
@@ -398,6 +400,8 @@ def folder_pages(
     if problem is not None:
         return None, iter([problem])
     files = walk_folder(folder, suffixes)
+    if tally is not None and files.aliases:
+        tally[ALIASES] += len(files.aliases)
 
     def pages() -> Iterator[tuple[str, str] | InputError]:
         first_file: dict[str, str] = {}

@@ -45,7 +45,6 @@ from ..errors import InputError
 from ..progress import Progress
 from ._html_walk import LAST_LINE, anchor_lines, link_place, text_of, walk
 from ._links import (
-    ALIASES,
     EXTERNAL,
     PAGE,
     ROOT_RELATIVE,
@@ -330,11 +329,9 @@ def _read(
     workers: int = 1,
     progress=None,
 ) -> Iterator[PageRecord | LinkRecord | InputError]:
-    files, pages = folder_pages(folder, _SUFFIXES, "HTML")
+    files, pages = folder_pages(folder, _SUFFIXES, "HTML", tally)
     context = _Context(base_url, exclude, encoding, files.others if files else set(), site_known)
     aliases = files.aliases if files else {}
-    if tally is not None and aliases:
-        tally[ALIASES] += len(aliases)
     parsed: list[_Parsed] = []
     for result in parse_in_order(_parse_file, context, pages, workers=workers, progress=progress):
         if isinstance(result, InputError):

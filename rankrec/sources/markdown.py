@@ -41,7 +41,6 @@ from ..errors import InputError
 from ..progress import Progress
 from ._front_matter import Meta, read_front_matter, split_front_matter
 from ._links import (
-    ALIASES,
     EXTERNAL,
     JUMP,
     OUTSIDE,
@@ -327,12 +326,10 @@ def _parse_file(context: tuple[str, set[str]], relative: str, file: str) -> _Par
 def _read(
     folder: str | os.PathLike[str], encoding: str, tally: Counter, workers: int = 1, progress=None
 ) -> Iterator[PageRecord | LinkRecord | InputError]:
-    files, pages = folder_pages(folder, _SUFFIXES, "Markdown")
+    files, pages = folder_pages(folder, _SUFFIXES, "Markdown", tally)
     parsed: list[_Parsed] = []
     context = (encoding, files.others if files else set())
     aliases = files.aliases if files else {}
-    if aliases:
-        tally[ALIASES] += len(aliases)
     for result in parse_in_order(_parse_file, context, pages, workers=workers, progress=progress):
         if isinstance(result, InputError):
             yield result
