@@ -43,7 +43,7 @@ from .derive import (
 from .errors import GroupTooSmall
 from .evidence import Evidence, read_evidence
 from .graph import dense_numbers
-from .index import PAGES_READ, READING, IndexManifest, load_index, write_tables
+from .index import PAGES_READ, READING, IndexManifest, load_index, load_transition, write_tables
 from .pagerank import personalised_pagerank, prepare
 from .profiles import reader_profiles, team_restart
 from .progress import Progress, report
@@ -51,6 +51,7 @@ from .ranker.features import Signals
 from .recommend.calibrate import calibrate_vector_epsilon, sample_readers
 from .recommend.candidates import DEFAULT_K_RELATED, seed_vectors, write_related
 from .reuse import text_step
+from .reuse_lists import UNREADABLE, Changes, earlier_index, lists_to_take_over, take_over_ranker
 from .store import Store, read_store_id
 
 EXACT_LIMIT = 5_000  # method "auto": block power iteration up to this many pages, push above
@@ -206,9 +207,10 @@ def build_from_evidence(
     settings_source : dict, optional
         Where the configuration came from (recorded in the manifest).
     reuse : bool
-        Take over the parts of the index at ``target`` (the one this build replaces) whose inputs have
-        not changed, instead of computing them again: today the text neighbours, when the text digest
-        (:meth:`Evidence.text_digest`) is the one its manifest records. False: compute everything.
+        Take over from the index at ``target`` (the one this build replaces) what the changes since
+        cannot have moved, instead of computing it again: the text neighbours, when the text digest
+        (:meth:`Evidence.text_digest`) is the one its manifest records; the ranker and the related lists
+        by the rules of :mod:`rankrec.reuse_lists`. False: compute everything.
     progress : callable, optional
         ``progress(step, done, total)``.
 
@@ -246,7 +248,15 @@ def build_from_evidence(
 
         check_reachable(cluster)
 
+    earlier, why_not = None, "a full build was asked for"
+    if reuse:
+        earlier, why_not = earlier_index(
+            Path(target), evidence, read_store_id(evidence.store), configuration, k_related, method
+        )
+    ranker_wanted = configuration.ranker != "none"
+
     def write(staging: Path) -> None:
+        nonlocal earlier, why_not  # an earlier index that cannot be read is one not taken over
         # Each part is written into the staging folder as soon as it is computed and then let go, so
         # the peak is the evidence and one stage's work, not every part at once; text comes first,
         # its vectoriser being the largest stage (the neighbour lists it keeps are small).
@@ -260,6 +270,12 @@ def build_from_evidence(
             adjacency, navigation = navigation_matrix(evidence, configuration)
             transition = prepare(adjacency)
             del adjacency
+            changes = None
+            if earlier is not None:
+                try:
+                    changes = Changes.of(earlier, transition)
+                except UNREADABLE as error:
+                    earlier, why_not = None, f"the earlier index could not be read ({error})"
         report(progress, "graph", 1, 1)
 
         with _timed(seconds, "global"):
@@ -295,21 +311,54 @@ def build_from_evidence(
         with _timed(seconds, "ranker"):
             chrome_share = chrome_in_share(evidence)
             site = site_hubs(evidence.graph.adjacency, chrome_share)
-            ranker, ranker_summary = _ranker(
-                evidence, configuration, text, chrome_share, method, workers, progress
-            )
+            ranker_summary, retrained, reason = None, "", why_not
+            if ranker_wanted:
+                ranker_summary, retrained = take_over_ranker(earlier, changes, staging)
+            if ranker_summary is None:
+                ranker, ranker_summary = _ranker(
+                    evidence, configuration, text, chrome_share, method, workers, progress
+                )
+                if ranker is not None:
+                    ranker.save(staging / "ranker")
+                    ranker_summary = ranker_summary | {"changed_since_training": 0.0}
+                if ranker is not None or (earlier and (earlier.manifest.get("ranker") or {}).get("used")):
+                    changes = None  # another model (or none now): every list is computed afresh
+                    reason = why_not or retrained or "a ranker was trained"
+            else:
+                report(progress, "ranker (taken over)", 1, 1)
         np.save(staging / "chrome_in_share.npy", chrome_share)
         np.save(staging / "hubs.npy", site)
-        if ranker is not None:
-            ranker.save(staging / "ranker")
-            for name, matrix in zip(READING, reading_neighbours(evidence, configuration), strict=True):
+        reading, read = (None, None), (None, None)
+        if ranker_summary.get("used"):
+            reading, read = reading_neighbours(evidence, configuration), pages_read(evidence, configuration)
+            for name, matrix in zip(READING, reading, strict=True):
                 if matrix is not None:
                     save_csr(staging, name, matrix)
-            for name, array in zip(PAGES_READ, pages_read(evidence, configuration), strict=True):
+            for name, array in zip(PAGES_READ, read, strict=True):
                 if array is not None:
                     np.save(staging / f"{name}.npy", array)
         with _timed(seconds, "related"):
-            write_related(staging, chosen, method, configuration, k_related, workers, progress, cluster)
+            taken = None
+            if changes is not None:
+                try:
+                    taken, reused = lists_to_take_over(
+                        earlier,
+                        changes,
+                        evidence,
+                        load_transition(staging, size),
+                        chosen,
+                        configuration,
+                        text=text,
+                        reading=reading,
+                        pages_read=read,
+                    )
+                except UNREADABLE as error:
+                    reused = {"from": None, "reason": f"the earlier index could not be read ({error})"}
+            else:
+                reused = {"from": None, "reason": reason}
+            write_related(
+                staging, chosen, method, configuration, k_related, workers, progress, cluster, taken
+            )
         manifest = IndexManifest(
             fingerprint=evidence.graph.fingerprint,
             configuration=configuration.to_dict(),
@@ -349,6 +398,7 @@ def build_from_evidence(
             seconds={key: round(value, 3) for key, value in seconds.items()},
             ranker=ranker_summary,
             text=text_summary,
+            reuse=reused,
         )
         manifest.write(staging)
         with _timed(seconds, "calibrate"):  # through the serving code, so on the staged index itself

@@ -75,6 +75,7 @@ class IndexManifest:
     store_id: str | None = None  # the id of the store built from (rankrec.store; None: older index or store)
     serving: dict = field(default_factory=dict)  # measured serving settings (rankrec.recommend.calibrate)
     text: dict = field(default_factory=dict)  # the text's digest, and the index its neighbours came from
+    reuse: dict = field(default_factory=dict)  # what was taken over from the index replaced (reuse_lists)
     created: str = field(default_factory=lambda: datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"))
     versions: dict = field(default_factory=lambda: {**_versions(), "scikit-learn": _sklearn_version()})
     format_version: int = INDEX_FORMAT

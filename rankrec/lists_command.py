@@ -85,9 +85,10 @@ def register(commands) -> None:
     build.add_argument(
         "--full",
         action="store_true",
-        help="compute every part afresh; by default a part whose inputs have not changed since the index "
-        "being replaced was built is taken over from it (today: the text neighbours, when no page's text "
-        "changed)",
+        help="compute every part afresh; by default a rebuild takes over from the index it replaces the "
+        "text neighbours when no page's text changed, the learnt ranker while under 5%% of pages changed "
+        "since it was trained, and each related list that the changes cannot have moved beyond its own "
+        "error bound (the manifest's 'reuse' entry says how many and why the others were computed)",
     )
     build.add_argument("--workers", type=worker_count, default=1, metavar="N", help="processes (default 1)")
     add_cluster_option(build, "the related lists' blocks of pages (wikis above 5,000 pages)")
@@ -240,8 +241,27 @@ def _cmd_build(args: argparse.Namespace) -> int:
     print(_threshold_line(manifest.serving))
     if manifest.text.get("reused_from"):
         print("text neighbours: taken over from the replaced index (no text changed; --full recounts)")
+    print(_reuse_line(manifest.reuse, manifest.ranker))
     print(f"index written to {args.index}, serving with {shown}")
     return 0
+
+
+def _reuse_line(reuse: dict, ranker: dict) -> str:
+    """What the build took over of the related lists (and the ranker) from the index it replaced.
+
+    >>> _reuse_line({"from": None, "reason": "the settings changed"}, {})
+    'related lists: every list computed (the settings changed)'
+    >>> line = _reuse_line({"from": ".x", "lists_taken_over": 90, "lists_computed": 10,
+    ...                     "computed_because": {"vector moved": 7, "new": 3}}, {"taken_over_from": ".x"})
+    >>> line.endswith("; ranker taken over"), line.split(";")[0]
+    (True, 'related lists: 90 taken over from the replaced index, 10 computed (vector moved 7, new 3)')
+    """
+    if not reuse or reuse.get("from") is None:
+        return f"related lists: every list computed ({reuse.get('reason', 'a full build')})"
+    because = ", ".join(f"{reason} {count:,}" for reason, count in reuse["computed_because"].items())
+    line = f"related lists: {reuse['lists_taken_over']:,} taken over from the replaced index, "
+    line += f"{reuse['lists_computed']:,} computed" + (f" ({because})" if because else "")
+    return line + ("; ranker taken over" if ranker.get("taken_over_from") else "")
 
 
 def _threshold_line(serving: dict) -> str:

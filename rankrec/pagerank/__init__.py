@@ -14,7 +14,7 @@ This package imports no other rankrec module.
 from .exact import solve_exact
 from .power import combine, personalised_pagerank
 from .push import push
-from .reach import ReachResult, change_bound, changed_rows, mass_on
+from .reach import ReachResult, change_bound, changed_pages, changed_rows, mass_on
 from .results import ConvergenceWarning, PageRankResult, PushResult
 from .transition import Transition, prepare
 
@@ -25,6 +25,7 @@ __all__ = [
     "ReachResult",
     "Transition",
     "change_bound",
+    "changed_pages",
     "changed_rows",
     "combine",
     "mass_on",

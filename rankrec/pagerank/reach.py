@@ -97,28 +97,43 @@ def mass_on(
     return ReachResult(np.minimum(upper, 1.0), error, pushes, converged, time.perf_counter() - started)
 
 
+def changed_pages(
+    old: Transition | object, new: Transition | object, new_of_old: np.ndarray, *, tol: float = 1e-12
+) -> tuple[np.ndarray, np.ndarray]:
+    """Per page of ``new``: (its row differs from its row in ``old``, its column does), each by more than
+    ``tol`` in some entry; a page with no page in ``old`` has changed both. ``old`` and ``new`` are
+    transitions (their forward matrices are compared) or square sparse matrices (text neighbours,
+    co-visits); ``new_of_old[i]`` is the new number of old page ``i`` (-1: gone). A row that held a page
+    now gone has changed too."""
+    old_matrix, new_matrix = getattr(old, "forward", old), getattr(new, "forward", new)
+    size = new_matrix.shape[0]
+    new_of_old = np.asarray(new_of_old, dtype=np.int64)
+    if new_of_old.shape != (old_matrix.shape[0],):
+        raise ValueError(
+            f"new_of_old must have one entry per old page ({old_matrix.shape[0]}); "
+            f"got shape {new_of_old.shape}"
+        )
+    rows, columns = np.ones(size, dtype=bool), np.ones(size, dtype=bool)
+    kept = new_of_old[new_of_old >= 0]
+    rows[kept] = columns[kept] = False  # pages in both: compared below
+    before = sp.coo_array(old_matrix)
+    old_rows, old_columns = new_of_old[before.row], new_of_old[before.col]
+    rows[old_rows[(old_rows >= 0) & (old_columns < 0)]] = True  # held a page now gone
+    live = (old_rows >= 0) & (old_columns >= 0)
+    mapped = sp.csr_array((before.data[live], (old_rows[live], old_columns[live])), shape=(size, size))
+    difference = sp.coo_array(sp.csr_array(new_matrix) - mapped)
+    moved = np.abs(difference.data) > tol
+    rows[difference.row[moved]] = True
+    columns[difference.col[moved]] = True
+    return rows, columns
+
+
 def changed_rows(
-    old: Transition, new: Transition, new_of_old: np.ndarray, *, tol: float = 1e-12
+    old: Transition | object, new: Transition | object, new_of_old: np.ndarray, *, tol: float = 1e-12
 ) -> np.ndarray:
     """Per page of ``new``, True when its transition row differs from its row in ``old`` (by more than
-    ``tol`` in any entry), or it has no page in ``old``. ``new_of_old[i]`` is the new number of old page
-    ``i`` (-1: gone); a row that linked to a page now gone has changed too."""
-    new_of_old = np.asarray(new_of_old, dtype=np.int64)
-    if new_of_old.shape != (old.n,):
-        raise ValueError(
-            f"new_of_old must have one entry per old page ({old.n}); got shape {new_of_old.shape}"
-        )
-    changed = np.ones(new.n, dtype=bool)
-    kept = np.flatnonzero(new_of_old >= 0)
-    changed[new_of_old[kept]] = False  # pages in both: compared below
-    forward = sp.coo_array(old.forward)
-    rows, columns = new_of_old[forward.row], new_of_old[forward.col]
-    changed[rows[(rows >= 0) & (columns < 0)]] = True  # linked to a page now gone
-    live = (rows >= 0) & (columns >= 0)
-    mapped = sp.csr_array((forward.data[live], (rows[live], columns[live])), shape=(new.n, new.n))
-    difference = sp.coo_array(sp.csr_array(new.forward) - mapped)
-    changed[difference.row[np.abs(difference.data) > tol]] = True
-    return changed
+    ``tol`` in any entry), or it has no page in ``old`` (:func:`changed_pages`' rows)."""
+    return changed_pages(old, new, new_of_old, tol=tol)[0]
 
 
 def change_bound(

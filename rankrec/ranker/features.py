@@ -87,6 +87,16 @@ def absent_values(text_top: int) -> tuple[dict[int, float], dict[int, float], di
 _TINY = 1e-12
 
 
+def popular_pages(sessions, archived) -> np.ndarray:
+    """The ``POPULAR`` pages read in most ``sessions`` (sorted; ties to the lower page), never an
+    ``archived`` one; none without history (``sessions`` None)."""
+    if sessions is None:
+        return np.zeros(0, dtype=np.int64)
+    sessions = np.where(np.asarray(archived), 0.0, np.asarray(sessions, dtype=np.float64))
+    order = np.lexsort((np.arange(sessions.size), -sessions))[:POPULAR]
+    return np.sort(order[sessions[order] > 0]).astype(np.int64)
+
+
 @dataclass(frozen=True, eq=False)
 class Signals:
     """The arrays features are read from (see the module docstring); ``similar`` may be None (no text)."""
@@ -111,11 +121,7 @@ class Signals:
     def popular(self) -> np.ndarray:
         """The ``POPULAR`` pages read in most sessions (sorted; ties to the lower page), none without
         history; archived pages never."""
-        if self.sessions is None:
-            return np.zeros(0, dtype=np.int64)
-        sessions = np.where(np.asarray(self.archived), 0.0, np.asarray(self.sessions, dtype=np.float64))
-        order = np.lexsort((np.arange(sessions.size), -sessions))[:POPULAR]
-        return np.sort(order[sessions[order] > 0]).astype(np.int64)
+        return popular_pages(self.sessions, self.archived)
 
     @property
     def size(self) -> int:

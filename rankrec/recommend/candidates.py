@@ -225,6 +225,12 @@ def seed_vectors(
     transition: Transition, seeds: np.ndarray, method: str, configuration: Configuration, workers=1
 ):
     """(indices, values) of each seed's personalised PageRank vector, one seed after another."""
+    return solved_seeds(transition, seeds, method, configuration, workers)[0]
+
+
+def solved_seeds(transition: Transition, seeds: np.ndarray, method: str, configuration, workers=1):
+    """:func:`seed_vectors`, and each vector's L1 error bound: the push's residual mass, or the power
+    iteration's ``tol``."""
     damping = configuration.damping
     if method == "power":
         restart = np.zeros((transition.n, seeds.size))
@@ -234,12 +240,14 @@ def seed_vectors(
         ).vectors
         everything = np.arange(transition.n)
         columns = np.ascontiguousarray(vectors.T)  # one contiguous row per seed
-        return [(everything, columns[column]) for column in range(seeds.size)]
-    found = []
-    for seed in seeds.tolist():
+        found = [(everything, columns[column]) for column in range(seeds.size)]
+        return found, np.full(seeds.size, configuration.tol, dtype=np.float32)
+    found, errors = [], np.zeros(seeds.size, dtype=np.float32)
+    for row, seed in enumerate(seeds.tolist()):
         result = push(transition, seed, damping=damping, epsilon=configuration.related_epsilon)
         found.append((np.asarray(result.vector.coords[0]), np.asarray(result.vector.data)))
-    return found
+        errors[row] = result.residual_mass
+    return found, errors
 
 
 def _block(arrays: tuple, seeds, method, configuration, k, workers=1) -> dict:
@@ -247,7 +255,7 @@ def _block(arrays: tuple, seeds, method, configuration, k, workers=1) -> dict:
     ranker, its signals): :func:`ranked_candidates` when there is a ranker, else :func:`candidates`."""
     transition, global_vector, archived, space, text, ranker, signals = arrays
     out = _empty(seeds.size, k)
-    columns = seed_vectors(transition, seeds, method, configuration, workers)
+    columns, out["error"] = solved_seeds(transition, seeds, method, configuration, workers)
     if ranker is not None:
         ranked = ranked_block(
             transition, signals, ranker, space, seeds.tolist(), columns, damping=configuration.damping, k=k
@@ -309,12 +317,15 @@ def write_related(
     workers: int,
     progress=None,
     cluster=None,
+    earlier=None,
 ) -> None:
     """Precompute the candidates of the ``chosen`` pages into ``staging`` (``related_*.npy``, written
-    into as blocks arrive, so the lists are never all in memory).
+    into as blocks arrive, so the lists are never all in memory), with each list's L1 error bound
+    (``related_error.npy``: the push's residual mass, or ``tol``).
 
     The power iteration solves wide blocks of seeds in this process (``workers`` threads); the push runs
     batches in ``workers`` processes, or as tasks on ``cluster`` (a :class:`rankrec.cluster.ClusterAddress`).
+    ``earlier`` (:class:`rankrec.reuse_lists.TakenOver`) copies the lists it holds instead of computing them.
     """
     arrays_here = _read_arrays(str(staging))
     size = arrays_here[0].n
@@ -322,38 +333,40 @@ def write_related(
         name: np.lib.format.open_memmap(staging / f"related_{name}.npy", "w+", dtype, (chosen.size, k))
         for name, (dtype, _) in _FIELDS.items()
     }
+    arrays["error"] = np.lib.format.open_memmap(
+        staging / "related_error.npy", "w+", np.float32, (chosen.size,)
+    )
     for name, (_, fill) in _FIELDS.items():
         if fill:  # a new file reads as zeros already
             arrays[name][:] = fill
-    done = 0
+    todo = np.arange(chosen.size)
+    if earlier is not None:
+        todo = earlier.copy_into(arrays)
+    done = chosen.size - todo.size
 
-    def store_block(first: int, block: dict) -> None:
+    def store_block(rows: np.ndarray, block: dict) -> None:
         nonlocal done
         for name, values in block.items():
-            arrays[name][first : first + values.shape[0]] = values
-        done += block["pages"].shape[0]
+            arrays[name][rows] = values
+        done += rows.size
         if progress is not None:
             progress("related lists", done, chosen.size)
 
     if method == "power":
         width = int(np.clip(_BLOCK_CELLS // max(size, 1), 16, _WIDEST))
-        for first in range(0, chosen.size, width):
-            seeds = chosen[first : first + width]
-            store_block(
-                first,
-                _block(arrays_here, seeds, method, configuration, k, workers),
-            )
+        for first in range(0, todo.size, width):
+            rows = todo[first : first + width]
+            store_block(rows, _block(arrays_here, chosen[rows], method, configuration, k, workers))
     else:
-        batch = max(1, min(512, -(-chosen.size // (4 * workers))))  # several batches per worker
-        batches = [chosen[first : first + batch] for first in range(0, chosen.size, batch)]
-        offsets = np.cumsum([0] + [seeds.size for seeds in batches])[:-1]
+        batch = max(1, min(512, -(-todo.size // (4 * workers))))  # several batches per worker
+        batches = [todo[first : first + batch] for first in range(0, todo.size, batch)]
         settings = (str(staging), method, configuration.to_dict(), k)
-        tasks = [(settings, seeds) for seeds in batches]
+        tasks = [(settings, chosen[rows]) for rows in batches]
         here = cluster is None and len(tasks) <= 1
         with block_runner(cluster, staging) as run:
             blocks = run(related_block, tasks, 1 if here else workers, ahead=4)
-            for first, block in zip(offsets, blocks, strict=True):
-                store_block(first, block)
+            for rows, block in zip(batches, blocks, strict=True):
+                store_block(rows, block)
     for values in arrays.values():
         values.flush()
     arrays.clear()  # unmaps the files
@@ -394,7 +407,9 @@ def fill_candidates(index: Index, numbers) -> list[int]:
         block = _block(arrays, seeds, method, index.configuration, index.manifest.k_related)
         for row, number in enumerate(seeds.tolist()):
             count = int(np.count_nonzero(block["pages"][row] >= 0))
-            index.cache[number] = {name: values[row, :count].copy() for name, values in block.items()}
+            index.cache[number] = {
+                name: values[row, :count].copy() for name, values in block.items() if name in _FIELDS
+            }
     return missing
 
 
