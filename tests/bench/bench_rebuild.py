@@ -1,7 +1,7 @@
 """A rebuild after a day's edits against a full build of the same store.
 
 Run: `python -m tests.bench.bench_rebuild [--pages N] [--share S] [--runs R] [--workers W]`
-(`make bench`: 20,000 pages, 1% edited, 1 run each).
+(`make bench`: 20,000 pages, 1% edited, 3 runs of each build).
 
 It writes a wiki with `rankrec synth` (tables, with text), imports it and builds it in full (a child
 process each build: wall time and peak memory). Then :func:`rankrec.synth.edits.edit_wiki` gives
@@ -20,6 +20,7 @@ import argparse
 import json
 import shutil
 import statistics
+import sys
 import tempfile
 from pathlib import Path
 
@@ -93,7 +94,7 @@ def main(argv: list[str]) -> None:
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--pages", type=int, default=20_000, help="pages of the synthetic wiki")
     parser.add_argument("--share", type=float, default=0.01, help="share of the pages edited")
-    parser.add_argument("--runs", type=int, default=1, help="builds of each kind (median printed)")
+    parser.add_argument("--runs", type=int, default=3, help="builds of each kind (median printed)")
     parser.add_argument("--workers", type=int, default=2, help="build processes")
     args = parser.parse_args(argv)
     from rankrec.importer import import_sources
@@ -107,8 +108,8 @@ def main(argv: list[str]) -> None:
         settings = {"workers": args.workers, "topics": "spaces", "method": "push"}
         first = _build(wiki, workdir / "index", settings, {})
         print(json.dumps({"first_build": first}), flush=True)
-        kept = workdir / "first"
-        shutil.copytree((workdir / "index").resolve(), kept / (workdir / "index").resolve().name)
+        kept = workdir / "first" / (workdir / "index").resolve().name  # the first build, as before the edits
+        shutil.copytree((workdir / "index").resolve(), kept)
         edited = edit_wiki(workdir / "wiki", share=args.share, seed=3)
         with Store(wiki) as store:
             import_sources(
@@ -120,9 +121,11 @@ def main(argv: list[str]) -> None:
             )
         print(f"edited {len(edited):,} pages ({args.share:.1%})", flush=True)
         rebuilds, fulls = [], []
-        for _ in range(args.runs):
+        for run in range(args.runs):
             (workdir / "index").unlink()
-            (workdir / "index").symlink_to(next(kept.iterdir()))  # the first build, as before the edits
+            # a copy of the first build each run: a rebuild removes the folder it replaces
+            shutil.copytree(kept, workdir / f"run{run}" / kept.name)
+            (workdir / "index").symlink_to(workdir / f"run{run}" / kept.name)
             rebuilds.append(_build(wiki, workdir / "index", settings, {}))
             print(json.dumps({"rebuild": rebuilds[-1]}), flush=True)
             fulls.append(_build(wiki, workdir / "full", {**settings, "reuse": False}, {}))
@@ -150,5 +153,9 @@ def main(argv: list[str]) -> None:
             ),
             flush=True,
         )
-        earlier = load_index(next(kept.iterdir()))
+        earlier = load_index(kept)
         print(json.dumps(compare(rebuilt, full, earlier)), flush=True)
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])
