@@ -15,7 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from rankrec.pagerank import prepare
-from rankrec.pagerank.reach import change_bound, changed_rows, mass_on
+from rankrec.pagerank.reach import change_bound, changed_pages, changed_rows, mass_on
 
 from ._graphs import random_graph
 
@@ -104,3 +104,37 @@ def test_changed_rows_follow_pages_by_number_mapping():
     assert changed_rows(old, weights, new_of_old).tolist() == [False, True, True, True]  # new link of page 1
     with pytest.raises(ValueError, match="one entry per old page"):
         changed_rows(old, new, np.array([0, 1]))
+
+
+@settings(max_examples=40, deadline=None)
+@given(_graphs(), st.data())
+def test_changed_pages_are_the_rows_and_columns_that_differ_after_renumbering(adjacency, data):
+    """Against the dense definition (numpy): the old matrix moved to the new numbering, compared entry by
+    entry; a page on the new side only has changed both ways, a row that held a page now gone too."""
+    n = adjacency.shape[0]
+    order = np.array(data.draw(st.permutations(range(n))))
+    gone = data.draw(st.integers(0, n - 1)) if data.draw(st.booleans()) else None
+    new_of_old = order.copy()
+    if gone is not None:
+        new_of_old[gone] = -1
+    edited = adjacency.toarray()
+    row = data.draw(st.integers(0, n - 1))
+    edited[row, data.draw(st.integers(0, n - 1))] += 1.0  # one more link (or a heavier one)
+    moved = np.zeros((n + 1, n + 1))  # one page added at the end of the new numbering
+    moved[np.ix_(order, order)] = edited
+    new = sp.csr_array(moved)
+    rows, columns = changed_pages(adjacency, new, new_of_old)
+    before = np.zeros((n + 1, n + 1))
+    kept = np.flatnonzero(new_of_old >= 0)
+    before[np.ix_(new_of_old[kept], new_of_old[kept])] = adjacency.toarray()[np.ix_(kept, kept)]
+    differs = np.abs(moved - before) > 1e-12
+    expected_rows, expected_columns = differs.any(axis=1), differs.any(axis=0)
+    expected_rows[n] = expected_columns[n] = True  # the added page
+    absent = np.ones(n + 1, dtype=bool)
+    absent[new_of_old[kept]] = False
+    expected_rows |= absent
+    expected_columns |= absent
+    if gone is not None:  # rows that linked to the page now gone
+        expected_rows[new_of_old[np.flatnonzero(adjacency.toarray()[:, gone] != 0)]] = True
+    assert rows.tolist() == expected_rows.tolist()
+    assert columns.tolist() == expected_columns.tolist()
