@@ -356,9 +356,15 @@ def build_from_evidence(
                     reused = {"from": None, "reason": f"the earlier index could not be read ({error})"}
             else:
                 reused = {"from": None, "reason": reason}
-            write_related(
-                staging, chosen, method, configuration, k_related, workers, progress, cluster, taken
-            )
+            try:
+                write_related(
+                    staging, chosen, method, configuration, k_related, workers, progress, cluster, taken
+                )
+            except UNREADABLE as error:
+                if taken is None:
+                    raise
+                reused = {"from": None, "reason": f"the earlier index could not be read ({error})"}
+                write_related(staging, chosen, method, configuration, k_related, workers, progress, cluster)
         manifest = IndexManifest(
             fingerprint=evidence.graph.fingerprint,
             configuration=configuration.to_dict(),

@@ -3,14 +3,17 @@ related lists that the changes since cannot have moved beyond the list's own err
 
 A related list is its seed's personalised PageRank vector, ranked. The pages whose transition rows
 changed since the earlier index (links edited, readers' moves, pages added or gone) move seed ``s``'s
-vector by at most ``2α / (1 − α) · π′_s(C)`` in L1 (:func:`rankrec.pagerank.change_bound`, one reverse
-push for every seed at once). A list is taken over when that bound is at most the L1 error its own vector
-was computed with (the push's residual mass, kept per list in ``related_error.npy``; the power
-iteration's ``tol``), so the taken-over vector is within twice the error a fresh push may have. A list is
+vector by at most ``α / (1 − α) · Σ_u π′_s(u) ‖P′_u − P_u‖₁`` in L1
+(:func:`rankrec.pagerank.change_bound` weighted by :func:`rankrec.pagerank.row_changes`, one reverse
+push for every seed at once). A list is taken over when those bounds, summed over the rebuilds since it
+was computed (its drift, kept per list in ``related_drift.npy``), stay within the L1 error its own vector
+was computed with (the push's residual mass, kept in ``related_error.npy``; the power iteration's
+``tol · α / (1 − α)``), so a taken-over vector is within twice the error a fresh push may have. A list is
 also computed afresh when anything else its seed's candidates are drawn from changed: the seed's in-links,
 its text neighbours (a cosine moved by more than :data:`SIMILARITY_TOLERANCE`), its co-visited pages or
-successors, its space, tags or archived state, a candidate that is gone or now archived, and every list
-when the pages read in most sessions (candidates of every seed) changed.
+successors, its space, tags or archived state, a page of its list that is gone, archived or moved to
+another space or tags, and every list when the pages read in most sessions (candidates of every seed)
+changed.
 
 What a taken-over list does not follow: the small moves of the candidates' global inputs (global PageRank,
 in-link counts, views) that every list reads; its scores keep the values of the build that made it. The
@@ -33,8 +36,9 @@ import scipy.sparse as sp
 from ._arrays import load_array, load_csr, load_strings
 from .errors import InputError
 from .index import INDEX_FORMAT, PAGES_READ, READING, load_transition
-from .pagerank import change_bound, changed_pages
+from .pagerank import change_bound, changed_pages, row_changes
 from .ranker.features import popular_pages
+from .ranker.model import load_ranker
 from .text import load_text_neighbours
 
 UNREADABLE = (OSError, ValueError, InputError)  # an earlier index changed or went away meanwhile
@@ -71,15 +75,12 @@ class Earlier:
         return load_array(self.folder, name) if (self.folder / f"{name}.npy").exists() else None
 
 
-def _numbering(old_ids: list[str], new_ids: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _numbering(old_ids: list[str], new_ids) -> tuple[np.ndarray, np.ndarray]:
     """(new number of each old page, old number of each new page), -1 where a page is on one side only."""
-    new = np.asarray(new_ids, dtype=str)
-    old = np.asarray(old_ids, dtype=new.dtype if old_ids else str)
-    order = np.argsort(new, kind="stable")
-    position = np.minimum(np.searchsorted(new[order], old), max(new.size - 1, 0))
-    found = new[order][position] == old if new.size else np.zeros(old.size, dtype=bool)
-    new_of_old = np.where(found, order[position], -1).astype(np.int64)
-    old_of_new = np.full(new.size, -1, dtype=np.int64)
+    where = {page: number for number, page in enumerate(np.asarray(new_ids).tolist())}
+    new_of_old = np.fromiter((where.get(page, -1) for page in old_ids), dtype=np.int64, count=len(old_ids))
+    old_of_new = np.full(len(where), -1, dtype=np.int64)
+    found = new_of_old >= 0
     old_of_new[new_of_old[found]] = np.flatnonzero(found)
     return new_of_old, old_of_new
 
@@ -104,7 +105,10 @@ def earlier_index(target: Path | None, evidence, store_id, configuration, k_rela
         ),
         (manifest.get("k_related") == k_related, "the number of candidates kept changed"),
         (manifest.get("precompute", {}).get("method") == method, "the precompute method changed"),
-        ((folder / "related_error.npy").exists(), "the earlier index keeps no error bounds of its lists"),
+        (
+            (folder / "related_error.npy").exists() and (folder / "related_drift.npy").exists(),
+            "the earlier index keeps no error bounds of its lists",
+        ),
         (
             names.get("spaces") == evidence.space_names and names.get("tags") == evidence.tag_names,
             "the spaces or tags changed",
@@ -143,8 +147,9 @@ def _pages_changed(earlier: Earlier, evidence) -> np.ndarray:
     return ~same
 
 
-def _lost_candidates(earlier: Earlier, rows: np.ndarray, archived: np.ndarray) -> np.ndarray:
-    """Per chosen page with an earlier list: a candidate of it is gone or now archived."""
+def _lost_candidates(earlier: Earlier, rows: np.ndarray, flagged: np.ndarray) -> np.ndarray:
+    """Per chosen page with an earlier list: a page of its list is gone, or ``flagged`` (a new page
+    number; archived, or its space or tags changed: features of the candidate)."""
     lost = np.zeros(rows.size, dtype=bool)
     kept = np.flatnonzero(rows >= 0)
     pages = load_array(earlier.folder, "related_pages")
@@ -152,7 +157,7 @@ def _lost_candidates(earlier: Earlier, rows: np.ndarray, archived: np.ndarray) -
         positions = kept[first : first + 65_536]
         found = np.asarray(pages[rows[positions]])
         renumbered = np.where(found >= 0, earlier.new_of_old[np.maximum(found, 0)], 0)
-        gone = (found >= 0) & ((renumbered < 0) | archived[np.maximum(renumbered, 0)])
+        gone = (found >= 0) & ((renumbered < 0) | flagged[np.maximum(renumbered, 0)])
         lost[positions] = gone.any(axis=1)
     return lost
 
@@ -160,24 +165,30 @@ def _lost_candidates(earlier: Earlier, rows: np.ndarray, archived: np.ndarray) -
 def _pattern(matrix) -> sp.csr_array:
     """The non-zero pattern of a CSR matrix (each entry 1)."""
     matrix = sp.csr_array(matrix)
-    return sp.csr_array((np.ones(matrix.indices.size), matrix.indices, matrix.indptr), shape=matrix.shape)
+    ones = np.ones(matrix.indices.size, dtype=np.int8)
+    return sp.csr_array((ones, matrix.indices, matrix.indptr), shape=matrix.shape)
 
 
 @dataclass(frozen=True)
 class Changes:
-    """What changed since the earlier index, per page of the new one: its transition row (``rows``), and
+    """What changed since the earlier index, per page of the new one: how far its transition row moved
+    (``distance``; ``rows``: it moved), and
     whether a link or reading move to it appeared or went (``linked``: a page whose in-link weights
     only moved, because a page linking to it gained or lost another link, is not counted)."""
 
-    rows: np.ndarray
+    distance: np.ndarray  # how far each row moved, in L1 (rankrec.pagerank.row_changes)
     linked: np.ndarray
 
     @classmethod
     def of(cls, earlier: Earlier, transition) -> Changes:
         old = load_transition(earlier.folder, earlier.size)
-        rows = changed_pages(old, transition, earlier.new_of_old)[0]
+        distance = row_changes(old, transition, earlier.new_of_old)
         linked = changed_pages(_pattern(old.forward), _pattern(transition.forward), earlier.new_of_old)[1]
-        return cls(rows, linked)
+        return cls(distance, linked)
+
+    @property
+    def rows(self) -> np.ndarray:
+        return self.distance > 1e-12
 
     @property
     def share(self) -> float:
@@ -198,12 +209,18 @@ def take_over_ranker(
     changed = float(summary.get("changed_since_training", 0.0)) + changes.share
     if changed > RETRAIN_SHARE:
         return None, f"the ranker was trained again ({changed:.1%} of the pages changed since it was trained)"
-    (staging / "ranker").mkdir()
-    for path in sorted((earlier.folder / "ranker").iterdir()):
-        try:
-            os.link(path, staging / "ranker" / path.name)
-        except OSError:
-            shutil.copy2(path, staging / "ranker" / path.name)
+    try:
+        (staging / "ranker").mkdir()
+        for path in sorted((earlier.folder / "ranker").iterdir()):
+            try:
+                os.link(path, staging / "ranker" / path.name)
+            except OSError:
+                shutil.copy2(path, staging / "ranker" / path.name)
+        if load_ranker(staging / "ranker") is None:
+            raise InputError(str(earlier.folder / "ranker"), None, "no ranker.json")
+    except UNREADABLE as error:  # the earlier index changed or went away meanwhile: train afresh
+        shutil.rmtree(staging / "ranker", ignore_errors=True)
+        return None, f"the earlier index's ranker could not be read ({error})"
     trained_in = summary.get("trained_in", earlier.name)
     taken = {"taken_over_from": earlier.name, "trained_in": trained_in, "changed_since_training": changed}
     return summary | taken, ""
@@ -212,22 +229,29 @@ def take_over_ranker(
 @dataclass(frozen=True, eq=False)
 class TakenOver:
     """The earlier lists a build copies: ``rows[i]``, the earlier row of the ``i``-th chosen page, or -1 to
-    compute it (:meth:`copy_into` is what :func:`rankrec.recommend.candidates.write_related` calls)."""
+    compute it, and ``drift[i]``, how far its vector may have moved since it was computed, this build's
+    change included (:meth:`copy_into` is what :func:`rankrec.recommend.candidates.write_related` calls)."""
 
     earlier: Earlier
     rows: np.ndarray
+    drift: np.ndarray
 
     def copy_into(self, arrays: dict) -> np.ndarray:
-        """Copy the taken-over rows into ``arrays`` (renumbered); return the positions left to compute."""
+        """Copy the taken-over rows into ``arrays`` (renumbered, with their drift); return the positions
+        left to compute."""
         kept = np.flatnonzero(self.rows >= 0)
+        earlier = {
+            name: load_array(self.earlier.folder, f"related_{name}") for name in arrays if name != "drift"
+        }
         for first in range(0, kept.size, 65_536):  # a block at a time: the earlier files are memory-mapped
             positions = kept[first : first + 65_536]
             rows = self.rows[positions]
-            for name, values in arrays.items():
-                found = np.asarray(load_array(self.earlier.folder, f"related_{name}")[rows])
+            for name, values in earlier.items():
+                found = np.asarray(values[rows])
                 if name in ("pages", "via"):
                     found = np.where(found >= 0, self.earlier.new_of_old[np.maximum(found, 0)], -1)
-                values[positions] = found
+                arrays[name][positions] = found
+            arrays["drift"][positions] = self.drift[positions]
         return np.flatnonzero(self.rows < 0)
 
 
@@ -251,8 +275,11 @@ def lists_to_take_over(
     rows = np.where(old >= 0, np.asarray(earlier_row)[np.maximum(old, 0)], -1).astype(np.int64)
     afresh: dict[str, np.ndarray] = {"new": rows < 0}
     error = np.asarray(load_array(earlier.folder, "related_error"), dtype=np.float64)
-    bound = change_bound(transition, changes.rows, damping=configuration.damping, epsilon=REACH_EPSILON)
-    afresh["vector moved"] = bound[chosen] > np.where(rows >= 0, error[np.maximum(rows, 0)], 0.0)
+    drift = np.asarray(load_array(earlier.folder, "related_drift"), dtype=np.float64)
+    bound = change_bound(transition, changes.distance, damping=configuration.damping, epsilon=REACH_EPSILON)
+    there = np.maximum(rows, 0)
+    drift = np.where(rows >= 0, drift[there] + bound[chosen], 0.0)  # summed over the rebuilds since
+    afresh["vector moved"] = drift > np.where(rows >= 0, error[there], 0.0)
     afresh["in-links changed"] = changes.linked[chosen]
     if text is not None or (earlier.folder / "text").is_dir():
         old_text = (
@@ -265,8 +292,9 @@ def lists_to_take_over(
     for name, matrix in zip(READING, reading or (None, None), strict=True):
         moved |= _rows_moved(earlier, earlier.matrix(name), matrix)
     afresh["reading changed"] = moved[chosen]
-    afresh["page changed"] = _pages_changed(earlier, evidence)[chosen]
-    afresh["candidate gone or archived"] = _lost_candidates(earlier, rows, evidence.archived)
+    changed = _pages_changed(earlier, evidence)
+    afresh["page changed"] = changed[chosen]
+    afresh["a listed page changed"] = _lost_candidates(earlier, rows, changed | evidence.archived)
     sessions = (pages_read or (None, None))[1]
     old_sessions = earlier.array(PAGES_READ[1])
     old_popular = popular_pages(old_sessions, load_array(earlier.folder, "archived"))
@@ -280,6 +308,7 @@ def lists_to_take_over(
         counts[reason] = int(np.count_nonzero(mask & ~recompute))
         recompute |= mask
     rows[recompute] = -1
+    drift[recompute] = 0.0
     summary = {
         "from": earlier.name,
         "lists_taken_over": int(np.count_nonzero(rows >= 0)),
@@ -287,4 +316,4 @@ def lists_to_take_over(
         "computed_because": {reason: count for reason, count in counts.items() if count},
         "rows_changed": int(changes.rows.sum()),
     }
-    return TakenOver(earlier, rows), summary
+    return TakenOver(earlier, rows, drift.astype(np.float32)), summary

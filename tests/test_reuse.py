@@ -84,7 +84,7 @@ def test_unchanged_text_is_taken_over_and_equals_a_recount(rebuilt):
     # the views did change the index (the counts), and every related list is the fresh build's
     assert again.manifest.counts["views"] == fresh.manifest.counts["views"] > first.manifest.counts["views"]
     _same_files(again_real, fresh.folder, "related_*.npy")
-    assert set(RELATED_ARRAYS) | {"error"} == {  # and each list's error bound (rankrec.reuse_lists)
+    assert set(RELATED_ARRAYS) | {"error", "drift"} == {  # and their error bounds (rankrec.reuse_lists)
         path.stem.removeprefix("related_") for path in again_real.glob("related_*")
     }
 

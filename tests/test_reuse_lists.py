@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -95,9 +96,11 @@ def test_the_rebuild_takes_over_most_lists_and_the_ranker(rebuilt):
     assert reuse["from"] == before_folder.name
     assert reuse["lists_taken_over"] + reuse["lists_computed"] == int((after.related["row"] >= 0).sum())
     assert reuse["lists_taken_over"] > reuse["lists_computed"] > 0
-    # the added page and every edited page (its own row changed) are computed afresh
+    # the added page is computed afresh; every edited page's row changed (and its list moved most)
     assert reuse["computed_because"]["new"] == 1
     assert reuse["rows_changed"] >= len(edited)
+    edited_rows = np.asarray(after.related["row"])[[after.page_number(page) for page in edited]]
+    assert not np.any(np.asarray(np.load(after.folder / "related_drift.npy"))[edited_rows])
     ranker = after.manifest.ranker
     assert ranker["used"] and ranker["taken_over_from"] == before_folder.name
     assert 0 < ranker["changed_since_training"] <= RETRAIN_SHARE
@@ -162,7 +165,7 @@ def test_a_list_computed_afresh_is_the_list_a_full_computation_gives(rebuilt):
 
 def test_taken_over_lists_agree_with_a_full_computation(rebuilt):
     """Every taken-over list against the same seed's candidates computed now from the new index: the
-    top 10 agree (measured here; the tolerance the README states)."""
+    top 10s overlap by 0.95 or more on average (the README states what was measured at 100,000 pages)."""
     before, _, after, _ = rebuilt
     seeds = _taken_over(before, after)
     block = _block(_index_arrays(after), seeds, "push", after.configuration, after.manifest.k_related)
@@ -212,3 +215,25 @@ def test_past_the_retrain_share_the_ranker_is_trained_again_and_every_list_compu
     assert again.manifest.reuse["reason"].startswith("the ranker was trained again")
     assert "taken_over_from" not in again.manifest.ranker
     assert again.manifest.ranker["changed_since_training"] == 0.0
+
+
+def test_drift_adds_up_over_rebuilds_and_stays_within_each_lists_error(rebuilt, tmp_path):
+    """A second day's edits on a copy of the store: a list taken over twice carries both days' bounds."""
+    _, _, after, _ = rebuilt
+    store = tmp_path / "wiki.db"
+    shutil.copy(after.manifest.store, store)
+    synth = tmp_path / "synth"
+    shutil.copytree(Path(after.manifest.store).parent / "synth", synth)
+    edit_wiki(synth, share=EDITED / PAGES, seed=6)
+    with Store(store) as opened:
+        import_sources(opened, [(synth / "pages", "markdown")])
+    first = np.load(after.folder / "related_drift.npy")
+    again = _build(store, _beside(after, tmp_path))
+    assert again.size == after.size and again.manifest.reuse["lists_taken_over"] > 0
+    error, drift = (np.load(again.folder / f"related_{name}.npy") for name in ("error", "drift"))
+    assert np.all(drift <= error)
+    then, now = np.asarray(after.related["row"]), np.asarray(again.related["row"])
+    seeds = np.flatnonzero((then >= 0) & (now >= 0))
+    twice = seeds[(first[then[seeds]] > 0) & (drift[now[seeds]] > 0)]  # taken over by both rebuilds
+    assert twice.size
+    assert np.all(drift[now[twice]] >= first[then[twice]])

@@ -14,7 +14,7 @@ This package imports no other rankrec module.
 from .exact import solve_exact
 from .power import combine, personalised_pagerank
 from .push import push
-from .reach import ReachResult, change_bound, changed_pages, changed_rows, mass_on
+from .reach import ReachResult, change_bound, changed_pages, changed_rows, mass_on, row_changes
 from .results import ConvergenceWarning, PageRankResult, PushResult
 from .transition import Transition, prepare
 
@@ -32,5 +32,6 @@ __all__ = [
     "personalised_pagerank",
     "prepare",
     "push",
+    "row_changes",
     "solve_exact",
 ]

@@ -230,7 +230,7 @@ def seed_vectors(
 
 def solved_seeds(transition: Transition, seeds: np.ndarray, method: str, configuration, workers=1):
     """:func:`seed_vectors`, and each vector's L1 error bound: the push's residual mass, or the power
-    iteration's ``tol``."""
+    iteration's ``tol · α / (1 − α)``."""
     damping = configuration.damping
     if method == "power":
         restart = np.zeros((transition.n, seeds.size))
@@ -241,7 +241,8 @@ def solved_seeds(transition: Transition, seeds: np.ndarray, method: str, configu
         everything = np.arange(transition.n)
         columns = np.ascontiguousarray(vectors.T)  # one contiguous row per seed
         found = [(everything, columns[column]) for column in range(seeds.size)]
-        return found, np.full(seeds.size, configuration.tol, dtype=np.float32)
+        bound = configuration.tol * damping / (1.0 - damping)
+        return found, np.full(seeds.size, bound, dtype=np.float32)
     found, errors = [], np.zeros(seeds.size, dtype=np.float32)
     for row, seed in enumerate(seeds.tolist()):
         result = push(transition, seed, damping=damping, epsilon=configuration.related_epsilon)
@@ -321,7 +322,8 @@ def write_related(
 ) -> None:
     """Precompute the candidates of the ``chosen`` pages into ``staging`` (``related_*.npy``, written
     into as blocks arrive, so the lists are never all in memory), with each list's L1 error bound
-    (``related_error.npy``: the push's residual mass, or ``tol``).
+    (``related_error.npy``: the push's residual mass, or the power iteration's bound) and how far it may
+    have moved since it was computed (``related_drift.npy``: 0, or what a taken-over list carries).
 
     The power iteration solves wide blocks of seeds in this process (``workers`` threads); the push runs
     batches in ``workers`` processes, or as tasks on ``cluster`` (a :class:`rankrec.cluster.ClusterAddress`).
@@ -333,9 +335,10 @@ def write_related(
         name: np.lib.format.open_memmap(staging / f"related_{name}.npy", "w+", dtype, (chosen.size, k))
         for name, (dtype, _) in _FIELDS.items()
     }
-    arrays["error"] = np.lib.format.open_memmap(
-        staging / "related_error.npy", "w+", np.float32, (chosen.size,)
-    )
+    for name in ("error", "drift"):  # per list: its vector's L1 error, and how far it moved since
+        arrays[name] = np.lib.format.open_memmap(
+            staging / f"related_{name}.npy", "w+", np.float32, (chosen.size,)
+        )
     for name, (_, fill) in _FIELDS.items():
         if fill:  # a new file reads as zeros already
             arrays[name][:] = fill
@@ -343,6 +346,8 @@ def write_related(
     if earlier is not None:
         todo = earlier.copy_into(arrays)
     done = chosen.size - todo.size
+    if progress is not None and done:
+        progress("related lists", done, chosen.size)
 
     def store_block(rows: np.ndarray, block: dict) -> None:
         nonlocal done

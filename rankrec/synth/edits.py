@@ -36,6 +36,12 @@ def _pick(count: int, share: float, rng: np.random.Generator) -> np.ndarray:
     return np.sort(rng.choice(count, max(1, round(count * share)), replace=False))
 
 
+def _other(number: int, count: int, rng: np.random.Generator) -> int:
+    """A page number other than ``number`` (``count`` > 1 pages)."""
+    other = int(rng.integers(count - 1))
+    return other + (other >= number)
+
+
 def _sentence(text: str, rng: np.random.Generator) -> str:
     """:data:`WORDS` words drawn from ``text`` (:data:`SENTENCE` when it has none)."""
     words = text.split()
@@ -48,7 +54,7 @@ def _edit_markdown(pages: Path, share: float, rng: np.random.Generator) -> list[
     files = sorted(pages.rglob("*.md"))
     edited = []
     for number in _pick(len(files), share, rng).tolist():
-        path, other = files[number], files[int(rng.integers(len(files)))]
+        path, other = files[number], files[_other(number, len(files), rng)]
         link = os.path.relpath(other, path.parent)
         body = path.read_text(encoding="utf-8")
         prose = body.split("---", 2)[-1]  # after the front matter
@@ -83,8 +89,9 @@ def _edit_tables(wiki: Path, share: float, rng: np.random.Generator) -> list[str
     with open(wiki / "edits" / "links.csv", "w", newline="", encoding="utf-8") as edges:
         written = csv.writer(edges)
         written.writerow(["source", "target"])
+        number_of = dict(zip(ids, chosen.tolist(), strict=True))
         for page in ids:
-            new = rows[int(rng.integers(len(rows)))][0]
+            new = rows[_other(number_of[page], len(rows), rng)][0]
             written.writerows([page, target] for target in [*links[page], new])
     return ids
 

@@ -15,7 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from rankrec.pagerank import prepare
-from rankrec.pagerank.reach import change_bound, changed_pages, changed_rows, mass_on
+from rankrec.pagerank.reach import change_bound, changed_pages, changed_rows, mass_on, row_changes
 
 from ._graphs import random_graph
 
@@ -90,6 +90,12 @@ def test_the_change_bound_holds_for_every_seed(adjacency, damping, data):
     on_changed = after[:, changed].sum(axis=1)
     factor = 2 * damping / (1 - damping)
     assert np.all(bound <= np.minimum(factor * on_changed, 2.0) + 1e-6)  # and no looser than the theory's
+    # weighted by how far each row moved: still valid, never looser, and the theory's weighted sum
+    distance = row_changes(old, new, np.arange(n))
+    weighted = change_bound(new, distance, damping=damping, epsilon=1e-10)
+    assert np.all(truly <= weighted + 1e-9)
+    assert np.all(weighted <= bound + 1e-9)
+    assert np.all(weighted <= np.minimum(factor / 2 * (after * distance).sum(axis=1), 2.0) + 1e-6)
 
 
 def test_changed_rows_follow_pages_by_number_mapping():
@@ -134,7 +140,8 @@ def test_changed_pages_are_the_rows_and_columns_that_differ_after_renumbering(ad
     absent[new_of_old[kept]] = False
     expected_rows |= absent
     expected_columns |= absent
-    if gone is not None:  # rows that linked to the page now gone
+    if gone is not None:  # rows that linked to the page now gone, columns it linked to
         expected_rows[new_of_old[np.flatnonzero(adjacency.toarray()[:, gone] != 0)]] = True
+        expected_columns[new_of_old[np.flatnonzero(adjacency.toarray()[gone] != 0)]] = True
     assert rows.tolist() == expected_rows.tolist()
     assert columns.tolist() == expected_columns.tolist()
