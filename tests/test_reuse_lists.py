@@ -237,3 +237,21 @@ def test_drift_adds_up_over_rebuilds_and_stays_within_each_lists_error(rebuilt, 
     twice = seeds[(first[then[seeds]] > 0) & (drift[now[seeds]] > 0)]  # taken over by both rebuilds
     assert twice.size
     assert np.all(drift[now[twice]] >= first[then[twice]])
+
+
+def test_new_reading_history_sends_every_list_to_be_computed(rebuilt, tmp_path):
+    """A day's views move the reading counts of the most-read pages, candidates of every list."""
+    _, _, after, _ = rebuilt
+    store = tmp_path / "wiki.db"
+    shutil.copy(after.manifest.store, store)
+    views = (Path(after.manifest.store).parent / "synth" / "views.csv").read_text().splitlines()
+    user, page = views[1].split(",")[:2]
+    (tmp_path / "more.csv").write_text(f"user,page,timestamp\n{user},{page},2026-07-01T09:00:00Z\n")
+    with Store(store) as opened:
+        import_sources(opened, [(tmp_path / "more.csv", "views")])
+    again = _build(store, _beside(after, tmp_path))
+    reuse = again.manifest.reuse
+    assert reuse["lists_taken_over"] == 0
+    assert reuse["lists_computed"] == again.manifest.counts["precomputed"]
+    assert "reading history changed" in reuse["computed_because"]
+    assert "taken_over_from" in again.manifest.ranker  # the ranker is still taken over

@@ -94,7 +94,7 @@ def test_the_change_bound_holds_for_every_seed(adjacency, damping, data):
     distance = row_changes(old, new, np.arange(n))
     weighted = change_bound(new, distance, damping=damping, epsilon=1e-10)
     assert np.all(truly <= weighted + 1e-9)
-    assert np.all(weighted <= bound + 1e-9)
+    assert np.all(weighted <= bound + 1e-6)  # up to the pushes' additive errors
     assert np.all(weighted <= np.minimum(factor / 2 * (after * distance).sum(axis=1), 2.0) + 1e-6)
 
 
