@@ -138,6 +138,11 @@ def main(argv: list[str]) -> None:
                 {
                     "reuse": rebuilt.manifest.reuse,
                     "ranker_taken_over": "taken_over_from" in rebuilt.manifest.ranker,
+                    # the full build trains its own: the kind chosen can differ (linear or LightGBM)
+                    "rankers": {
+                        name: {key: index.manifest.ranker.get(key) for key in ("kind", "validation_ndcg@10")}
+                        for name, index in (("rebuild", rebuilt), ("full_build", full))
+                    },
                 }
             ),
             flush=True,
