@@ -349,6 +349,7 @@ def build_from_evidence(
                         chosen,
                         configuration,
                         text=text,
+                        text_unchanged=bool(text_summary.get("reused_from")),
                         reading=reading,
                         pages_read=read,
                     )

@@ -33,6 +33,16 @@ def previous_text(target: Path | None, digest: str | None) -> Path | None:
     return folder if recorded == digest and folder.is_dir() else None
 
 
+def link_files(source: Path, target: Path) -> None:
+    """Make folder ``target`` with hard links to the files of ``source`` (copies across file systems)."""
+    target.mkdir()
+    for path in sorted(source.iterdir()):
+        try:
+            os.link(path, target / path.name)
+        except OSError:
+            shutil.copy2(path, target / path.name)
+
+
 def text_step(evidence, configuration, staging: Path, target: Path | None, progress, workers):
     """The text neighbours and the manifest's ``text`` entry: taken over from the index at ``target``
     when its text digest is this evidence's (hard links to its files, a copy across file systems),
@@ -41,12 +51,7 @@ def text_step(evidence, configuration, staging: Path, target: Path | None, progr
     previous = previous_text(target, digest)
     if previous is not None:
         try:
-            (staging / "text").mkdir()
-            for path in sorted(previous.iterdir()):
-                try:
-                    os.link(path, staging / "text" / path.name)
-                except OSError:
-                    shutil.copy2(path, staging / "text" / path.name)
+            link_files(previous, staging / "text")
             text = load_text_neighbours(staging / "text")
         except (OSError, InputError):  # the old index changed or went away meanwhile: count afresh
             shutil.rmtree(staging / "text", ignore_errors=True)

@@ -25,7 +25,6 @@ ranker is taken over while the pages whose rows changed since it was trained sta
 from __future__ import annotations
 
 import json
-import os
 import shutil
 from dataclasses import dataclass
 from pathlib import Path
@@ -39,6 +38,7 @@ from .index import INDEX_FORMAT, PAGES_READ, READING, load_transition
 from .pagerank import change_bound, changed_pages, row_changes
 from .ranker.features import popular_pages
 from .ranker.model import load_ranker
+from .reuse import link_files
 from .text import load_text_neighbours
 
 UNREADABLE = (OSError, ValueError, InputError)  # an earlier index changed or went away meanwhile
@@ -230,12 +230,7 @@ def take_over_ranker(
     if changed > RETRAIN_SHARE:
         return None, f"the ranker was trained again ({changed:.1%} of the pages changed since it was trained)"
     try:
-        (staging / "ranker").mkdir()
-        for path in sorted((earlier.folder / "ranker").iterdir()):
-            try:
-                os.link(path, staging / "ranker" / path.name)
-            except OSError:
-                shutil.copy2(path, staging / "ranker" / path.name)
+        link_files(earlier.folder / "ranker", staging / "ranker")
         if load_ranker(staging / "ranker") is None:
             raise InputError(str(earlier.folder / "ranker"), None, "no ranker.json")
     except UNREADABLE as error:  # the earlier index changed or went away meanwhile: train afresh
@@ -284,11 +279,13 @@ def lists_to_take_over(
     configuration,
     *,
     text=None,
+    text_unchanged: bool = False,
     reading=None,
     pages_read=None,
 ) -> tuple[TakenOver, dict]:
     """Which of the ``chosen`` pages' earlier lists the build copies (the module docstring's rules), and
-    how many lists each rule sent to be computed afresh."""
+    how many lists each rule sent to be computed afresh. ``text_unchanged``: the text neighbours were
+    taken over from the earlier index (no row to compare)."""
     size = evidence.size
     old = earlier.old_of_new[chosen]
     earlier_row = load_array(earlier.folder, "related_row")
@@ -301,7 +298,7 @@ def lists_to_take_over(
     drift = np.where(rows >= 0, drift[there] + bound[chosen], 0.0)  # summed over the rebuilds since
     afresh["vector moved"] = drift > np.where(rows >= 0, error[there], 0.0)
     afresh["in-links changed"] = changes.linked[chosen]
-    if text is not None or (earlier.folder / "text").is_dir():
+    if not text_unchanged and (text is not None or (earlier.folder / "text").is_dir()):
         old_text = (
             load_text_neighbours(earlier.folder / "text") if (earlier.folder / "text").is_dir() else None
         )

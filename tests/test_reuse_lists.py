@@ -26,6 +26,7 @@ from rankrec.reuse_lists import RETRAIN_SHARE
 from rankrec.store import Store
 from rankrec.synth import synthesize
 from rankrec.synth.edits import edit_wiki
+from tests.bench.bench_rebuild import taken_over
 
 EDITED = 12  # pages that gain a sentence and a link: 1% of the wiki
 PAGES = 1_200
@@ -120,16 +121,7 @@ def test_a_taken_over_list_is_the_earlier_list_renumbered(rebuilt):
 
 def _taken_over(before, after) -> np.ndarray:
     """Seeds of ``after`` whose list is the earlier one (the build says how many; these are they)."""
-    found = []
-    earlier = {before.pages[number]: number for number in range(before.size)}
-    for seed in np.flatnonzero(np.asarray(after.related["row"]) >= 0).tolist():
-        old = earlier.get(after.pages[seed])
-        if old is None:
-            continue
-        row_after, row_before = int(after.related["row"][seed]), int(before.related["row"][old])
-        if np.array_equal(after.related["combined"][row_after], before.related["combined"][row_before]):
-            found.append(seed)
-    return np.array(found, dtype=np.int64)
+    return taken_over(after, before)
 
 
 def test_a_taken_over_vector_moved_less_than_its_own_error_bound(rebuilt):

@@ -91,9 +91,8 @@ def mass_on(
 
 def _weighted_mass(graph: Transition, weights: np.ndarray, damping, epsilon, max_pushes) -> ReachResult:
     """:func:`mass_on` of a weight per page (``Σ_u w_u π_s(u)``; weights at most 1 keep its bound)."""
-    chosen = weights
     started = time.perf_counter()
-    on_targets, error, pushes, converged = _leaky_mass(graph, chosen, damping, epsilon, max_pushes)
+    on_targets, error, pushes, converged = _leaky_mass(graph, weights, damping, epsilon, max_pushes)
     upper = on_targets + error
     if graph.dangling.any():
         on_dangling, leak_error, more, done = _leaky_mass(graph, graph.dangling, damping, epsilon, max_pushes)
@@ -101,6 +100,25 @@ def _weighted_mass(graph: Transition, weights: np.ndarray, damping, epsilon, max
         upper = np.divide(upper, total, out=np.ones_like(upper), where=total > 0)
         error, pushes, converged = max(error, leak_error), pushes + more, converged and done
     return ReachResult(np.minimum(upper, 1.0), error, pushes, converged, time.perf_counter() - started)
+
+
+def _in_new_numbering(old, new, new_of_old):
+    """``old``'s entries in ``new``'s page numbering: (old as COO, each entry's new row and column, -1
+    where its page is gone, the entries between pages in both as a CSR array, ``new`` as CSR). ``old`` and
+    ``new`` are transitions (their forward matrices) or square sparse matrices."""
+    old_matrix, new_matrix = getattr(old, "forward", old), sp.csr_array(getattr(new, "forward", new))
+    new_of_old = np.asarray(new_of_old, dtype=np.int64)
+    if new_of_old.shape != (old_matrix.shape[0],):
+        raise ValueError(
+            f"new_of_old must have one entry per old page ({old_matrix.shape[0]}); "
+            f"got shape {new_of_old.shape}"
+        )
+    before = sp.coo_array(old_matrix)
+    old_rows, old_columns = new_of_old[before.row], new_of_old[before.col]
+    live = (old_rows >= 0) & (old_columns >= 0)
+    shape = new_matrix.shape
+    mapped = sp.csr_array((before.data[live], (old_rows[live], old_columns[live])), shape=shape)
+    return before, old_rows, old_columns, mapped, new_matrix
 
 
 def changed_pages(
@@ -111,24 +129,15 @@ def changed_pages(
     transitions (their forward matrices are compared) or square sparse matrices (text neighbours,
     co-visits); ``new_of_old[i]`` is the new number of old page ``i`` (-1: gone). A row that held a page
     now gone has changed too, and so has a column a page now gone held."""
-    old_matrix, new_matrix = getattr(old, "forward", old), getattr(new, "forward", new)
+    _, old_rows, old_columns, mapped, new_matrix = _in_new_numbering(old, new, new_of_old)
     size = new_matrix.shape[0]
     new_of_old = np.asarray(new_of_old, dtype=np.int64)
-    if new_of_old.shape != (old_matrix.shape[0],):
-        raise ValueError(
-            f"new_of_old must have one entry per old page ({old_matrix.shape[0]}); "
-            f"got shape {new_of_old.shape}"
-        )
     rows, columns = np.ones(size, dtype=bool), np.ones(size, dtype=bool)
     kept = new_of_old[new_of_old >= 0]
     rows[kept] = columns[kept] = False  # pages in both: compared below
-    before = sp.coo_array(old_matrix)
-    old_rows, old_columns = new_of_old[before.row], new_of_old[before.col]
     rows[old_rows[(old_rows >= 0) & (old_columns < 0)]] = True  # held a page now gone
     columns[old_columns[(old_rows < 0) & (old_columns >= 0)]] = True  # held by a page now gone
-    live = (old_rows >= 0) & (old_columns >= 0)
-    mapped = sp.csr_array((before.data[live], (old_rows[live], old_columns[live])), shape=(size, size))
-    difference = sp.coo_array(sp.csr_array(new_matrix) - mapped)
+    difference = sp.coo_array(new_matrix - mapped)
     moved = np.abs(difference.data) > tol
     rows[difference.row[moved]] = True
     columns[difference.col[moved]] = True
@@ -147,14 +156,9 @@ def row_changes(old: Transition | object, new: Transition | object, new_of_old: 
     """Per page of ``new``: the L1 distance between its transition row and its row in ``old`` (at most 2;
     2 for a page with no page in ``old``, and for one that became dangling or stopped being; an entry for
     a page now gone counts in full)."""
-    old_matrix, new_matrix = getattr(old, "forward", old), getattr(new, "forward", new)
+    before, old_rows, old_columns, mapped, new_matrix = _in_new_numbering(old, new, new_of_old)
     size = new_matrix.shape[0]
     new_of_old = np.asarray(new_of_old, dtype=np.int64)
-    before = sp.coo_array(old_matrix)
-    old_rows, old_columns = new_of_old[before.row], new_of_old[before.col]
-    live = (old_rows >= 0) & (old_columns >= 0)
-    mapped = sp.csr_array((before.data[live], (old_rows[live], old_columns[live])), shape=(size, size))
-    new_matrix = sp.csr_array(new_matrix)
     distance = np.asarray(abs(new_matrix - mapped).sum(axis=1)).ravel()
     # a page that became dangling, or stopped being: its row of the strongly-preferential walk (a dangling
     # page returns to the seed) may have moved in full
